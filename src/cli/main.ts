@@ -1,0 +1,51 @@
+/** The `fringe` command line: one sub-command per job, errors as one sentence on stderr. */
+import { ConfigError } from '../config/validation.ts';
+import { OpticalModelError } from '../model/optics/optical-model.ts';
+import { CliError } from './cli-error.ts';
+import { processIo, type CommandIo } from './command-io.ts';
+import { runSpectrum, spectrumUsage } from './commands/spectrum.ts';
+
+const commands: Record<string, { run: (argv: string[], io: CommandIo) => number | Promise<number>; usage: string }> = {
+  spectrum: { run: runSpectrum, usage: spectrumUsage },
+};
+
+const usage = `fringe: live monitoring and layer cutting for optical coating runs.
+
+Usage: fringe COMMAND [options]   (fringe COMMAND --help for each)
+
+Commands:
+  spectrum DESIGN     R, T and A of a design over wavelength
+
+fringe is process control, not a safety system: interlocks, manual shutter controls and the
+equipment maker's instructions stay in charge.
+`;
+
+export async function main(argv: string[], io: CommandIo = processIo): Promise<number> {
+  const [name, ...rest] = argv;
+  if (name === undefined || name === '--help' || name === '-h' || name === 'help') {
+    io.out(usage);
+    return name === undefined ? 2 : 0;
+  }
+  const command = commands[name];
+  if (!command) {
+    io.err(`fringe: unknown command "${name}"; the commands are ${Object.keys(commands).join(', ')}`);
+    return 2;
+  }
+  try {
+    return await command.run(rest, io);
+  } catch (error) {
+    if (error instanceof CliError) {
+      io.err(`fringe ${name}: ${error.message}`);
+      return error.exitCode;
+    }
+    if (error instanceof ConfigError || error instanceof OpticalModelError) {
+      io.err(`fringe ${name}: ${error.message}`);
+      return 1;
+    }
+    if (error instanceof TypeError && 'code' in error && String(error.code).startsWith('ERR_PARSE_ARGS')) {
+      io.err(`fringe ${name}: ${error.message} (see fringe ${name} --help)`);
+      return 2;
+    }
+    throw error;
+  }
+}
