@@ -1,0 +1,110 @@
+// The spectrum command through main(), with output captured, and once through the real bin.
+import { execFileSync } from 'node:child_process';
+import { mkdtempSync, readFileSync, writeFileSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { describe, expect, it } from 'vitest';
+import { main } from '../../src/cli/main.ts';
+
+const root = fileURLToPath(new URL('../../', import.meta.url));
+
+async function run(...argv: string[]): Promise<{ code: number; out: string; err: string }> {
+  let out = '';
+  let err = '';
+  const code = await main(argv, { out: (t) => (out += `${t}\n`), err: (t) => (err += `${t}\n`) });
+  return { code, out, err };
+}
+
+function tempDesign(text: string): string {
+  const file = join(mkdtempSync(join(tmpdir(), 'fringe-cli-')), 'design.yaml');
+  writeFileSync(file, text);
+  return file;
+}
+
+// A single quarter-wave of n = 1.38 on a semi-infinite n = 1.52: R = ((n0·ns − n1²)/(n0·ns + n1²))²
+// = 1.2601 % at the reference wavelength (Macleod, Thin-Film Optical Filters; physics-notes).
+const quarterWave = `formatVersion: 1
+name: one quarter-wave
+substrate: { material: { n: 1.52 }, back: none }
+referenceWavelengthNm: 550
+layers:
+  - { material: { n: 1.38 }, quarterWaves: 1 }
+`;
+
+describe('fringe spectrum', () => {
+  it('--json prints exactly the four arrays', async () => {
+    const r = await run('spectrum', tempDesign(quarterWave), '--from', '500', '--to', '600', '--step', '50', '--json');
+    expect(r.code).toBe(0);
+    const parsed = JSON.parse(r.out) as Record<string, number[]>;
+    expect(Object.keys(parsed)).toEqual(['wavelengthNm', 'R', 'T', 'A']);
+    expect(parsed.wavelengthNm).toEqual([500, 550, 600]);
+    expect(parsed.R?.[1]).toBeCloseTo(0.012600790214630288, 12);
+    for (let i = 0; i < 3; i++) expect((parsed.R?.[i] ?? 0) + (parsed.T?.[i] ?? 0) + (parsed.A?.[i] ?? 0)).toBeCloseTo(1, 12);
+  });
+
+  it('prints a table with the band mean, and CSV with a header', async () => {
+    const file = tempDesign(quarterWave);
+    const table = await run('spectrum', file, '--wavelength', '550');
+    expect(table.code).toBe(0);
+    expect(table.out).toMatch(/550\s+1\.2601\s+98\.7399\s+0\.0000/);
+    const csv = await run('spectrum', file, '--from', '540', '--to', '560', '--step', '10', '--csv');
+    const lines = csv.out.trim().split('\n');
+    expect(lines[0]).toBe('wavelength_nm,R,T,A');
+    expect(lines).toHaveLength(4);
+  });
+
+  it('writes an SVG plot', async () => {
+    const dir = mkdtempSync(join(tmpdir(), 'fringe-plot-'));
+    const plot = join(dir, 'r.svg');
+    const r = await run('spectrum', tempDesign(quarterWave), '--plot', plot, '--json');
+    expect(r.code).toBe(0);
+    const svg = readFileSync(plot, 'utf8');
+    expect(svg.startsWith('<?xml') || svg.startsWith('<svg')).toBe(true);
+    expect(svg).toContain('one quarter-wave');
+  });
+
+  it('refuses bad input with one sentence and a non-zero code', async () => {
+    const file = tempDesign(quarterWave);
+    const cases: [string[], number, RegExp][] = [
+      [[], 2, /exactly one DESIGN/],
+      [['--pol', 'x'], 2, /--pol must be s, p or mean/],
+      [['--angle', '95'], 2, /--angle must be/],
+      [['--from', '600', '--to', '500'], 2, /must be above/],
+      [['--step', 'abc'], 2, /--step expects a number/],
+      [['--json', '--csv'], 2, /one of --json or --csv/],
+      [['--nonsense'], 2, /Unknown option/],
+    ];
+    for (const [args, code, message] of cases) {
+      const r = await run('spectrum', ...(args.length === 0 ? [] : [file, ...args]));
+      expect(r.code, args.join(' ')).toBe(code);
+      expect(r.err, args.join(' ')).toMatch(message);
+      expect(r.err.trim().split('\n')).toHaveLength(1);
+    }
+    const missing = await run('spectrum', '/nonexistent/design.yaml');
+    expect(missing.code).toBe(1);
+    expect(missing.err).toMatch(/no such file/);
+    const unknown = await run('nonsense');
+    expect(unknown.code).toBe(2);
+    expect(unknown.err).toMatch(/unknown command "nonsense"/);
+  });
+
+  it('refuses wavelengths outside a material’s data', async () => {
+    const file = tempDesign(`formatVersion: 1
+name: glass
+substrate: { material: N-BK7 }
+layers: [{ material: SiO2, thicknessNm: 100 }]
+`);
+    const r = await run('spectrum', file, '--from', '200', '--to', '300');
+    expect(r.code).toBe(1);
+    expect(r.err).toMatch(/has data for .* nm only/);
+  });
+
+  it('runs as the installed bin', () => {
+    const out = execFileSync('npx', ['--no-install', 'fringe', 'spectrum', tempDesign(quarterWave), '--wavelength', '550', '--json'], {
+      cwd: root,
+      encoding: 'utf8',
+    });
+    expect((JSON.parse(out) as { R: number[] }).R[0]).toBeCloseTo(0.012600790214630288, 12);
+  });
+});
