@@ -272,10 +272,14 @@ export function spectrum(
  * Ann. Phys. (Paris) 5, 596 (1950)).
  */
 function multiplyLayers(
+  dest: Float64Array,
   model: OpticalModel,
   w: number,
   etaOffset: number,
   thicknessNm: ArrayLike<number>,
+  from: number,
+  to: number,
+  start: Float64Array | undefined,
 ): void {
   const media = model.media;
   const layerMedium = model.layerMedium;
@@ -289,8 +293,17 @@ function multiplyLayers(
   let a21i = 0;
   let a22r = 1;
   let a22i = 0;
-  const count = layerMedium.length;
-  for (let j = 0; j < count; j++) {
+  if (start !== undefined) {
+    a11r = start[0] as number;
+    a11i = start[1] as number;
+    a12r = start[2] as number;
+    a12i = start[3] as number;
+    a21r = start[4] as number;
+    a21i = start[5] as number;
+    a22r = start[6] as number;
+    a22i = start[7] as number;
+  }
+  for (let j = from; j < to; j++) {
     const at = (base + (layerMedium[j] as number)) * STRIDE;
     const phase = k0 * (thicknessNm[j] as number);
     const dRe = phase * (media[at + Q_RE] as number);
@@ -342,7 +355,7 @@ function multiplyLayers(
     a22r = n22r;
     a22i = n22i;
   }
-  const p = model.matrix;
+  const p = dest;
   p[0] = a11r;
   p[1] = a11i;
   p[2] = a12r;
@@ -360,6 +373,48 @@ function evaluatePolarised(
   etaOffset: number,
   thicknessNm: ArrayLike<number>,
 ): OpticalResult {
+  multiplyLayers(model.matrix, model, w, etaOffset, thicknessNm, 0, model.layerMedium.length, undefined);
+  return resultFromPacked(out, model, w, etaOffset, model.matrix);
+}
+
+/**
+ * The characteristic matrix of layers `from` … `to − 1` (deposition order) applied on top of
+ * `start` (default: the identity), i.e. L_(to−1) · … · L_from · start, written into `dest` as
+ * re/im pairs of P11 P12 P21 P22. With `start` the matrix of the layers below, this evaluates
+ * a growing top layer for the cost of one layer.
+ */
+export function layersMatrix(
+  dest: Float64Array,
+  model: OpticalModel,
+  w: number,
+  pol: 's' | 'p',
+  thicknessNm: ArrayLike<number>,
+  from: number,
+  to: number,
+  start?: Float64Array,
+): Float64Array {
+  multiplyLayers(dest, model, w, pol === 's' ? S_ETA_RE : P_ETA_RE, thicknessNm, from, to, start);
+  return dest;
+}
+
+/** R, T and A of the model's media around a characteristic matrix from {@link layersMatrix}. */
+export function resultFromMatrix(
+  out: OpticalResult,
+  model: OpticalModel,
+  w: number,
+  pol: 's' | 'p',
+  matrix: Float64Array,
+): OpticalResult {
+  return resultFromPacked(out, model, w, pol === 's' ? S_ETA_RE : P_ETA_RE, matrix);
+}
+
+function resultFromPacked(
+  out: OpticalResult,
+  model: OpticalModel,
+  w: number,
+  etaOffset: number,
+  p: Float64Array,
+): OpticalResult {
   const media = model.media;
   const base = w * model.mediaCount;
   const at0 = (base + model.incidentMedium) * STRIDE + etaOffset;
@@ -367,8 +422,6 @@ function evaluatePolarised(
   const eta0 = media[at0] as number; // real: the incident medium is lossless
   const esRe = media[atS] as number;
   const esIm = media[atS + 1] as number;
-  multiplyLayers(model, w, etaOffset, thicknessNm);
-  const p = model.matrix;
   const m11Re = p[0] as number;
   const m11Im = p[1] as number;
   const m12Re = p[2] as number;
