@@ -18,13 +18,13 @@ export function readYamlFile(file: string): unknown {
 }
 
 export function parseYamlText(text: string, file: string): unknown {
-  const doc = parseDocument(text, { prettyErrors: false, uniqueKeys: true });
+  const doc = parseDocument(text, { prettyErrors: true, uniqueKeys: true });
   if (doc.errors.length > 0) {
     throw new ConfigError(
       file,
       doc.errors.map((e) => {
         const pos = e.linePos?.[0];
-        return { at: pos ? `line ${pos.line}, column ${pos.col}` : '', message: e.message.split('\n')[0] ?? e.message };
+        return { at: pos ? `line ${pos.line}, column ${pos.col}` : '', message: (e.message.split('\n')[0] ?? e.message).replace(/ at line \d+, column \d+:?$/, '') };
       }),
     );
   }

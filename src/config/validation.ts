@@ -45,7 +45,8 @@ export function describeValue(value: unknown): string {
   if (typeof value === 'string') return JSON.stringify(value.length > 40 ? `${value.slice(0, 37)}...` : value);
   if (Array.isArray(value)) return `a list of ${value.length}`;
   if (typeof value === 'object') return 'an object';
-  return String(value);
+  if (typeof value === 'number' || typeof value === 'boolean' || typeof value === 'bigint') return String(value);
+  return `a ${typeof value}`;
 }
 
 function describeIssue(issue: z.core.$ZodIssue): string {

@@ -125,7 +125,7 @@ export function resolveDesign(
       }
       return { name, dispersion: d };
     }
-    const d = BUILT_IN[ref] ?? library.materials[ref]?.dispersion;
+    const d = Object.hasOwn(BUILT_IN, ref) ? BUILT_IN[ref] : Object.hasOwn(library.materials, ref) ? library.materials[ref]?.dispersion : undefined;
     if (d) return { name: ref, dispersion: d };
     violations.push({
       at,
@@ -135,11 +135,12 @@ export function resolveDesign(
   };
 
   const realIndexAt = (ref: MediumRef, d: Dispersion, wavelengthNm: number, at: string): number => {
-    const entry = typeof ref === 'string' ? library.materials[ref] : undefined;
-    if (entry && (wavelengthNm < entry.validRangeNm[0] || wavelengthNm > entry.validRangeNm[1])) {
+    const name = typeof ref === 'string' ? ref : undefined;
+    const entry = name === undefined ? undefined : library.materials[name];
+    if (name !== undefined && entry && (wavelengthNm < entry.validRangeNm[0] || wavelengthNm > entry.validRangeNm[1])) {
       violations.push({
         at,
-        message: `${wavelengthNm} nm is outside the data range of ${ref} (${entry.validRangeNm[0]}–${entry.validRangeNm[1]} nm)`,
+        message: `${wavelengthNm} nm is outside the data range of ${name} (${entry.validRangeNm[0]}–${entry.validRangeNm[1]} nm)`,
       });
       return Number.NaN;
     }

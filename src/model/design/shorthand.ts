@@ -18,6 +18,7 @@ export type ShorthandResult =
   | { ok: false; offset: number; message: string };
 
 const MAX_LAYERS = 10_000;
+const MAX_DEPTH = 100;
 
 class ShorthandSyntaxError extends Error {
   constructor(
@@ -51,6 +52,7 @@ export function expandShorthand(formula: string): ShorthandResult {
       const ch = formula[pos];
       let group: ShorthandLayer[];
       if (ch === '(') {
+        if (depth >= MAX_DEPTH) throw new ShorthandSyntaxError(pos, `groups nest more than ${MAX_DEPTH} deep`);
         pos++;
         group = parseSequence(depth + 1);
         if (formula[pos] !== ')') throw new ShorthandSyntaxError(pos, 'a "(" is not closed');
@@ -79,7 +81,7 @@ export function expandShorthand(formula: string): ShorthandResult {
           if (group.length > MAX_LAYERS) throw new ShorthandSyntaxError(at, `expands to more than ${MAX_LAYERS} layers`);
         }
       }
-      if (factor === 0) throw new ShorthandSyntaxError(start, 'a zero multiplier makes no layer');
+      if (factor === 0 || !Number.isFinite(factor)) throw new ShorthandSyntaxError(start, factor === 0 ? 'a zero multiplier makes no layer' : 'a multiplier too large for a thickness');
       out.push(...group);
       if (out.length > MAX_LAYERS) throw new ShorthandSyntaxError(start, `expands to more than ${MAX_LAYERS} layers`);
       if (depth === 0 && formula[pos] === ')') throw new ShorthandSyntaxError(pos, 'a ")" without its "("');
