@@ -23,7 +23,7 @@ export function timeLoop(body: () => void, seconds = 2, warmup = 20): { secondsP
   let calls = 0;
   const start = process.hrtime.bigint();
   const budget = BigInt(Math.round(seconds * 1e9));
-  let elapsed = 0n;
+  let elapsed: bigint;
   do {
     body();
     calls++;

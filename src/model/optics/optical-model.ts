@@ -80,6 +80,11 @@ export interface OpticalModel {
   readonly waveNumber: Float64Array;
   /** Packed constants, index `(w * mediaCount + m) * STRIDE`. */
   readonly media: Float64Array;
+  /**
+   * Per wavelength, for an incoherent substrate: the single-pass flux transmittance τ through
+   * it, then R and T of its bare back face for s, then for p (5 doubles a wavelength).
+   */
+  readonly backFace: Float64Array;
   /** Scratch: the layers' characteristic matrix P = L_top · … · L_1 as re/im pairs P11 P12 P21 P22. */
   readonly matrix: Float64Array;
 }
@@ -170,8 +175,37 @@ export function buildOpticalModel(
     substrateThicknessNm,
     waveNumber,
     media,
+    backFace: backFaceConstants(media, mediaCount, waveNumber, substrateMedium, exitMedium, substrateThicknessNm),
     matrix: new Float64Array(8),
   };
+}
+
+function backFaceConstants(
+  media: Float64Array,
+  mediaCount: number,
+  waveNumber: Float64Array,
+  substrateMedium: number,
+  exitMedium: number,
+  substrateThicknessNm: number,
+): Float64Array {
+  const out = new Float64Array(waveNumber.length * 5);
+  for (let w = 0; w < waveNumber.length; w++) {
+    const atS = (w * mediaCount + substrateMedium) * STRIDE;
+    const atE = (w * mediaCount + exitMedium) * STRIDE;
+    // One pass through the substrate attenuates the flux by exp(−4π |Im q| t / λ).
+    out[w * 5] = Math.exp(2 * (waveNumber[w] as number) * substrateThicknessNm * (media[atS + Q_IM] as number));
+    for (const [slot, eta] of [[1, S_ETA_RE], [3, P_ETA_RE]] as const) {
+      // Bare back face, substrate → exit medium: r = (η_s − η_e)/(η_s + η_e), T = 4 Re η_s Re η_e / |η_s + η_e|².
+      const esRe = media[atS + eta] as number;
+      const esIm = media[atS + eta + 1] as number;
+      const eeRe = media[atE + eta] as number;
+      const eeIm = media[atE + eta + 1] as number;
+      const s2 = (esRe + eeRe) ** 2 + (esIm + eeIm) ** 2;
+      out[w * 5 + slot] = ((esRe - eeRe) ** 2 + (esIm - eeIm) ** 2) / s2;
+      out[w * 5 + slot + 1] = (4 * esRe * eeRe) / s2;
+    }
+  }
+  return out;
 }
 
 /**
@@ -474,21 +508,10 @@ function resultFromPacked(
   const Tb = (4 * esRe * eta0) / dd2;
   const Ab = 1 - Rb - Tb;
 
-  // Bare back face, substrate → exit medium.
-  const atE = (base + model.exitMedium) * STRIDE + etaOffset;
-  const eeRe = media[atE] as number;
-  const eeIm = media[atE + 1] as number;
-  const sRe = esRe + eeRe;
-  const sIm = esIm + eeIm;
-  const dRe = esRe - eeRe;
-  const dIm = esIm - eeIm;
-  const s2 = sRe * sRe + sIm * sIm;
-  const Rback = (dRe * dRe + dIm * dIm) / s2;
-  const Tback = (4 * esRe * eeRe) / s2;
-
-  // One pass through the substrate attenuates the flux by exp(−4π |Im q| t / λ).
-  const qIm = media[(base + model.substrateMedium) * STRIDE + Q_IM] as number;
-  const tau = Math.exp(2 * (model.waveNumber[w] as number) * model.substrateThicknessNm * qIm);
+  const face = w * 5 + (etaOffset === S_ETA_RE ? 1 : 3);
+  const tau = model.backFace[w * 5] as number;
+  const Rback = model.backFace[face] as number;
+  const Tback = model.backFace[face + 1] as number;
   // Incoherent sum of the multiple passes (e.g. Macleod §2.9; Heavens, Optical Properties of
   // Thin Solid Films, ch. 4; from memory).
   const loop = 1 / (1 - Rb * Rback * tau * tau);
