@@ -3,10 +3,12 @@ import { ConfigError } from '../config/validation.ts';
 import { OpticalModelError } from '../model/optics/optical-model.ts';
 import { CliError } from './cli-error.ts';
 import { processIo, type CommandIo } from './command-io.ts';
+import { planUsage, runPlan } from './commands/plan.ts';
 import { runSpectrum, spectrumUsage } from './commands/spectrum.ts';
 
 const commands: Record<string, { run: (argv: string[], io: CommandIo) => number | Promise<number>; usage: string }> = {
   spectrum: { run: runSpectrum, usage: spectrumUsage },
+  plan: { run: runPlan, usage: planUsage },
 };
 
 const usage = `fringe: live monitoring and layer cutting for optical coating runs.
@@ -15,6 +17,7 @@ Usage: fringe COMMAND [options]   (fringe COMMAND --help for each)
 
 Commands:
   spectrum DESIGN     R, T and A of a design over wavelength
+  plan RECIPE         what every monitor signal should do, layer by layer, and how precisely each layer can be cut
 
 fringe is process control, not a safety system: interlocks, manual shutter controls and the
 equipment maker's instructions stay in charge.

@@ -7,8 +7,9 @@ import { writeFileSync } from 'node:fs';
 import { fileURLToPath } from 'node:url';
 import type { Benchmark, BenchResult } from './harness.ts';
 import { opticsBenchmarks } from './optics.bench.ts';
+import { planBenchmarks } from './plan.bench.ts';
 
-const all: Benchmark[] = [...opticsBenchmarks];
+const all: Benchmark[] = [...opticsBenchmarks, ...planBenchmarks];
 
 const groups = process.argv.slice(2);
 const selected = groups.length === 0 ? all : all.filter((b) => groups.some((g) => b.name === g || b.name.startsWith(`${g}.`)));

@@ -1,0 +1,371 @@
+/**
+ * The monitoring plan: for every layer, what the optical monitor and the crystal will show,
+ * where the layer must be cut, how precisely, and what could go wrong. Pure: no I/O, no clock.
+ *
+ * Thicknesses: `targetNm` and precisions are on the parts; the monitoring curve's abscissa is
+ * the layer's thickness on its chip (part thickness × chipRatio); the crystal's is on the
+ * crystal (part thickness / tooling factor).
+ */
+import { indexAt } from '../optics/dispersion.ts';
+import { crystalLifeUsed, stackFrequencyHz, type CrystalLayer } from '../crystal/index.ts';
+import { buildChipMonitor, findTurningPoints, type ChipMonitor, type TurningPoint } from './chip-monitor.ts';
+import {
+  DEFAULT_PRIORS,
+  fitPrecisionBound,
+  levelRulePrecision,
+  turningPointRulePrecision,
+  type FitPriors,
+} from './precision.ts';
+import type { CutMode, LayerRecipe, ResolvedRecipe } from './recipe.ts';
+import { searchWavelengths, wholeRunWavelengths, type LayerSearch } from './wavelength-search.ts';
+
+export interface PlanOptions {
+  /** rms noise of one optical reading, fraction of full scale (default: the recipe's). */
+  noise?: number;
+  /** Optical readings per second (default: the recipe's). */
+  sampleRateHz?: number;
+  /** Spacing of the monitoring curves, nm on the chip (default 0.1). */
+  curveStepNm?: number;
+  priors?: FitPriors;
+  /** Suggest monitor wavelengths: per layer (default), also for the whole run, or not at all. */
+  suggest?: 'none' | 'per-layer' | 'whole-run';
+  /** Step of the wavelength search, nm (default 1). */
+  searchStepNm?: number;
+  /** Whole-run suggestion: cost of one wavelength change, in (% of thickness)² (default 0.05). */
+  changePenalty?: number;
+  /**
+   * Re-plan after a cut: the part thicknesses achieved by layers 1 … n (n = length). Only the
+   * later layers are planned; the chips and the crystal carry the achieved layers.
+   */
+  achievedNm?: readonly number[];
+}
+
+export type PlanWarningCode =
+  | 'trigger-near-turning-point'
+  | 'small-swing'
+  | 'too-thin'
+  | 'wavelength-outside-monitor'
+  | 'no-turning-point-at-target'
+  | 'imprecise-cut'
+  | 'crystal-spent';
+
+export interface PlanWarning {
+  code: PlanWarningCode;
+  message: string;
+}
+
+export interface LayerPlan {
+  number: number;
+  material: string;
+  chip: string;
+  /** 1 = the first layer on a fresh chip. */
+  layerOnChip: number;
+  cut: CutMode;
+  targetNm: number;
+  chipTargetNm: number;
+  wavelengthNm: number;
+  signal: 'transmission' | 'reflection';
+  angleDeg: number;
+  bandwidthNm: number;
+  rateNmPerS: number;
+  durationS: number;
+  shutterDelayS: number;
+  /** The predicted signal at chip thickness `i · curveStepNm`, from 0 to 120 % of the target. */
+  curve: { stepNm: number; signal: number[] };
+  startSignal: number;
+  cutSignal: number;
+  /** Signal when the cut command goes out: the target less what grows during the shutter delay. */
+  triggerSignal: number;
+  /** Every extremum of the curve (0 to 120 %), chip thickness. */
+  turningPoints: TurningPoint[];
+  /** Extrema passed before the cut (a turning point at the target itself is not counted). */
+  turningPointsBeforeCut: number;
+  direction: 'rising' | 'falling' | 'turning';
+  /** max − min of the signal from the start to the cut. */
+  swing: number;
+  slopePerNm: number;
+  curvaturePerNm2: number;
+  /** Expected rms thickness error of the cut on the parts, nm: the bound of the model fit (optical), or of the crystal or clock. */
+  precisionNm: number;
+  precisionPercent: number;
+  /** Same for the plain rule of the cut mode (crossing, or turn confirmed by 1σ), nm on the parts. */
+  plainRulePrecisionNm: number;
+  crystal: {
+    /** This layer's thickness on the crystal, nm. */
+    thicknessNm: number;
+    startFrequencyHz: number;
+    cutFrequencyHz: number;
+    /** Fraction of the crystal's usable span used at the cut. */
+    lifeUsed: number;
+  };
+  suggestion?: { wavelengthNm: number; precisionNm: number; precisionPercent: number };
+  wholeRunWavelengthNm?: number;
+  warnings: PlanWarning[];
+}
+
+export interface RunPlan {
+  recipe: string;
+  /** First layer planned (1, or the layer after the last achieved one). */
+  fromLayer: number;
+  layers: LayerPlan[];
+  durationS: number;
+  noise: number;
+  sampleRateHz: number;
+  wholeRun?: { changes: number; wavelengthsNm: number[] };
+}
+
+const TP_TARGET_TOLERANCE = 0.005; // a layer "ends on a turning point" within 0.5 % (common practice, no source)
+
+export function planRun(recipe: ResolvedRecipe, options: PlanOptions = {}): RunPlan {
+  const noise = options.noise ?? recipe.monitor.noisePercent / 100;
+  const sampleRateHz = options.sampleRateHz ?? recipe.monitor.sampleRateHz;
+  const curveStep = options.curveStepNm ?? 0.1;
+  const priors = options.priors ?? DEFAULT_PRIORS;
+  const achieved = options.achievedNm ?? [];
+  const fromLayer = achieved.length + 1;
+  // Part thickness of every layer: achieved where known, else the design's.
+  const partNm = recipe.layers.map((l, i) => (i < achieved.length ? (achieved[i] as number) : l.targetNm));
+  const chipNm = partNm.map((t, i) => t * (recipe.layers[i] as LayerRecipe).chipRatio);
+
+  const suggest = options.suggest ?? 'per-layer';
+  const planned = recipe.layers.filter((l) => l.number >= fromLayer);
+  const optical = planned.filter((l) => l.cutSetting !== 'crystal' && l.cutSetting !== 'time');
+  const search =
+    suggest === 'none' || optical.length === 0
+      ? undefined
+      : searchWavelengths(recipe, chipNm, optical.map((l) => l.number), {
+          stepNm: options.searchStepNm ?? 1,
+          noise,
+          sampleRateHz,
+          priors,
+        });
+  const wholeRun =
+    search && suggest === 'whole-run' ? wholeRunWavelengths(search, optical.map((l) => l.number), options.changePenalty ?? 0.05) : undefined;
+
+  const crystalBelow: CrystalLayer[] = [];
+  for (let i = 0; i < fromLayer - 1; i++) crystalBelow.push(crystalLayer(recipe.layers[i] as LayerRecipe, partNm[i] as number));
+  const f0 = recipe.crystal.bareFrequencyHz;
+  let fStart = stackFrequencyHz(f0, crystalBelow);
+
+  const layers: LayerPlan[] = [];
+  const scratch = new Float64Array(16);
+  for (const layer of planned) {
+    const i = layer.number - 1;
+    const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
+    const below = [];
+    for (let j = chip.fromLayer - 1; j < i; j++) {
+      below.push({ dispersion: (recipe.layers[j] as LayerRecipe).dispersion, thicknessNm: chipNm[j] as number });
+    }
+    const monitor = buildChipMonitor({
+      incident: recipe.incident,
+      substrate: chip.substrate,
+      back: chip.back,
+      substrateThicknessNm: chip.thicknessMm * 1e6,
+      below,
+      growing: layer.dispersion,
+      wavelengthNm: layer.wavelengthNm,
+      bandwidthNm: layer.bandwidthNm,
+      angleDeg: layer.angleDeg,
+      signal: layer.signal,
+    });
+    const target = chipNm[i] as number;
+    const intervals = Math.max(2, Math.ceil(target / curveStep));
+    const step = target / intervals;
+    const curve = new Float64Array(Math.round(intervals * 1.2) + 1);
+    for (let k = 0; k < curve.length; k++) curve[k] = monitor.signalAt(k * step);
+
+    const chipRate = layer.rateNmPerS * layer.chipRatio;
+    const crystal = crystalLayer(layer, partNm[i] as number);
+    crystalBelow.push(crystal);
+    const fCut = stackFrequencyHz(f0, crystalBelow);
+
+    layers.push(
+      describeLayer(recipe, layer, chip.label, i - chip.fromLayer + 2, monitor, curve, step, intervals, {
+        noise,
+        sampleRateHz,
+        priors,
+        chipRate,
+        scratch,
+        crystal: {
+          thicknessNm: crystal.thicknessNm,
+          startFrequencyHz: fStart,
+          cutFrequencyHz: fCut,
+          lifeUsed: crystalLifeUsed(f0, fCut, recipe.crystal.minUsableFrequencyHz),
+        },
+        search: search?.byLayer.get(layer.number),
+        wholeRunWavelengthNm: wholeRun?.byLayer.get(layer.number),
+      }),
+    );
+    fStart = fCut;
+  }
+  return {
+    recipe: recipe.name,
+    fromLayer,
+    layers,
+    durationS: layers.reduce((sum, l) => sum + l.durationS, 0),
+    noise,
+    sampleRateHz,
+    ...(wholeRun ? { wholeRun: { changes: wholeRun.changes, wavelengthsNm: wholeRun.wavelengthsNm } } : {}),
+  };
+}
+
+function crystalLayer(layer: LayerRecipe, partNm: number): CrystalLayer {
+  return { thicknessNm: partNm / layer.toolingFactor, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio };
+}
+
+interface DescribeContext {
+  noise: number;
+  sampleRateHz: number;
+  priors: FitPriors;
+  chipRate: number;
+  scratch: Float64Array;
+  crystal: LayerPlan['crystal'];
+  search: LayerSearch | undefined;
+  wholeRunWavelengthNm: number | undefined;
+}
+
+function describeLayer(
+  recipe: ResolvedRecipe,
+  layer: LayerRecipe,
+  chipLabel: string,
+  layerOnChip: number,
+  monitor: ChipMonitor,
+  curve: Float64Array,
+  step: number,
+  cutIndex: number,
+  ctx: DescribeContext,
+): LayerPlan {
+  const target = cutIndex * step;
+  const turningPoints = findTurningPoints(monitor, curve, step);
+  const nearTarget = turningPoints.find((tp) => Math.abs(tp.thicknessNm - target) <= TP_TARGET_TOLERANCE * target);
+  const cut: CutMode =
+    layer.cutSetting === 'auto' ? (nearTarget ? 'turning-point' : 'level') : layer.cutSetting;
+
+  // Derivatives at the cut from the exact curve: central differences, h chosen so that
+  // truncation (∝ h²) and rounding (∝ ε/h, ε/h²) errors are both far below what is reported.
+  const h1 = 1e-3;
+  const h2 = 0.5;
+  const slopePerNm = (monitor.signalAt(target + h1) - monitor.signalAt(target - h1)) / (2 * h1);
+  const s0 = curve[cutIndex] as number;
+  const curvaturePerNm2 = (monitor.signalAt(target + h2) - 2 * s0 + monitor.signalAt(target - h2)) / (h2 * h2);
+  let lo = Number.POSITIVE_INFINITY;
+  let hi = Number.NEGATIVE_INFINITY;
+  for (let k = 0; k <= cutIndex; k++) {
+    const v = curve[k] as number;
+    if (v < lo) lo = v;
+    if (v > hi) hi = v;
+  }
+  const swing = hi - lo;
+  const startSignal = curve[0] as number;
+  const triggerSignal = monitor.signalAt(Math.max(0, target - ctx.chipRate * layer.shutterDelayS));
+  const slopeScale = swing > 0 ? swing / target : 1;
+  const direction: LayerPlan['direction'] =
+    Math.abs(slopePerNm) < 1e-3 * slopeScale ? 'turning' : slopePerNm > 0 ? 'rising' : 'falling';
+
+  const ratio = layer.chipRatio;
+  let precisionChip: number;
+  let plainChip: number;
+  if (cut === 'crystal' || cut === 'time') {
+    const part = cut === 'crystal' ? crystalPrecisionNm(recipe, layer, ctx.crystal) : ctx.priors.rateSigmaFraction * layer.targetNm;
+    precisionChip = part * ratio;
+    plainChip = precisionChip;
+  } else {
+    precisionChip = fitPrecisionBound(curve, cutIndex + 1, step, ctx.chipRate, ctx.sampleRateHz, ctx.noise, ctx.priors, ctx.scratch);
+    plainChip =
+      cut === 'level' ? levelRulePrecision(ctx.noise, slopePerNm) : turningPointRulePrecision(ctx.noise, curvaturePerNm2);
+  }
+  const precisionNm = precisionChip / ratio;
+  const turningPointsBeforeCut = turningPoints.filter((tp) => tp.thicknessNm < target && tp !== nearTarget).length;
+
+  const warnings: PlanWarning[] = [];
+  const warn = (code: PlanWarningCode, message: string): void => {
+    warnings.push({ code, message });
+  };
+  const [mLo, mHi] = recipe.monitor.rangeNm;
+  if (layer.wavelengthNm < mLo || layer.wavelengthNm > mHi) {
+    warn('wavelength-outside-monitor', `${layer.wavelengthNm} nm is outside the monitor's range ${mLo}–${mHi} nm`);
+  }
+  const optical = cut === 'level' || cut === 'turning-point';
+  if (optical) {
+    const quarterWave = layer.wavelengthNm / (4 * nearestIndex(monitor));
+    const closest = turningPoints.reduce((best, tp) => Math.min(best, Math.abs(tp.thicknessNm - target)), Number.POSITIVE_INFINITY);
+    if (cut === 'level' && closest < 0.1 * quarterWave) {
+      warn('trigger-near-turning-point', `the trigger level lies ${closest.toFixed(2)} nm from a turning point; the signal is nearly flat there`);
+    }
+    if (cut === 'turning-point' && !nearTarget) {
+      const next = turningPoints.find((tp) => tp.thicknessNm > 0.5 * target);
+      warn(
+        'no-turning-point-at-target',
+        next
+          ? `the layer does not end on a turning point at ${layer.wavelengthNm} nm; a turning-point cut would stop at ${(next.thicknessNm / ratio).toFixed(2)} nm instead of ${layer.targetNm.toFixed(2)} nm`
+          : `the signal has no turning point near the target at ${layer.wavelengthNm} nm`,
+      );
+    }
+    if (swing < Math.max(0.01, 10 * ctx.noise) && turningPoints.length > 0) {
+      warn('small-swing', `the signal swings by ${(swing * 100).toFixed(2)} % only`);
+    }
+    if (Math.abs((curve[cutIndex] as number) - startSignal) < 5 * ctx.noise && turningPointsBeforeCut === 0 && cut === 'level') {
+      warn('too-thin', `the signal changes by ${(Math.abs(s0 - startSignal) * 100).toFixed(3)} % over the layer: too little to cut on`);
+    }
+  }
+  if (precisionNm > 0.01 * layer.targetNm) {
+    warn('imprecise-cut', `the expected precision is ${((100 * precisionNm) / layer.targetNm).toFixed(2)} % of the thickness`);
+  }
+  if (ctx.crystal.lifeUsed >= 1) warn('crystal-spent', 'the crystal reaches the end of its usable life during this layer');
+
+  const plan: LayerPlan = {
+    number: layer.number,
+    material: layer.materialName,
+    chip: chipLabel,
+    layerOnChip,
+    cut,
+    targetNm: layer.targetNm,
+    chipTargetNm: target,
+    wavelengthNm: layer.wavelengthNm,
+    signal: layer.signal,
+    angleDeg: layer.angleDeg,
+    bandwidthNm: layer.bandwidthNm,
+    rateNmPerS: layer.rateNmPerS,
+    durationS: layer.targetNm / layer.rateNmPerS,
+    shutterDelayS: layer.shutterDelayS,
+    curve: { stepNm: step, signal: Array.from(curve) },
+    startSignal,
+    cutSignal: s0,
+    triggerSignal,
+    turningPoints,
+    turningPointsBeforeCut,
+    direction,
+    swing,
+    slopePerNm,
+    curvaturePerNm2,
+    precisionNm,
+    precisionPercent: (100 * precisionNm) / layer.targetNm,
+    plainRulePrecisionNm: plainChip / ratio,
+    crystal: ctx.crystal,
+    warnings,
+  };
+  if (ctx.search && optical) {
+    plan.suggestion = {
+      wavelengthNm: ctx.search.wavelengthNm,
+      precisionPercent: ctx.search.bestPercent,
+      precisionNm: (ctx.search.bestPercent * layer.targetNm) / 100,
+    };
+  }
+  if (ctx.wholeRunWavelengthNm !== undefined && optical) plan.wholeRunWavelengthNm = ctx.wholeRunWavelengthNm;
+  return plan;
+}
+
+/** The growing layer's real index at the monitor wavelength; it only sizes a warning threshold. */
+function nearestIndex(monitor: ChipMonitor): number {
+  return indexAt({ n: 0, k: 0 }, monitor.spec.growing, monitor.spec.wavelengthNm).n;
+}
+
+/**
+ * A crystal cut's precision on the parts: one frequency reading's noise over the slope of
+ * frequency against crystal thickness, times the tooling factor.
+ */
+function crystalPrecisionNm(recipe: ResolvedRecipe, layer: LayerRecipe, crystal: LayerPlan['crystal']): number {
+  const hz = crystal.startFrequencyHz - crystal.cutFrequencyHz;
+  const slopeHzPerNm = crystal.thicknessNm > 0 ? hz / crystal.thicknessNm : Number.NaN;
+  return (recipe.crystal.noiseHz / slopeHzPerNm) * layer.toolingFactor;
+}
