@@ -1,3 +1,6 @@
+import { mkdirSync, writeFileSync } from 'node:fs';
+import { dirname, resolve } from 'node:path';
+
 /** An error the command line reports as one sentence on stderr, with its exit code. */
 export class CliError extends Error {
   override name = 'CliError';
@@ -16,4 +19,14 @@ export function numberOption(name: string, value: string | undefined): number | 
   const n = Number(value);
   if (value.trim() === '' || !Number.isFinite(n)) throw new CliError(`--${name} expects a number, got "${value}"`);
   return n;
+}
+
+/** Writes a file the user asked for (creating its folder), or says in one sentence why not. */
+export function writeOutputFile(file: string, text: string): void {
+  try {
+    mkdirSync(dirname(resolve(file)), { recursive: true });
+    writeFileSync(file, text);
+  } catch (error) {
+    throw new CliError(`cannot write ${file}: ${(error as Error).message}`, 1);
+  }
 }

@@ -2,13 +2,12 @@
  * `fringe plan RECIPE`: what every signal should do, layer by layer, and how precisely each
  * layer can be cut — as a table, JSON, and/or an SVG plot of the whole run's monitor signal.
  */
-import { writeFileSync } from 'node:fs';
 import { parseArgs } from 'node:util';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import { planRun, type LayerPlan, type RunPlan } from '../../model/plan/plan.ts';
 import { renderLineChart, type ChartMarker, type ChartPoint } from '../../report/index.ts';
-import { CliError, numberOption } from '../cli-error.ts';
+import { CliError, numberOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 
 export const planUsage = `Usage: fringe plan RECIPE [options]
@@ -62,11 +61,7 @@ export function runPlan(argv: string[], io: CommandIo): number {
     suggest: values['no-suggest'] ? 'none' : values['whole-run'] ? 'whole-run' : 'per-layer',
   });
   if (values.plot) {
-    try {
-      writeFileSync(values.plot, plotRun(plan));
-    } catch (error) {
-      throw new CliError(`cannot write the plot to ${values.plot}: ${(error as Error).message}`, 1);
-    }
+    writeOutputFile(values.plot, plotRun(plan));
     io.err(`wrote ${values.plot}`);
   }
   io.out(values.json ? JSON.stringify(plan) : formatPlan(plan));

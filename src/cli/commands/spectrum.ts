@@ -2,12 +2,11 @@
  * `fringe spectrum DESIGN`: reflectance, transmittance and absorptance of a design over a
  * wavelength grid, as a table, JSON, CSV and/or an SVG plot.
  */
-import { writeFileSync } from 'node:fs';
 import { parseArgs } from 'node:util';
 import { loadDesign, loadMaterialLibrary } from '../../config/load-design.ts';
 import { buildOpticalModel, spectrum, type Polarisation } from '../../model/optics/optical-model.ts';
 import { renderLineChart } from '../../report/index.ts';
-import { CliError, numberOption } from '../cli-error.ts';
+import { CliError, numberOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 
 export const spectrumUsage = `Usage: fringe spectrum DESIGN [options]
@@ -89,11 +88,7 @@ export function runSpectrum(argv: string[], io: CommandIo): number {
         ...(design.band ? { bands: [{ from: design.band.fromNm, to: design.band.toNm, label: 'design band' }] } : {}),
       },
     );
-    try {
-      writeFileSync(values.plot, svg);
-    } catch (error) {
-      throw new CliError(`cannot write the plot to ${values.plot}: ${(error as Error).message}`, 1);
-    }
+    writeOutputFile(values.plot, svg);
     io.err(`wrote ${values.plot}`);
   }
 
