@@ -1,6 +1,6 @@
 /**
- * Loads the shared reference data (`../shared/reference/` beside the repository): thin-film cases
- * computed with tmm 0.2.0 (S. Byrnes), shared/reference/tmm-cases.json.
+ * Loads the reference data: thin-film cases computed with tmm 0.2.0 (S. Byrnes),
+ * shared/reference/tmm-cases.json, copied into test/fixtures/reference/ (see its README).
  */
 import { readFileSync } from 'node:fs';
 import { fileURLToPath } from 'node:url';
@@ -25,7 +25,9 @@ export interface ReferenceCase {
   expected: Record<string, unknown>;
 }
 
-export const referenceDir = fileURLToPath(new URL('../../../shared/reference/', import.meta.url));
+export const referenceDir = fileURLToPath(new URL('../fixtures/reference/', import.meta.url));
+/** The team's shared copy beside the repository, when present. */
+export const sharedReferenceDir = fileURLToPath(new URL('../../../shared/reference/', import.meta.url));
 
 export function loadTmmCases(): ReferenceCase[] {
   const file = JSON.parse(readFileSync(`${referenceDir}tmm-cases.json`, 'utf8')) as { cases: ReferenceCase[] };

@@ -1,10 +1,11 @@
 // Every case of the shared reference set against the kernel.
 // Source of the expected values: tmm 0.2.0 (S. Byrnes), shared/reference/tmm-cases.json,
 // re-checked there with a 50-digit characteristic-matrix calculation.
+import { existsSync, readFileSync } from 'node:fs';
 import { describe, expect, it } from 'vitest';
 import { buildOpticalModel, createOpticalResult, evaluate, type StackSpec } from '../../../src/model/optics/optical-model.ts';
 import type { Dispersion } from '../../../src/model/optics/dispersion.ts';
-import { loadTmmCases, type ReferenceCase } from '../../support/reference.ts';
+import { loadTmmCases, referenceDir, sharedReferenceDir, type ReferenceCase } from '../../support/reference.ts';
 
 const TOLERANCE = 1e-9; // the issue's bound; the reference agrees with itself to ~3e-15
 
@@ -34,6 +35,10 @@ const cases = loadTmmCases();
 describe('reference cases (tmm 0.2.0, shared/reference/tmm-cases.json)', () => {
   it('holds all 66 cases', () => {
     expect(cases.length).toBe(66);
+  });
+
+  it.runIf(existsSync(`${sharedReferenceDir}tmm-cases.json`))('the copy in test/fixtures equals the shared file', () => {
+    expect(readFileSync(`${referenceDir}tmm-cases.json`, 'utf8')).toBe(readFileSync(`${sharedReferenceDir}tmm-cases.json`, 'utf8'));
   });
 
   for (const c of cases.filter((x) => x.family !== 'monitoring-curve')) {
