@@ -46,7 +46,8 @@ export async function main(argv: string[], io: CommandIo = processIo): Promise<n
       return 1;
     }
     if (error instanceof TypeError && 'code' in error && String(error.code).startsWith('ERR_PARSE_ARGS')) {
-      io.err(`fringe ${name}: ${error.message} (see fringe ${name} --help)`);
+      // Node's own wording can run over several lines: keep its first sentence.
+      io.err(`fringe ${name}: ${error.message.split('\n')[0] ?? ''} (see fringe ${name} --help)`);
       return 2;
     }
     throw error;

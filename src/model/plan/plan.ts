@@ -114,7 +114,10 @@ export interface RunPlan {
   wholeRun?: { changes: number; wavelengthsNm: number[] };
 }
 
-const TP_TARGET_TOLERANCE = 0.005; // a layer "ends on a turning point" within 0.5 % (common practice, no source)
+// A layer "ends on a turning point" when one lies within 0.05 % of its target: a turning-point
+// cut stops at the turn, so anything looser moves the layer by more than a fit's precision
+// (common practice, no source).
+const TP_TARGET_TOLERANCE = 0.0005;
 
 export function planRun(recipe: ResolvedRecipe, options: PlanOptions = {}): RunPlan {
   const noise = options.noise ?? recipe.monitor.noisePercent / 100;

@@ -175,9 +175,15 @@ export function resolveRecipe(recipe: Recipe, design: ResolvedDesign, library: M
   const violations: { at: string; message: string }[] = [];
   const count = design.layers.length;
 
-  // Per-layer settings: defaults, then ranges and single numbers in the order written.
+  // Per-layer settings: the defaults, then the widest ranges down to single layers, so the most
+  // specific entry wins (an object's key order cannot carry the order written).
   const perLayer: LayerSettings[] = Array.from({ length: count }, () => ({ ...recipe.defaults }));
-  for (const [key, settings] of Object.entries(recipe.layers)) {
+  const span = (key: string): number => {
+    const [a, b] = key.split('-').map(Number) as [number, number | undefined];
+    return (b ?? a) - a;
+  };
+  const entries = Object.entries(recipe.layers).sort(([x], [y]) => span(y) - span(x));
+  for (const [key, settings] of entries) {
     const [a, b] = key.split('-').map(Number) as [number, number | undefined];
     const last = b ?? a;
     if (a < 1 || last > count || last < a) {
@@ -231,13 +237,24 @@ export function resolveRecipe(recipe: Recipe, design: ResolvedDesign, library: M
     const process = recipe.process[layer.materialName] ?? recipe.process.default;
     const material = library.materials[layer.materialName];
     const wavelengthNm = s.wavelengthNm ?? design.referenceWavelengthNm ?? (monitorLo + monitorHi) / 2;
-    if (material && (wavelengthNm < material.validRangeNm[0] || wavelengthNm > material.validRangeNm[1])) {
+    const chip = chips.findLastIndex((c) => c.fromLayer <= layer.number);
+    // The monitor sees the chip's substrate and every layer on it across its whole pass band.
+    const bandwidthNm = s.bandwidthNm ?? LAYER_DEFAULTS.bandwidthNm;
+    const [bandLo, bandHi] = [wavelengthNm - bandwidthNm, wavelengthNm + bandwidthNm];
+    const onChip = chips[chip];
+    const seen: [string, readonly [number, number]][] = onChip ? [[onChip.substrateName, onChip.validRangeNm]] : [];
+    for (let j = (onChip?.fromLayer ?? 1) - 1; j <= i; j++) {
+      const name = (design.layers[j] as { materialName: string }).materialName;
+      seen.push([name, rangeOf(name, library)]);
+    }
+    const outside = seen.find(([, [lo, hi]]) => bandLo < lo || bandHi > hi);
+    if (outside) {
+      const [name, [lo, hi]] = outside;
       violations.push({
         at: `layers.${layer.number}.wavelengthNm`,
-        message: `${wavelengthNm} nm is outside the data of ${layer.materialName} (${material.validRangeNm[0]}–${material.validRangeNm[1]} nm)`,
+        message: `the monitor's band ${bandLo}–${bandHi} nm reaches outside the data of ${name} (${lo}–${hi} nm) on this layer's chip`,
       });
     }
-    const chip = chips.findLastIndex((c) => c.fromLayer <= layer.number);
     return {
       number: layer.number,
       materialName: layer.materialName,
