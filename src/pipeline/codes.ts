@@ -1,0 +1,43 @@
+/**
+ * The one registry of codes for input faults and alerts: each has a stable code, a severity and
+ * a sentence an operator can act on. A test checks that every code used is documented here.
+ */
+import type { FaultCode } from './types.ts';
+
+export type Severity = 'info' | 'warning' | 'critical';
+
+export type AlertCode =
+  | `fault-${FaultCode}`
+  | 'optical-lost'
+  | 'crystal-lost'
+  | 'crystal-fallback'
+  | 'time-fallback'
+  | 'thickness-ceiling'
+  | 'time-ceiling'
+  | 'rate-out-of-band'
+  | 'shutter-no-ack'
+  | 'operator-cut'
+  | 'operator-skip'
+  | 'operator-abort'
+  | 'source-lost';
+
+export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: string }>> = {
+  'fault-not-a-number': { severity: 'warning', sentence: 'A reading was not a number and was not used.' },
+  'fault-out-of-range': { severity: 'warning', sentence: 'A reading lay outside its channel’s range and was not used.' },
+  'fault-time-backwards': { severity: 'warning', sentence: 'A reading’s time ran backwards and it was not used.' },
+  'fault-line-too-long': { severity: 'warning', sentence: 'An instrument line was too long and was dropped.' },
+  'fault-garbled': { severity: 'warning', sentence: 'An instrument line could not be read and was not used.' },
+  'fault-unknown-channel': { severity: 'warning', sentence: 'A line named a channel this chamber does not have.' },
+  'optical-lost': { severity: 'critical', sentence: 'The optical monitor has gone quiet during an optically cut layer.' },
+  'crystal-lost': { severity: 'critical', sentence: 'The crystal monitor has gone quiet (crystal failed or disconnected).' },
+  'crystal-fallback': { severity: 'warning', sentence: 'The layer is now cut on the crystal thickness instead of its planned mode.' },
+  'time-fallback': { severity: 'critical', sentence: 'The layer is now cut on time from the planned rate: no monitor is usable.' },
+  'thickness-ceiling': { severity: 'critical', sentence: 'The layer reached its thickness ceiling and was cut.' },
+  'time-ceiling': { severity: 'critical', sentence: 'The layer ran past its time ceiling and was cut.' },
+  'rate-out-of-band': { severity: 'warning', sentence: 'The deposition rate is outside its allowed band.' },
+  'shutter-no-ack': { severity: 'critical', sentence: 'A shutter did not confirm a command in time: check it by hand.' },
+  'operator-cut': { severity: 'info', sentence: 'The operator cut the layer.' },
+  'operator-skip': { severity: 'warning', sentence: 'The operator skipped the layer.' },
+  'operator-abort': { severity: 'critical', sentence: 'The operator aborted the run; every shutter was asked to close.' },
+  'source-lost': { severity: 'critical', sentence: 'An instrument connection was lost; fringe is reconnecting.' },
+};

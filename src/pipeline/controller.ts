@@ -1,0 +1,482 @@
+/**
+ * The layer controller: a pure reducer `step(state, input) → { state, events }`. It decides when
+ * each layer is cut from the readings' own times, never the wall clock, so a live run, a replay
+ * and a simulation decide identically. The plain rules here are the baselines a careful
+ * operator applies by eye:
+ *
+ * - `level`: after the planned number of turning points, cut when the signal has been beyond the
+ *   plan's trigger level (which allows for the shutter delay) for `debounceReadings` readings;
+ * - `turning-point`: cut when the extremum at the target is confirmed (the signal has come back
+ *   by `confirmSigma`·σ), plus an overshoot as a fraction of the swing;
+ * - `crystal`: cut when the crystal's tooling-corrected thickness plus rate × delay reaches the target;
+ * - `time`: cut when the planned time less the shutter delay has passed.
+ *
+ * Guard rails force a cut at a thickness or time ceiling; a silent monitor hands the layer to the
+ * crystal, a silent crystal to the clock, each with an alert.
+ */
+import { stackThicknessNm, type CrystalLayer } from '../model/crystal/index.ts';
+import { planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
+import type { CutMode, ResolvedRecipe } from '../model/plan/recipe.ts';
+import { ALERTS, type AlertCode } from './codes.ts';
+import type { CutReason, RunEvent } from './events.ts';
+import type { FaultCode, OperatorCommand, PipelineInput, Reading, ShutterCommand } from './types.ts';
+
+export interface ControllerOptions {
+  /** Consecutive readings beyond the trigger level before a level cut (default 3). */
+  debounceReadings: number;
+  /**
+   * A turn is confirmed when the signal comes back from its extremum by a tenth of the layer's
+   * planned swing, kept between `confirmMinSigma`·σ and `confirmSigma`·σ (defaults 2 and 5): small
+   * swings need a small step, noise needs a large one (common practice, no source).
+   */
+  confirmSigma: number;
+  confirmMinSigma: number;
+  /** A channel silent for this long is lost (default 2 s). */
+  staleAfterS: number;
+  /** Force a cut above this multiple of the target thickness (default 1.3). */
+  thicknessCeiling: number;
+  /** Force a cut after this multiple of the planned duration (default 1.6). */
+  timeCeiling: number;
+  /** Announce the cut this long before it is expected (default 10 s). */
+  approachingS: number;
+  /** Time constant of the crystal rate estimate (default 5 s). */
+  rateSmoothingS: number;
+  /** After the shutter delay, wait this long before the layer counts as finished (default 1 s). */
+  settleS: number;
+  /** Re-plan the remaining layers after every layer (default true). */
+  replan: boolean;
+}
+
+export const DEFAULT_CONTROLLER_OPTIONS: ControllerOptions = {
+  debounceReadings: 3,
+  confirmSigma: 5,
+  confirmMinSigma: 2,
+  staleAfterS: 2,
+  thicknessCeiling: 1.3,
+  timeCeiling: 1.6,
+  approachingS: 10,
+  rateSmoothingS: 5,
+  settleS: 1,
+  replan: true,
+};
+
+export type Phase = 'ready' | 'depositing' | 'closing' | 'holding' | 'finished' | 'aborted';
+
+interface OpticalTrack {
+  readonly lastS: number;
+  readonly value: number;
+  /** Running extremum in the current trend. */
+  readonly extreme: number;
+  readonly trend: 1 | -1;
+  readonly turnsPassed: number;
+  /** Signal step that confirms a turn. */
+  readonly confirm: number;
+  /** Turns the detector must see before the cut (see {@link visibleTurns}). */
+  readonly turnsNeeded: number;
+  /** Consecutive readings beyond the trigger level. */
+  readonly beyond: number;
+}
+
+interface CrystalTrack {
+  readonly lastS: number;
+  readonly frequencyHz: number;
+  /** This layer's thickness on the parts from the crystal, nm (NaN before the first reading). */
+  readonly partNm: number;
+  readonly rateNmPerS: number;
+}
+
+export interface ControllerState {
+  readonly phase: Phase;
+  readonly phaseBeforeHold: Phase;
+  /** 0-based index of the current layer. */
+  readonly index: number;
+  readonly plan: RunPlan;
+  readonly nowS: number;
+  readonly openedAtS: number;
+  readonly cutAtS: number;
+  readonly mode: CutMode;
+  readonly optical: OpticalTrack;
+  readonly crystal: CrystalTrack;
+  /** Crystal thickness of each finished layer as the crystal saw it, nm. */
+  readonly crystalBelow: readonly CrystalLayer[];
+  /** Estimated part thickness of each finished layer, nm. */
+  readonly achievedNm: readonly number[];
+  readonly approachingSent: boolean;
+  readonly rateAlerted: boolean;
+  readonly crystalAlerted: boolean;
+  readonly openAlerts: readonly string[];
+  readonly alertCount: number;
+  readonly faults: Readonly<Partial<Record<FaultCode, number>>>;
+  readonly lastOpticalS: number;
+  readonly lastCrystalS: number;
+  readonly layerCrystalNm: number;
+}
+
+export interface StepResult {
+  readonly state: ControllerState;
+  readonly events: readonly RunEvent[];
+}
+
+const NO_EVENTS: readonly RunEvent[] = Object.freeze([]);
+
+export interface Controller {
+  readonly recipe: ResolvedRecipe;
+  readonly options: ControllerOptions;
+  initial(plan?: RunPlan): ControllerState;
+  step(state: ControllerState, input: PipelineInput): StepResult;
+}
+
+export function createController(recipe: ResolvedRecipe, options: Partial<ControllerOptions> = {}): Controller {
+  const opts: ControllerOptions = { ...DEFAULT_CONTROLLER_OPTIONS, ...options };
+  const noise = recipe.monitor.noisePercent / 100;
+  const f0 = recipe.crystal.bareFrequencyHz;
+
+  /** A tenth of the planned swing, kept between confirmMinSigma·σ and confirmSigma·σ. */
+  const confirmStep = (plan: LayerPlan | undefined): number =>
+    Math.min(opts.confirmSigma * noise, Math.max(opts.confirmMinSigma * noise, 0.1 * (plan?.swing ?? 0)));
+  const layerPlan = (s: ControllerState): LayerPlan => s.plan.layers[s.index - (s.plan.fromLayer - 1)] as LayerPlan;
+  const layerRecipe = (s: ControllerState) => recipe.layers[s.index] as ResolvedRecipe['layers'][number];
+
+  function initial(plan: RunPlan = planRun(recipe, { suggest: 'none' })): ControllerState {
+    return {
+      phase: 'ready',
+      phaseBeforeHold: 'ready',
+      index: 0,
+      plan,
+      nowS: Number.NEGATIVE_INFINITY,
+      openedAtS: Number.NaN,
+      cutAtS: Number.NaN,
+      mode: plan.layers[0]?.cut ?? 'time',
+      optical: freshOptical(plan.layers[0], confirmStep(plan.layers[0])),
+      crystal: { lastS: Number.NaN, frequencyHz: Number.NaN, partNm: Number.NaN, rateNmPerS: Number.NaN },
+      crystalBelow: [],
+      achievedNm: [],
+      approachingSent: false,
+      rateAlerted: false,
+      crystalAlerted: false,
+      openAlerts: [],
+      alertCount: 0,
+      faults: {},
+      lastOpticalS: Number.NaN,
+      lastCrystalS: Number.NaN,
+      layerCrystalNm: Number.NaN,
+    };
+  }
+
+  function step(state: ControllerState, input: PipelineInput): StepResult {
+    const events: RunEvent[] = [];
+    let s = state;
+    switch (input.kind) {
+      case 'fault': {
+        const faults = { ...s.faults, [input.code]: (s.faults[input.code] ?? 0) + 1 };
+        s = { ...s, faults };
+        // One alert per code per layer would be kinder; the count keeps the rest.
+        if ((faults[input.code] ?? 0) === 1) s = alert(s, events, `fault-${input.code}`, `${ALERTS[`fault-${input.code}`].sentence} (${input.line.slice(0, 60)})`);
+        return { state: s, events };
+      }
+      case 'operator':
+        return operator(s, input, events);
+      case 'shutter-ack':
+        return { state: s, events: NO_EVENTS };
+      case 'tick':
+        if (!(input.timeS >= s.nowS)) return { state: s, events: NO_EVENTS };
+        s = { ...s, nowS: input.timeS };
+        break;
+      case 'reading': {
+        if (input.timeS < s.nowS) {
+          return step(s, { kind: 'fault', channel: input.channel, code: 'time-backwards', line: `${input.channel} at ${input.timeS} s`, offset: 0, arrivalS: input.arrivalS });
+        }
+        if (!Number.isFinite(input.value)) {
+          return step(s, { kind: 'fault', channel: input.channel, code: 'not-a-number', line: `${input.channel} ${input.value}`, offset: 0, arrivalS: input.arrivalS });
+        }
+        s = input.channel === 'optical' ? onOptical(s, input) : onCrystal(s, input);
+        break;
+      }
+    }
+    s = advance(s, events);
+    return { state: s, events: events.length === 0 ? NO_EVENTS : events };
+  }
+
+  function onOptical(s: ControllerState, r: Reading): ControllerState {
+    if (s.phase !== 'depositing') return { ...s, nowS: r.timeS, lastOpticalS: r.timeS };
+    const plan = layerPlan(s);
+    const o = s.optical;
+    const confirm = o.confirm;
+    let { extreme, trend, turnsPassed } = o;
+    if (Number.isNaN(extreme) || (trend > 0 ? r.value > extreme : r.value < extreme)) extreme = r.value;
+    else if (trend > 0 ? r.value < extreme - confirm : r.value > extreme + confirm) {
+      turnsPassed++;
+      trend = trend > 0 ? -1 : 1;
+      extreme = r.value;
+    }
+    const rising = plan.direction === 'rising' || (plan.direction === 'turning' && trend > 0);
+    const isBeyond = rising ? r.value >= plan.triggerSignal : r.value <= plan.triggerSignal;
+    const beyond = turnsPassed >= o.turnsNeeded && isBeyond ? o.beyond + 1 : 0;
+    return {
+      ...s,
+      nowS: r.timeS,
+      lastOpticalS: r.timeS,
+      optical: { ...o, lastS: r.timeS, value: r.value, extreme, trend, turnsPassed, beyond },
+    };
+  }
+
+  function onCrystal(s: ControllerState, r: Reading): ControllerState {
+    const base = { ...s, nowS: r.timeS, lastCrystalS: r.timeS };
+    if (s.phase !== 'depositing' && s.phase !== 'closing') {
+      return { ...base, crystal: { ...s.crystal, lastS: r.timeS, frequencyHz: r.value } };
+    }
+    const layer = layerRecipe(s);
+    const crystalNm = stackThicknessNm(f0, r.value, s.crystalBelow, { densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio });
+    // A reading above the frequency of the layers below (noise, warming) means no film yet.
+    const partNm = (Number.isFinite(crystalNm) ? crystalNm : 0) * layer.toolingFactor;
+    const c = s.crystal;
+    let rate = c.rateNmPerS;
+    if (Number.isFinite(c.partNm) && r.timeS > c.lastS) {
+      const instant = (partNm - c.partNm) / (r.timeS - c.lastS);
+      const a = Math.min(1, (r.timeS - c.lastS) / opts.rateSmoothingS);
+      rate = Number.isFinite(rate) ? rate + a * (instant - rate) : layer.rateNmPerS;
+    }
+    return { ...base, layerCrystalNm: Number.isFinite(crystalNm) ? crystalNm : 0, crystal: { lastS: r.timeS, frequencyHz: r.value, partNm, rateNmPerS: rate } };
+  }
+
+  /** Everything that follows from the state at its current time: starts, cuts, finishes, guards. */
+  function advance(s: ControllerState, events: RunEvent[]): ControllerState {
+    if (s.phase === 'closing' && s.nowS >= s.cutAtS + layerRecipe(s).shutterDelayS + opts.settleS) {
+      return finishLayer(s, events, false);
+    }
+    if (s.phase !== 'depositing') return s;
+    const plan = layerPlan(s);
+    const layer = layerRecipe(s);
+    const elapsed = s.nowS - s.openedAtS;
+
+    // A silent channel hands the layer on.
+    const opticalSilent = !(s.nowS - (Number.isNaN(s.lastOpticalS) ? s.openedAtS : Math.max(s.lastOpticalS, s.openedAtS)) < opts.staleAfterS);
+    const crystalSilent = !(s.nowS - (Number.isNaN(s.lastCrystalS) ? s.openedAtS : Math.max(s.lastCrystalS, s.openedAtS)) < opts.staleAfterS);
+    if ((s.mode === 'level' || s.mode === 'turning-point') && opticalSilent) {
+      s = alert(s, events, 'optical-lost', ALERTS['optical-lost'].sentence);
+      s = changeMode(s, events, crystalSilent ? 'time' : 'crystal', crystalSilent ? 'time-fallback' : 'crystal-fallback');
+    }
+    if (crystalSilent && !s.crystalAlerted) {
+      s = alert({ ...s, crystalAlerted: true }, events, 'crystal-lost', ALERTS['crystal-lost'].sentence);
+      if (s.mode === 'crystal') s = changeMode(s, events, 'time', 'time-fallback');
+    }
+
+    const rate = Number.isFinite(s.crystal.rateNmPerS) && !crystalSilent ? s.crystal.rateNmPerS : layer.rateNmPerS;
+    const thickness = !crystalSilent && Number.isFinite(s.crystal.partNm) ? s.crystal.partNm : layer.rateNmPerS * elapsed;
+    const delayNm = rate * layer.shutterDelayS;
+
+    if (!s.rateAlerted && !crystalSilent && elapsed > 3 * opts.rateSmoothingS && Number.isFinite(s.crystal.rateNmPerS)) {
+      const off = Math.abs(s.crystal.rateNmPerS / layer.rateNmPerS - 1) * 100;
+      if (off > layer.rateBandPercent) {
+        s = alert({ ...s, rateAlerted: true }, events, 'rate-out-of-band', `Rate ${s.crystal.rateNmPerS.toFixed(3)} nm/s is ${off.toFixed(0)} % off the planned ${layer.rateNmPerS} nm/s.`);
+      }
+    }
+
+    // Guard rails.
+    if (!crystalSilent && thickness > opts.thicknessCeiling * layer.targetNm) {
+      s = alert(s, events, 'thickness-ceiling', `${ALERTS['thickness-ceiling'].sentence} (${thickness.toFixed(1)} nm of ${layer.targetNm.toFixed(1)} nm)`);
+      return cut(s, events, 'thickness-ceiling', thickness + delayNm, delayNm);
+    }
+    if (elapsed > opts.timeCeiling * plan.durationS) {
+      s = alert(s, events, 'time-ceiling', `${ALERTS['time-ceiling'].sentence} (${elapsed.toFixed(0)} s of ${plan.durationS.toFixed(0)} s planned)`);
+      return cut(s, events, 'time-ceiling', thickness + delayNm, delayNm);
+    }
+
+    if (!s.approachingSent) {
+      const expectedInS = (layer.targetNm - thickness) / rate - layer.shutterDelayS;
+      if (expectedInS <= opts.approachingS) {
+        events.push({ type: 'approaching-cut', timeS: s.nowS, layer: layer.number, expectedInS: Math.max(0, expectedInS) });
+        s = { ...s, approachingSent: true };
+      }
+    }
+
+    switch (s.mode) {
+      case 'level':
+        if (s.optical.beyond >= opts.debounceReadings) return cut(s, events, 'trigger-level', plan.targetNm, delayNm);
+        return s;
+      case 'turning-point': {
+        const o = s.optical;
+        const needed = o.turnsNeeded + 1;
+        const overshoot = layer.overshootFraction * plan.swing;
+        if (o.turnsPassed >= needed && Math.abs(o.value - o.extreme) >= overshoot) {
+          return cut(s, events, 'turning-point', plan.targetNm, delayNm);
+        }
+        return s;
+      }
+      case 'crystal':
+        if (!crystalSilent && thickness + delayNm >= layer.targetNm) return cut(s, events, 'crystal-thickness', thickness + delayNm, delayNm);
+        return s;
+      case 'time':
+        if (elapsed + layer.shutterDelayS >= layer.targetNm / layer.rateNmPerS) {
+          return cut(s, events, 'time', layer.rateNmPerS * (elapsed + layer.shutterDelayS), delayNm);
+        }
+        return s;
+    }
+  }
+
+  function cut(s: ControllerState, events: RunEvent[], reason: CutReason, estimatedNm: number, delayAllowanceNm: number): ControllerState {
+    const layer = layerRecipe(s);
+    events.push({ type: 'cut', timeS: s.nowS, layer: layer.number, reason, estimatedNm, delayAllowanceNm, signal: s.optical.value });
+    events.push({ type: 'shutter', timeS: s.nowS, command: shutter('close', layer.materialName, layer.number, s.nowS) });
+    return { ...s, phase: 'closing', cutAtS: s.nowS, achievedNm: [...s.achievedNm, estimatedNm] };
+  }
+
+  function finishLayer(s: ControllerState, events: RunEvent[], skipped: boolean): ControllerState {
+    const layer = layerRecipe(s);
+    const estimatedNm = s.achievedNm[s.index] ?? 0;
+    const crystalNm = Number.isFinite(s.layerCrystalNm) ? s.layerCrystalNm : 0;
+    const crystalBelow = [...s.crystalBelow, { thicknessNm: crystalNm, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio }];
+    events.push({
+      type: 'layer-finished',
+      timeS: s.nowS,
+      layer: layer.number,
+      estimatedNm,
+      crystalNm: Number.isFinite(s.layerCrystalNm) ? s.layerCrystalNm * layer.toolingFactor : Number.NaN,
+      skipped,
+    });
+    let next: ControllerState = { ...s, crystalBelow };
+    if (s.index + 1 >= recipe.layers.length) {
+      events.push({ type: 'run-finished', timeS: s.nowS, outcome: 'complete' });
+      return { ...next, phase: 'finished' };
+    }
+    if (opts.replan) {
+      const plan = planRun(recipe, { achievedNm: next.achievedNm, suggest: 'none' });
+      events.push({ type: 'replanned', timeS: s.nowS, fromLayer: plan.fromLayer, triggerSignals: plan.layers.map((l) => l.triggerSignal) });
+      next = { ...next, plan };
+    }
+    return startLayer({ ...next, index: s.index + 1 }, events);
+  }
+
+  function startLayer(s: ControllerState, events: RunEvent[]): ControllerState {
+    const layer = layerRecipe(s);
+    const plan = layerPlan(s);
+    events.push({ type: 'layer-started', timeS: s.nowS, layer: layer.number, material: layer.materialName, cut: plan.cut, targetNm: layer.targetNm });
+    events.push({ type: 'shutter', timeS: s.nowS, command: shutter('open', layer.materialName, layer.number, s.nowS) });
+    return {
+      ...s,
+      phase: 'depositing',
+      mode: plan.cut,
+      openedAtS: s.nowS,
+      cutAtS: Number.NaN,
+      optical: freshOptical(plan, confirmStep(plan)),
+      crystal: { ...s.crystal, partNm: Number.NaN, rateNmPerS: Number.NaN },
+      approachingSent: false,
+      rateAlerted: false,
+      crystalAlerted: false,
+      layerCrystalNm: Number.NaN,
+    };
+  }
+
+  function operator(s: ControllerState, command: OperatorCommand, events: RunEvent[]): StepResult {
+    const timeS = Math.max(s.nowS, command.timeS);
+    let next: ControllerState = { ...s, nowS: timeS };
+    switch (command.action) {
+      case 'start':
+        if (s.phase !== 'ready') return { state: s, events: NO_EVENTS };
+        events.push({ type: 'run-started', timeS, layers: recipe.layers.length });
+        next = startLayer(next, events);
+        break;
+      case 'hold':
+        if (s.phase !== 'depositing') return { state: s, events: NO_EVENTS };
+        events.push({ type: 'held', timeS, layer: layerRecipe(s).number });
+        events.push({ type: 'shutter', timeS, command: shutter('close', layerRecipe(s).materialName, layerRecipe(s).number, timeS) });
+        next = { ...next, phase: 'holding', phaseBeforeHold: s.phase };
+        break;
+      case 'resume':
+        if (s.phase !== 'holding') return { state: s, events: NO_EVENTS };
+        events.push({ type: 'resumed', timeS, layer: layerRecipe(s).number });
+        events.push({ type: 'shutter', timeS, command: shutter('open', layerRecipe(s).materialName, layerRecipe(s).number, timeS) });
+        next = { ...next, phase: 'depositing' };
+        break;
+      case 'cut-now': {
+        if (s.phase !== 'depositing' && s.phase !== 'holding') return { state: s, events: NO_EVENTS };
+        next = alert(next, events, 'operator-cut', ALERTS['operator-cut'].sentence);
+        const layer = layerRecipe(s);
+        const est = Number.isFinite(s.crystal.partNm) ? s.crystal.partNm : layer.rateNmPerS * (timeS - s.openedAtS);
+        next = cut(next, events, 'operator', est, 0);
+        break;
+      }
+      case 'skip-layer': {
+        if (s.phase !== 'depositing' && s.phase !== 'holding') return { state: s, events: NO_EVENTS };
+        next = alert(next, events, 'operator-skip', ALERTS['operator-skip'].sentence);
+        const layer = layerRecipe(s);
+        events.push({ type: 'shutter', timeS, command: shutter('close', layer.materialName, layer.number, timeS) });
+        next = finishLayer({ ...next, achievedNm: [...s.achievedNm, Number.isFinite(s.crystal.partNm) ? s.crystal.partNm : 0] }, events, true);
+        break;
+      }
+      case 'abort': {
+        if (s.phase === 'finished' || s.phase === 'aborted') return { state: s, events: NO_EVENTS };
+        next = alert(next, events, 'operator-abort', ALERTS['operator-abort'].sentence);
+        for (const source of new Set(recipe.layers.map((l) => l.materialName))) {
+          events.push({ type: 'shutter', timeS, command: shutter('close', source, layerRecipe(s).number, timeS) });
+        }
+        events.push({ type: 'run-finished', timeS, outcome: 'aborted' });
+        next = { ...next, phase: 'aborted' };
+        break;
+      }
+      case 'acknowledge': {
+        const id = command.alertId;
+        if (id === undefined || !s.openAlerts.includes(id)) return { state: s, events: NO_EVENTS };
+        events.push({ type: 'alert-acknowledged', timeS, id });
+        next = { ...next, openAlerts: s.openAlerts.filter((a) => a !== id) };
+        break;
+      }
+    }
+    return { state: next, events };
+  }
+
+  function changeMode(s: ControllerState, events: RunEvent[], to: CutMode, code: AlertCode): ControllerState {
+    if (s.mode === to) return s;
+    events.push({ type: 'mode-changed', timeS: s.nowS, layer: layerRecipe(s).number, from: s.mode, to });
+    return alert({ ...s, mode: to }, events, code, ALERTS[code].sentence);
+  }
+
+  function alert(s: ControllerState, events: RunEvent[], code: AlertCode, message: string): ControllerState {
+    const id = `A${s.alertCount + 1}`;
+    const layer = s.phase === 'ready' ? null : (recipe.layers[s.index]?.number ?? null);
+    events.push({ type: 'alert', timeS: Number.isFinite(s.nowS) ? s.nowS : 0, id, severity: ALERTS[code].severity, code, message, layer });
+    return { ...s, alertCount: s.alertCount + 1, openAlerts: [...s.openAlerts, id] };
+  }
+
+  return { recipe, options: opts, initial, step };
+}
+
+function freshOptical(plan: LayerPlan | undefined, confirm: number): OpticalTrack {
+  const { trend, turnsNeeded } = visibleTurns(plan, confirm);
+  // The extremum starts at the first reading, not the plan's start: gain and offset drift.
+  return { lastS: Number.NaN, value: Number.NaN, extreme: Number.NaN, trend, turnsPassed: 0, turnsNeeded, beyond: 0, confirm };
+}
+
+/**
+ * The turns a threshold detector can see before the cut: an extremum that moves the signal by
+ * less than twice the confirmation step from the previous one is invisible to it (a layer that
+ * starts just before a shallow turn, say), so it is not waited for. Also the way the signal
+ * first moves visibly.
+ */
+export function visibleTurns(plan: LayerPlan | undefined, confirm: number): { trend: 1 | -1; turnsNeeded: number } {
+  if (!plan) return { trend: 1, turnsNeeded: 0 };
+  // Turns before the cut; one at the target itself is the cut of a turning-point layer.
+  const before = plan.turningPoints.filter((tp) => tp.thicknessNm < plan.chipTargetNm * (1 - 1e-3));
+  const points = [...before.map((tp) => tp.signal), plan.cutSignal];
+  let previous = plan.startSignal;
+  let trend: 1 | -1 | 0 = 0;
+  let turnsNeeded = 0;
+  for (const signal of points) {
+    const move = signal - previous;
+    if (Math.abs(move) < 2 * confirm) continue;
+    const direction = move >= 0 ? 1 : -1;
+    if (trend === 0) trend = direction;
+    else if (direction !== trend) {
+      turnsNeeded++;
+      trend = direction;
+    }
+    previous = signal;
+  }
+  // The first visible move sets the initial trend; count turns from it.
+  const first = points.find((p) => Math.abs(p - plan.startSignal) >= 2 * confirm) ?? plan.cutSignal;
+  return { trend: first >= plan.startSignal ? 1 : -1, turnsNeeded };
+}
+
+function shutter(action: 'open' | 'close', source: string, layer: number, timeS: number): ShutterCommand {
+  return { kind: 'shutter', action, source, layer, timeS };
+}

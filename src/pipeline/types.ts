@@ -1,0 +1,102 @@
+/**
+ * The pipeline's vocabulary: what flows in (readings, faults, commands, acknowledgements) and
+ * the interfaces every source and output implements — a real instrument on a serial port or a
+ * socket, a recorded journal, or the virtual chamber.
+ *
+ * Time: every input carries `timeS`, seconds on the run clock. The decision reducer is driven by
+ * these times alone, never by the wall clock, so a live run, a replay and a simulation decide
+ * identically.
+ */
+import type { Observable } from 'rxjs';
+
+/** The physical quantity a channel measures. */
+export type ChannelKind = 'optical' | 'crystal';
+
+/**
+ * One reading. `optical`: the monitor signal as a fraction of full scale (transmittance or
+ * reflectance, 0..1 nominal, noise may take it slightly outside). `crystal`: the crystal's
+ * resonance frequency in Hz.
+ */
+export interface Reading {
+  readonly kind: 'reading';
+  readonly channel: ChannelKind;
+  readonly value: number;
+  /** Run time of the reading, s: the instrument's own timestamp when the line carries one. */
+  readonly timeS: number;
+  /** Host monotonic arrival time, s (equal to `timeS` for simulated and replayed readings). */
+  readonly arrivalS: number;
+}
+
+/** Stable codes of input faults (documented in the code registry with the alerts). */
+export type FaultCode = 'not-a-number' | 'out-of-range' | 'time-backwards' | 'line-too-long' | 'garbled' | 'unknown-channel';
+
+/** A line that could not be used. Bad input is a value, never an exception. */
+export interface Fault {
+  readonly kind: 'fault';
+  readonly channel: ChannelKind | 'unknown';
+  readonly code: FaultCode;
+  /** The offending line (truncated to 200 characters). */
+  readonly line: string;
+  /** Character offset of the problem in the line, 0-based. */
+  readonly offset: number;
+  readonly arrivalS: number;
+}
+
+/** A request to a source's shutter. The layer number says which layer it opens or ends. */
+export interface ShutterCommand {
+  readonly kind: 'shutter';
+  readonly action: 'open' | 'close';
+  /** The source, named by its material. */
+  readonly source: string;
+  readonly layer: number;
+  /** Run time at which the controller decided, s. */
+  readonly timeS: number;
+}
+
+/** The shutter's confirmation that it moved. */
+export interface ShutterAck {
+  readonly kind: 'shutter-ack';
+  readonly action: 'open' | 'close';
+  readonly source: string;
+  readonly timeS: number;
+}
+
+export type OperatorAction = 'start' | 'hold' | 'resume' | 'cut-now' | 'skip-layer' | 'abort' | 'acknowledge';
+
+/** What the operator asked for, from the dashboard or the command line. */
+export interface OperatorCommand {
+  readonly kind: 'operator';
+  readonly action: OperatorAction;
+  /** For `acknowledge`: the alert's id. */
+  readonly alertId?: string;
+  readonly timeS: number;
+}
+
+/**
+ * The passage of time with no reading (from the wiring's scheduler), so that silence itself can
+ * be noticed: a source that stops is detected by the next tick, not by the wall clock.
+ */
+export interface Tick {
+  readonly kind: 'tick';
+  readonly timeS: number;
+}
+
+/** Anything the decision reducer consumes. */
+export type PipelineInput = Reading | Fault | ShutterAck | OperatorCommand | Tick;
+
+/** A source's health. `lost` carries whether we closed it or it went away. */
+export type SourceStatus =
+  | { readonly state: 'connecting' | 'connected' | 'stale'; readonly detail?: string }
+  | { readonly state: 'lost'; readonly closedByUs: boolean; readonly detail?: string };
+
+/** Where readings come from: the same interface for a port, a socket, a journal and the simulator. */
+export interface ReadingSource {
+  readonly readings: Observable<Reading | Fault>;
+  readonly status: Observable<SourceStatus>;
+}
+
+/** Where shutter commands go; acknowledgements come back when the hardware gives them. */
+export interface ShutterSink {
+  send(command: ShutterCommand): void;
+  readonly acks: Observable<ShutterAck>;
+}

@@ -1,0 +1,129 @@
+/**
+ * A deliberately simple chamber for the controller's unit tests: exact planned rates, the plan's
+ * own monitor curve and crystal model, optional white noise, and knobs to silence a channel.
+ * (The physically modelled chamber lives in sim/; this one keeps the reducer's tests free of it.)
+ */
+import { stackFrequencyHz, type CrystalLayer } from '../../src/model/crystal/index.ts';
+import { buildChipMonitor, type ChipMonitor } from '../../src/model/plan/chip-monitor.ts';
+import type { ResolvedRecipe } from '../../src/model/plan/recipe.ts';
+import type { Controller, ControllerState } from '../../src/pipeline/controller.ts';
+import type { RunEvent } from '../../src/pipeline/events.ts';
+import type { PipelineInput } from '../../src/pipeline/types.ts';
+
+export interface IdealRunOptions {
+  /** rms noise of the optical signal (default 0). */
+  noise?: number;
+  /** True rate / planned rate (default 1). */
+  rateFactor?: number;
+  sampleRateHz?: number;
+  /** Optical readings stop in this window of run time. */
+  opticalSilentS?: [number, number];
+  /** Crystal readings stop in this window of run time. */
+  crystalSilentS?: [number, number];
+  /** Extra inputs to inject at given times (operator commands). */
+  inject?: { atS: number; input: PipelineInput }[];
+  /** Stop after this much run time (default: 3 × the planned duration). */
+  maxS?: number;
+  seed?: number;
+}
+
+export interface IdealRunResult {
+  events: RunEvent[];
+  state: ControllerState;
+  /** True part thickness of every layer, nm. */
+  trueNm: number[];
+}
+
+export function runIdeal(recipe: ResolvedRecipe, controller: Controller, options: IdealRunOptions = {}): IdealRunResult {
+  const dt = 1 / (options.sampleRateHz ?? recipe.monitor.sampleRateHz);
+  const rateFactor = options.rateFactor ?? 1;
+  let seed = options.seed ?? 1;
+  const gauss = (): number => {
+    // Park–Miller minimal standard generator with Box–Muller (test noise only).
+    seed = (seed * 16807) % 2147483647;
+    const u = seed / 2147483647;
+    seed = (seed * 16807) % 2147483647;
+    const v = seed / 2147483647;
+    return Math.sqrt(-2 * Math.log(u)) * Math.cos(2 * Math.PI * v);
+  };
+  const trueNm = recipe.layers.map(() => 0);
+  const crystal: CrystalLayer[] = [];
+  let monitor: ChipMonitor | undefined;
+  let current = -1;
+  let openUntil = Number.POSITIVE_INFINITY; // time the shutter actually closes
+  let open = false;
+  let state = controller.initial();
+  const events: RunEvent[] = [];
+  const pending = [...(options.inject ?? [])].sort((a, b) => a.atS - b.atS);
+
+  const apply = (input: PipelineInput): void => {
+    const result = controller.step(state, input);
+    state = result.state;
+    for (const e of result.events) {
+      events.push(e);
+      if (e.type !== 'shutter') continue;
+      const layer = recipe.layers[e.command.layer - 1];
+      if (!layer) continue;
+      if (e.command.action === 'open') {
+        if (current !== e.command.layer - 1) {
+          current = e.command.layer - 1;
+          monitor = monitorFor(recipe, current, trueNm);
+          crystal.push({ thicknessNm: 0, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio });
+        }
+        open = true;
+        openUntil = Number.POSITIVE_INFINITY;
+      } else if (e.command.layer - 1 === current) {
+        openUntil = e.command.timeS + layer.shutterDelayS;
+      }
+    }
+  };
+
+  apply({ kind: 'operator', action: 'start', timeS: 0 });
+  const plannedS = recipe.layers.reduce((sum, l) => sum + l.targetNm / l.rateNmPerS, 0);
+  const maxS = options.maxS ?? 3 * plannedS;
+  const silent = (w: [number, number] | undefined, t: number): boolean => w !== undefined && t >= w[0] && t < w[1];
+  for (let k = 1; state.phase !== 'finished' && state.phase !== 'aborted' && k * dt <= maxS; k++) {
+    const t = k * dt;
+    while (pending.length > 0 && (pending[0] as { atS: number }).atS <= t) apply((pending.shift() as { input: PipelineInput }).input);
+    if (open && current >= 0) {
+      const layer = recipe.layers[current] as ResolvedRecipe['layers'][number];
+      const growS = Math.max(0, Math.min(t, openUntil) - (t - dt));
+      trueNm[current] = (trueNm[current] as number) + layer.rateNmPerS * rateFactor * growS;
+      (crystal[crystal.length - 1] as { thicknessNm: number }).thicknessNm = (trueNm[current] as number) / layer.toolingFactor;
+      if (t >= openUntil) open = false;
+    }
+    if (!silent(options.opticalSilentS, t) && monitor && current >= 0) {
+      const chipNm = (trueNm[current] as number) * (recipe.layers[current] as { chipRatio: number }).chipRatio;
+      const value = monitor.signalAt(chipNm) + (options.noise ?? 0) * gauss();
+      apply({ kind: 'reading', channel: 'optical', value, timeS: t, arrivalS: t });
+    }
+    if (!silent(options.crystalSilentS, t)) {
+      apply({ kind: 'reading', channel: 'crystal', value: stackFrequencyHz(recipe.crystal.bareFrequencyHz, crystal), timeS: t, arrivalS: t });
+    } else {
+      apply({ kind: 'tick', timeS: t });
+    }
+  }
+  return { events, state, trueNm };
+}
+
+function monitorFor(recipe: ResolvedRecipe, index: number, trueNm: number[]): ChipMonitor {
+  const layer = recipe.layers[index] as ResolvedRecipe['layers'][number];
+  const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
+  const below = [];
+  for (let j = chip.fromLayer - 1; j < index; j++) {
+    const l = recipe.layers[j] as ResolvedRecipe['layers'][number];
+    below.push({ dispersion: l.dispersion, thicknessNm: (trueNm[j] as number) * l.chipRatio });
+  }
+  return buildChipMonitor({
+    incident: recipe.incident,
+    substrate: chip.substrate,
+    back: chip.back,
+    substrateThicknessNm: chip.thicknessMm * 1e6,
+    below,
+    growing: layer.dispersion,
+    wavelengthNm: layer.wavelengthNm,
+    bandwidthNm: layer.bandwidthNm,
+    angleDeg: layer.angleDeg,
+    signal: layer.signal,
+  });
+}
