@@ -31,8 +31,19 @@ export interface ControllerOptions {
    */
   confirmSigma: number;
   confirmMinSigma: number;
+  /**
+   * The turn detector watches the signal through an exponential average of this time constant
+   * (default 1 s; σ falls about 4× at 10 Hz), so that noise does not make turns; it lags by as much.
+   */
+  turnSmoothingS: number;
   /** A channel silent for this long is lost (default 2 s). */
   staleAfterS: number;
+  /**
+   * An optical cut is armed only once the crystal (or the clock) says this fraction of the target
+   * has grown (default 0.7): a careful operator never cuts a layer at a fifth of its thickness
+   * because the signal met its level on the wrong branch.
+   */
+  armFraction: number;
   /** Force a cut above this multiple of the target thickness (default 1.3). */
   thicknessCeiling: number;
   /** Force a cut after this multiple of the planned duration (default 1.6). */
@@ -51,6 +62,8 @@ export const DEFAULT_CONTROLLER_OPTIONS: ControllerOptions = {
   debounceReadings: 3,
   confirmSigma: 5,
   confirmMinSigma: 2,
+  turnSmoothingS: 1,
+  armFraction: 0.7,
   staleAfterS: 2,
   thicknessCeiling: 1.3,
   timeCeiling: 1.6,
@@ -65,7 +78,9 @@ export type Phase = 'ready' | 'depositing' | 'closing' | 'holding' | 'finished' 
 interface OpticalTrack {
   readonly lastS: number;
   readonly value: number;
-  /** Running extremum in the current trend. */
+  /** The signal through the turn detector's exponential average. */
+  readonly smoothed: number;
+  /** Running extremum (of the smoothed signal) in the current trend. */
   readonly extreme: number;
   readonly trend: 1 | -1;
   readonly turnsPassed: number;
@@ -202,12 +217,13 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const plan = layerPlan(s);
     const o = s.optical;
     const confirm = o.confirm;
+    const smoothed = Number.isNaN(o.smoothed) ? r.value : o.smoothed + (1 - Math.exp(-(r.timeS - o.lastS) / opts.turnSmoothingS)) * (r.value - o.smoothed);
     let { extreme, trend, turnsPassed } = o;
-    if (Number.isNaN(extreme) || (trend > 0 ? r.value > extreme : r.value < extreme)) extreme = r.value;
-    else if (trend > 0 ? r.value < extreme - confirm : r.value > extreme + confirm) {
+    if (Number.isNaN(extreme) || (trend > 0 ? smoothed > extreme : smoothed < extreme)) extreme = smoothed;
+    else if (trend > 0 ? smoothed < extreme - confirm : smoothed > extreme + confirm) {
       turnsPassed++;
       trend = trend > 0 ? -1 : 1;
-      extreme = r.value;
+      extreme = smoothed;
     }
     const rising = plan.direction === 'rising' || (plan.direction === 'turning' && trend > 0);
     const isBeyond = rising ? r.value >= plan.triggerSignal : r.value <= plan.triggerSignal;
@@ -216,7 +232,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       ...s,
       nowS: r.timeS,
       lastOpticalS: r.timeS,
-      optical: { ...o, lastS: r.timeS, value: r.value, extreme, trend, turnsPassed, beyond },
+      optical: { ...o, lastS: r.timeS, value: r.value, smoothed, extreme, trend, turnsPassed, beyond },
     };
   }
 
@@ -290,15 +306,17 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       }
     }
 
+    const armed = thickness >= opts.armFraction * layer.targetNm;
     switch (s.mode) {
       case 'level':
-        if (s.optical.beyond >= opts.debounceReadings) return cut(s, events, 'trigger-level', plan.targetNm, delayNm);
+        if (armed && s.optical.beyond >= opts.debounceReadings) return cut(s, events, 'trigger-level', plan.targetNm, delayNm);
         return s;
       case 'turning-point': {
+        if (!armed) return s;
         const o = s.optical;
         const needed = o.turnsNeeded + 1;
         const overshoot = layer.overshootFraction * plan.swing;
-        if (o.turnsPassed >= needed && Math.abs(o.value - o.extreme) >= overshoot) {
+        if (o.turnsPassed >= needed && Math.abs(o.smoothed - o.extreme) >= overshoot) {
           return cut(s, events, 'turning-point', plan.targetNm, delayNm);
         }
         return s;
@@ -444,7 +462,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
 function freshOptical(plan: LayerPlan | undefined, confirm: number): OpticalTrack {
   const { trend, turnsNeeded } = visibleTurns(plan, confirm);
   // The extremum starts at the first reading, not the plan's start: gain and offset drift.
-  return { lastS: Number.NaN, value: Number.NaN, extreme: Number.NaN, trend, turnsPassed: 0, turnsNeeded, beyond: 0, confirm };
+  return { lastS: Number.NaN, value: Number.NaN, smoothed: Number.NaN, extreme: Number.NaN, trend, turnsPassed: 0, turnsNeeded, beyond: 0, confirm };
 }
 
 /**
