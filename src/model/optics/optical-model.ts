@@ -237,6 +237,11 @@ function writeMediumConstants(out: Float64Array, at: number, n: number, k: numbe
     qRe = -qRe;
     qIm = -qIm;
   }
+  if (qRe === 0 && qIm === 0) {
+    // Exactly at a critical angle q vanishes and η_p = N²/q is infinite; step a hair into the
+    // evanescent side, where R and T take their (continuous) limits to ~1e-12.
+    qIm = -1e-12;
+  }
   out[at + Q_RE] = qRe;
   out[at + Q_IM] = qIm;
   writeAdmittance(out, at + S_ETA_RE, qRe, qIm);
@@ -350,10 +355,19 @@ function multiplyLayers(
     let sinIm = 0;
     if (dIm !== 0) {
       // cos(a + ib) = cos a cosh b − i sin a sinh b; sin(a + ib) = sin a cosh b + i cos a sinh b
-      const e = Math.exp(dIm);
-      const ei = 1 / e;
-      const ch = 0.5 * (e + ei);
-      const sh = 0.5 * (e - ei);
+      let ch: number;
+      let sh: number;
+      if (Math.abs(dIm) < 1e-3) {
+        // Taylor series: (e − 1/e)/2 would lose digits to cancellation for a faint absorption.
+        const b2 = dIm * dIm;
+        ch = 1 + b2 * (0.5 + b2 / 24);
+        sh = dIm * (1 + b2 * (1 / 6 + b2 / 120));
+      } else {
+        const e = Math.exp(dIm);
+        const ei = 1 / e;
+        ch = 0.5 * (e + ei);
+        sh = 0.5 * (e - ei);
+      }
       cosRe = cr * ch;
       cosIm = -sr * sh;
       sinRe = sr * ch;
