@@ -1,0 +1,109 @@
+// The pipeline's operators on virtual time: no values, one, many, a source error, a never-ending
+// source, early unsubscribe, and a throwing callback.
+import { fileURLToPath } from 'node:url';
+import { from, NEVER, of, Subject, throwError, type Observable } from 'rxjs';
+import { TestScheduler } from 'rxjs/testing';
+import { describe, expect, it } from 'vitest';
+import { loadRecipe } from '../../../src/config/load-recipe.ts';
+import { createController } from '../../../src/pipeline/controller.ts';
+import { decide, toRunClock, withTicks, type Decision } from '../../../src/pipeline/operators/index.ts';
+import type { PipelineInput } from '../../../src/pipeline/types.ts';
+
+const recipe = loadRecipe(fileURLToPath(new URL('../../../config/recipes/ar4-visible.yaml', import.meta.url)));
+const controller = createController(recipe, { replan: false });
+const start: PipelineInput = { kind: 'operator', action: 'start', timeS: 0 };
+const reading = (timeS: number, value = 0.9): PipelineInput => ({ kind: 'reading', channel: 'optical', value, timeS, arrivalS: timeS });
+
+function collect<T>(source: Observable<T>): { values: T[]; error: unknown; completed: boolean } {
+  const out = { values: [] as T[], error: undefined as unknown, completed: false };
+  source.subscribe({ next: (v) => out.values.push(v), error: (e: unknown) => (out.error = e), complete: () => (out.completed = true) });
+  return out;
+}
+
+describe('decide', () => {
+  it('emits nothing for no input and completes', () => {
+    const r = collect(from<PipelineInput[]>([]).pipe(decide(controller)));
+    expect(r.values).toEqual([]);
+    expect(r.completed).toBe(true);
+  });
+
+  it('emits one decision per input with the reducer’s events, state carried over', () => {
+    const r = collect(of(start, reading(1), reading(2)).pipe(decide(controller)));
+    expect(r.values).toHaveLength(3);
+    expect(r.values[0]?.events.map((e) => e.type)).toEqual(['run-started', 'layer-started', 'shutter']);
+    expect(r.values[2]?.state.nowS).toBe(2);
+    expect(r.values[2]?.state.lastOpticalS).toBe(2);
+  });
+
+  it('keeps state per subscription', () => {
+    const source = of(start, reading(1));
+    const a = collect(source.pipe(decide(controller)));
+    const b = collect(source.pipe(decide(controller)));
+    expect(JSON.stringify(a.values)).toBe(JSON.stringify(b.values));
+  });
+
+  it('passes a source error on', () => {
+    const r = collect(throwError(() => new Error('port gone')).pipe(decide(controller)));
+    expect((r.error as Error).message).toBe('port gone');
+  });
+
+  it('lives with a never-ending source and stops on unsubscribe', () => {
+    const subject = new Subject<PipelineInput>();
+    const values: Decision[] = [];
+    const sub = subject.pipe(decide(controller)).subscribe((d) => values.push(d));
+    subject.next(start);
+    sub.unsubscribe();
+    subject.next(reading(1));
+    expect(values).toHaveLength(1);
+    expect(subject.observed).toBe(false);
+    expect(collect(NEVER.pipe(decide(controller))).completed).toBe(false);
+  });
+
+  it('turns a throwing reducer into an error, not an exception in the source', () => {
+    const broken = { ...controller, step: () => { throw new Error('reducer bug'); } };
+    const r = collect(of(start).pipe(decide(broken)));
+    expect((r.error as Error).message).toBe('reducer bug');
+  });
+});
+
+describe('toRunClock', () => {
+  it('puts readings on the arrival clock or keeps the instrument’s', () => {
+    const input: PipelineInput = { kind: 'reading', channel: 'crystal', value: 6e6, timeS: 500, arrivalS: 1010 };
+    expect(collect(of(input).pipe(toRunClock('arrival', 1000))).values[0]).toMatchObject({ timeS: 10, arrivalS: 10 });
+    expect(collect(of(input).pipe(toRunClock('instrument', 1000, 490))).values[0]).toMatchObject({ timeS: 10, arrivalS: 10 });
+    expect(collect(of(start).pipe(toRunClock('arrival', 1000))).values[0]).toEqual(start);
+  });
+});
+
+describe('withTicks (virtual time)', () => {
+  const scheduler = () => new TestScheduler((a, b) => expect(a).toEqual(b));
+
+  it('ticks through silence and not while inputs flow; ends with its source', () => {
+    scheduler().run(({ cold, expectObservable }) => {
+      // a at 0, b at 500 ms, the end at 3 s: ticks 1 s after b and 1 s after that tick.
+      const source = cold<PipelineInput>('a 499ms b 2499ms |', { a: reading(0), b: reading(1) });
+      let t = 0;
+      const ticked = source.pipe(withTicks(1000, () => (t += 1)));
+      expectObservable(ticked).toBe('a 499ms b 999ms t 999ms u 499ms |', {
+        a: reading(0),
+        b: reading(1),
+        t: { kind: 'tick', timeS: 1 },
+        u: { kind: 'tick', timeS: 2 },
+      });
+    });
+  });
+
+  it('passes an error on, stops ticking on unsubscribe, and reports a throwing clock', () => {
+    scheduler().run(({ cold, expectObservable }) => {
+      expectObservable(cold<PipelineInput>('--#').pipe(withTicks(1000, () => 0))).toBe('--#');
+      expectObservable(cold<PipelineInput>('-').pipe(withTicks(10, () => 0)), '^ 25ms !').toBe('10ms t 9ms t', { t: { kind: 'tick', timeS: 0 } });
+      expectObservable(
+        cold<PipelineInput>('-').pipe(
+          withTicks(10, () => {
+            throw new Error('clock');
+          }),
+        ),
+      ).toBe('10ms #', undefined, new Error('clock'));
+    });
+  });
+});
