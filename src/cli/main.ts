@@ -4,11 +4,19 @@ import { OpticalModelError } from '../model/optics/optical-model.ts';
 import { CliError } from './cli-error.ts';
 import { processIo, type CommandIo } from './command-io.ts';
 import { planUsage, runPlan } from './commands/plan.ts';
+import { exportUsage, runExport } from './commands/export.ts';
+import { replayUsage, runReplay } from './commands/replay.ts';
+import { runLive, runUsage } from './commands/run.ts';
+import { runSimulate, simulateUsage } from './commands/simulate.ts';
 import { runSpectrum, spectrumUsage } from './commands/spectrum.ts';
 
 const commands: Record<string, { run: (argv: string[], io: CommandIo) => number | Promise<number>; usage: string }> = {
   spectrum: { run: runSpectrum, usage: spectrumUsage },
   plan: { run: runPlan, usage: planUsage },
+  simulate: { run: runSimulate, usage: simulateUsage },
+  run: { run: runLive, usage: runUsage },
+  replay: { run: runReplay, usage: replayUsage },
+  export: { run: runExport, usage: exportUsage },
 };
 
 const usage = `fringe: live monitoring and layer cutting for optical coating runs.
@@ -18,6 +26,10 @@ Usage: fringe COMMAND [options]   (fringe COMMAND --help for each)
 Commands:
   spectrum DESIGN     R, T and A of a design over wavelength
   plan RECIPE         what every monitor signal should do, layer by layer, and how precisely each layer can be cut
+  simulate RECIPE     a whole run on the virtual chamber with fringe cutting every layer
+  run --chamber F R   a live run on the chamber's instruments (--resume RUN after a crash)
+  replay RUN          a recorded run through the controller again, cut by cut
+  export RUN --csv    a run's readings and events as CSV
 
 fringe is process control, not a safety system: interlocks, manual shutter controls and the
 equipment maker's instructions stay in charge.

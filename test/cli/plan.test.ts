@@ -95,7 +95,8 @@ describe('fringe plan', () => {
           expect(b.precisionNm).toBe(a.precisionNm);
         }
       });
-      expect(ratios.length).toBeGreaterThan(2);
+      // The AR recipe cuts two layers optically, the edge filter 24.
+      expect(ratios.length).toBeGreaterThanOrEqual(2);
       if (file === edge) {
         // On this recipe the priors matter: some layers gain far less than 2× (down to ≈ 1.05).
         expect(Math.min(...ratios)).toBeLessThan(1.5);

@@ -311,7 +311,9 @@ function describeLayer(
       warn('too-thin', `the signal changes by ${(Math.abs(s0 - startSignal) * 100).toFixed(3)} % over the layer: too little to cut on`);
     }
   }
-  if (precisionNm > 0.01 * layer.targetNm) {
+  // Optical cuts should do better than 1 %; a crystal cut is bounded by its tooling factor.
+  const acceptable = optical ? 0.01 : Math.max(0.01, (1.5 * recipe.crystal.toolingSigmaPercent) / 100);
+  if (precisionNm > acceptable * layer.targetNm) {
     warn('imprecise-cut', `the expected precision is ${((100 * precisionNm) / layer.targetNm).toFixed(2)} % of the thickness`);
   }
   if (ctx.crystal.lifeUsed >= 1) warn('crystal-spent', 'the crystal reaches the end of its usable life during this layer');
@@ -365,10 +367,13 @@ function nearestIndex(monitor: ChipMonitor): number {
 
 /**
  * A crystal cut's precision on the parts: one frequency reading's noise over the slope of
- * frequency against crystal thickness, times the tooling factor.
+ * frequency against crystal thickness, times the tooling factor, added in quadrature to the
+ * tooling factor's own uncertainty (which usually dominates).
  */
 function crystalPrecisionNm(recipe: ResolvedRecipe, layer: LayerRecipe, crystal: LayerPlan['crystal']): number {
   const hz = crystal.startFrequencyHz - crystal.cutFrequencyHz;
   const slopeHzPerNm = crystal.thicknessNm > 0 ? hz / crystal.thicknessNm : Number.NaN;
-  return (recipe.crystal.noiseHz / slopeHzPerNm) * layer.toolingFactor;
+  const reading = (recipe.crystal.noiseHz / slopeHzPerNm) * layer.toolingFactor;
+  const tooling = (recipe.crystal.toolingSigmaPercent / 100) * layer.targetNm;
+  return Math.hypot(reading, tooling);
 }

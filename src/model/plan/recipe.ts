@@ -84,8 +84,10 @@ export const RecipeSchema = z
         /** rms noise of one frequency reading, Hz. */
         noiseHz: positive.default(0.05),
         sampleRateHz: positive.default(10),
+        /** rms uncertainty of the tooling factor, percent: what limits a crystal cut on the parts. */
+        toolingSigmaPercent: nonNegative.default(1),
       })
-      .default({ bareFrequencyHz: 6e6, minUsableFrequencyHz: 5.5e6, noiseHz: 0.05, sampleRateHz: 10 }),
+      .default({ bareFrequencyHz: 6e6, minUsableFrequencyHz: 5.5e6, noiseHz: 0.05, sampleRateHz: 10, toolingSigmaPercent: 1 }),
     chips: z.array(ChipSchema).min(1).default([{ fromLayer: 1, thicknessMm: 1, back: 'incoherent' }]),
     defaults: LayerSettingsSchema.default({}),
     /** Per-layer settings by layer number or range, e.g. `"1": {cut: turning-point}`, `"4-9": {...}`. */

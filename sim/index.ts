@@ -1,0 +1,50 @@
+/** The virtual chamber: a seeded, physically modelled box coater speaking fringe's reading vocabulary. */
+export {
+  createRandomStream,
+  OrnsteinUhlenbeck,
+  xoshiro128StarStarFromState,
+} from './random.ts';
+export type { RandomStream } from './random.ts';
+export {
+  CrystalSettingsSchema,
+  loadSimProfile,
+  MaterialOverrideSchema,
+  MaterialSettingsSchema,
+  materialSettingsFor,
+  OpticalSettingsSchema,
+  SimProfileSchema,
+  SourceOverrideSchema,
+  SourceSettingsSchema,
+  sourceSettingsFor,
+} from './profile.ts';
+export type {
+  CrystalSettings,
+  MaterialOverride,
+  MaterialSettings,
+  OpticalSettings,
+  SimProfile,
+  SourceOverride,
+  SourceSettings,
+} from './profile.ts';
+export { scaledDispersion } from './true-materials.ts';
+export { fluctuationGridS, SourceRate } from './source-rate.ts';
+export type { SourceRateSettings } from './source-rate.ts';
+export { createVirtualChamber, INHOMOGENEITY_SLICES } from './virtual-chamber.ts';
+export type {
+  ChamberTruth,
+  ShutterMove,
+  TrueLayer,
+  TrueMaterial,
+  TrueSlice,
+  TrueSource,
+  VirtualChamber,
+} from './virtual-chamber.ts';
+export {
+  formatAck,
+  formatReading,
+  formatShutterCommand,
+  MAX_LINE_CHARS,
+  parseAck,
+  parseReadingLine,
+  parseShutterCommand,
+} from './line-format.ts';

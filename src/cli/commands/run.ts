@@ -1,0 +1,165 @@
+/**
+ * `fringe run --chamber FILE RECIPE`: a live run with the chamber's drivers, journalled; and
+ * `fringe run --resume RUN`: the state rebuilt from a journal, continuing the layer in progress.
+ */
+import { existsSync, readFileSync } from 'node:fs';
+import { join } from 'node:path';
+import { parseArgs } from 'node:util';
+import { Subject } from 'rxjs';
+import { loadChamber, openChamber } from '../../../drivers/index.ts';
+import { loadMaterialLibrary } from '../../config/load-design.ts';
+import { loadRecipe } from '../../config/load-recipe.ts';
+import { readJournal } from '../../journal/journal-reader.ts';
+import { createJournalWriter } from '../../journal/journal-writer.ts';
+import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
+import { createController, type ControllerState } from '../../pipeline/controller.ts';
+import type { RunEvent } from '../../pipeline/events.ts';
+import { createLiveRun } from '../../pipeline/live-run.ts';
+import { replayJournal } from '../../pipeline/replay.ts';
+import type { OperatorAction } from '../../pipeline/types.ts';
+import { CliError } from '../cli-error.ts';
+import type { CommandIo } from '../command-io.ts';
+
+export const runUsage = `Usage: fringe run --chamber FILE RECIPE [options]
+       fringe run --resume RUN [--chamber FILE]
+
+Runs the recipe live: reads the chamber's instruments, cuts every layer, journals everything
+to runs/<id>/. Ctrl-C aborts the run (every shutter is asked to close). fringe is process
+control, not a safety system: the manual shutter controls and interlocks stay in charge.
+
+  --chamber FILE        the chamber file: instruments, ports, line formats, shutters
+  --runs DIR            where runs are kept (default: runs)
+  --clock arrival|instrument   decide on the host's clock (default) or the readings' own
+  --resume RUN          continue the run in RUN (a run folder) after a crash
+  --materials FILE      material library (default: the shipped config/materials.yaml)
+`;
+
+export async function runLive(argv: string[], io: CommandIo): Promise<number> {
+  const { values, positionals } = parseArgs({
+    args: argv,
+    allowPositionals: true,
+    strict: true,
+    options: {
+      chamber: { type: 'string' },
+      runs: { type: 'string' },
+      clock: { type: 'string' },
+      resume: { type: 'string' },
+      materials: { type: 'string' },
+      help: { type: 'boolean', short: 'h' },
+    },
+  });
+  if (values.help) {
+    io.out(runUsage);
+    return 0;
+  }
+  const runClock = values.clock ?? 'arrival';
+  if (runClock !== 'arrival' && runClock !== 'instrument') throw new CliError(`--clock must be arrival or instrument, got "${runClock}"`);
+
+  let recipe: ResolvedRecipe;
+  let resumeFrom: ControllerState | undefined;
+  let runDir: string;
+  let chamberFile = values.chamber;
+  if (values.resume !== undefined) {
+    if (positionals.length > 0) throw new CliError('--resume takes the recipe from the run; give no RECIPE');
+    runDir = values.resume;
+    const recorded = join(runDir, 'recipe.json');
+    if (!existsSync(recorded)) throw new CliError(`${runDir} is not a run folder (no recipe.json)`, 1);
+    recipe = JSON.parse(readFileSync(recorded, 'utf8')) as ResolvedRecipe;
+    const journal = readJournal(join(runDir, 'journal.ndjson'));
+    resumeFrom = replayJournal(journal.records, createController(recipe)).state;
+    if (resumeFrom.phase === 'finished' || resumeFrom.phase === 'aborted') throw new CliError(`the run in ${runDir} has already ${resumeFrom.phase === 'finished' ? 'finished' : 'been aborted'}`, 1);
+    chamberFile ??= join(runDir, 'chamber.yaml');
+    io.err(`resuming ${runDir} at layer ${resumeFrom.index + 1} (${resumeFrom.phase}), run time ${resumeFrom.nowS.toFixed(1)} s`);
+  } else {
+    if (positionals.length !== 1) throw new CliError('run needs exactly one RECIPE file and --chamber FILE (see fringe run --help)');
+    if (chamberFile === undefined) throw new CliError('run needs --chamber FILE: which instruments to read and which shutters to drive');
+    recipe = loadRecipe(positionals[0] as string, loadMaterialLibrary(values.materials));
+    const runId = `${new Date().toISOString().replace(/[:.]/g, '-')}`;
+    runDir = join(values.runs ?? 'runs', runId);
+  }
+  const chamber = loadChamber(chamberFile);
+  const drivers = openChamber(chamber);
+  if (!drivers.shutter) {
+    await drivers.close();
+    throw new CliError(`${chamberFile} names no shutters: fringe cannot cut without them`, 1);
+  }
+  const journal = createJournalWriter(runDir, {
+    runId: runDir.split(/[\\/]/).pop() ?? runDir,
+    startedAt: new Date().toISOString(),
+    recipe: recipe.name,
+    meta: { source: 'live', chamber: chamber.name, clock: runClock, ...(resumeFrom ? { resumedAtS: resumeFrom.nowS } : {}) },
+  });
+  if (!resumeFrom) {
+    journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
+    journal.writeFile('chamber.yaml', readFileSync(chamberFile, 'utf8'));
+  }
+
+  const commands = new Subject<{ action: OperatorAction; alertId?: string }>();
+  const controller = createController(recipe);
+  const live = createLiveRun({
+    controller,
+    sources: [...drivers.sources.values()],
+    shutter: drivers.shutter,
+    commands,
+    runClock,
+    ...(resumeFrom ? { resumeFrom } : {}),
+  });
+  const statusSubs = [...drivers.sources.entries()].map(([id, source]) =>
+    source.status.subscribe((s) => io.err(`${id}: ${s.state}${s.detail ? ` (${s.detail})` : ''}`)),
+  );
+  const alertSub = drivers.shutter.alerts.subscribe((a) => io.err(`shutter alert: ${a.code} ${a.source} ${a.action}`));
+
+  let outcome: 'complete' | 'aborted' | undefined;
+  let subscription: { unsubscribe(): void } | undefined;
+  await new Promise<void>((resolve) => {
+    subscription = live.decisions.subscribe({
+      next(decision) {
+        journal.input(decision.input);
+        for (const event of decision.events) {
+          journal.event(event);
+          if (event.type !== 'shutter' || event.command.action === 'close') io.out(describe(event));
+          if (event.type === 'run-finished') {
+            outcome = event.outcome;
+            resolve();
+          }
+        }
+      },
+      error(error: unknown) {
+        io.err(`the run stopped: ${(error as Error).message}`);
+        resolve();
+      },
+    });
+    const onSignal = (): void => {
+      io.err('aborting: every shutter is asked to close');
+      commands.next({ action: 'abort' });
+    };
+    process.once('SIGINT', onSignal);
+    process.once('SIGTERM', onSignal);
+    if (!resumeFrom) commands.next({ action: 'start' });
+  });
+  subscription?.unsubscribe();
+  for (const s of statusSubs) s.unsubscribe();
+  alertSub.unsubscribe();
+  journal.close();
+  await drivers.close();
+  io.err(`journal: ${runDir}`);
+  return outcome === 'complete' ? 0 : 1;
+}
+
+function describe(e: RunEvent): string {
+  const t = `${e.timeS.toFixed(1).padStart(8)} s`;
+  switch (e.type) {
+    case 'layer-started':
+      return `${t}  layer ${e.layer} ${e.material}: ${e.targetNm.toFixed(2)} nm, cut on ${e.cut}`;
+    case 'cut':
+      return `${t}  layer ${e.layer} cut (${e.reason}), about ${e.estimatedNm.toFixed(2)} nm`;
+    case 'layer-finished':
+      return `${t}  layer ${e.layer} finished: ${e.estimatedNm.toFixed(2)} nm${e.skipped ? ' (skipped)' : ''}`;
+    case 'alert':
+      return `${t}  ALERT ${e.severity} ${e.code}: ${e.message}`;
+    case 'shutter':
+      return `${t}  shutter ${e.command.source} ${e.command.action}`;
+    default:
+      return `${t}  ${e.type}`;
+  }
+}

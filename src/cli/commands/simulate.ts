@@ -1,0 +1,233 @@
+/**
+ * `fringe simulate RECIPE`: a whole run on the virtual chamber with the controller cutting each
+ * layer, then per layer the target, the true thickness, the error and the cut reason, and the
+ * true stack's spectrum against the design.
+ */
+import { randomUUID } from 'node:crypto';
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { parseArgs } from 'node:util';
+import { createVirtualChamber, loadSimProfile, type ChamberTruth } from '../../../sim/index.ts';
+import { loadMaterialLibrary } from '../../config/load-design.ts';
+import { loadRecipe } from '../../config/load-recipe.ts';
+import { createJournalWriter, type JournalWriter } from '../../journal/journal-writer.ts';
+import { spectrumDeviation, type SpectrumDeviation } from '../../model/design/spectrum-deviation.ts';
+import type { StackSpec } from '../../model/optics/optical-model.ts';
+import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
+import { createController } from '../../pipeline/controller.ts';
+import type { CutReason, RunEvent } from '../../pipeline/events.ts';
+import { createSteppedRun, runPaced } from '../../pipeline/run-stepped.ts';
+import { CliError, numberOption } from '../cli-error.ts';
+import type { CommandIo } from '../command-io.ts';
+
+export const DEFAULT_PROFILE = fileURLToPath(new URL('../../../config/sim/typical.yaml', import.meta.url));
+
+export const simulateUsage = `Usage: fringe simulate RECIPE [options]
+
+Runs the recipe on the virtual chamber with fringe cutting every layer, then reports each
+layer's true thickness and error and the true stack's spectrum against the design.
+
+  --profile FILE        simulator profile (default: config/sim/typical.yaml)
+  --seed N              random seed; the same seed gives the same run (default 1)
+  --speed X|max         run at X times real time, or as fast as possible (default max)
+  --journal DIR         keep the run in DIR/<run id>/ (journal, summary)
+  --json                print one object with a "layers" array and a "spectrum" block
+  --materials FILE      material library (default: the shipped config/materials.yaml)
+`;
+
+export interface SimulatedLayer {
+  number: number;
+  material: string;
+  targetNm: number;
+  trueNm: number;
+  errorNm: number;
+  errorPercent: number;
+  cutReason: CutReason | 'not-cut';
+  estimatedNm: number;
+}
+
+export interface SimulationReport {
+  recipe: string;
+  seed: number;
+  profile: string;
+  outcome: 'complete' | 'aborted' | 'incomplete';
+  durationS: number;
+  layers: SimulatedLayer[];
+  spectrum: SpectrumDeviation | null;
+  alerts: { code: string; layer: number | null; message: string }[];
+  journal?: string;
+}
+
+export async function runSimulate(argv: string[], io: CommandIo): Promise<number> {
+  const { values, positionals } = parseArgs({
+    args: argv,
+    allowPositionals: true,
+    strict: true,
+    options: {
+      profile: { type: 'string' },
+      seed: { type: 'string' },
+      speed: { type: 'string' },
+      journal: { type: 'string' },
+      json: { type: 'boolean' },
+      materials: { type: 'string' },
+      help: { type: 'boolean', short: 'h' },
+    },
+  });
+  if (values.help) {
+    io.out(simulateUsage);
+    return 0;
+  }
+  if (positionals.length !== 1) throw new CliError('simulate needs exactly one RECIPE file (see fringe simulate --help)');
+  const seed = numberOption('seed', values.seed) ?? 1;
+  if (!Number.isInteger(seed) || seed < 0 || seed > 2 ** 32 - 1) throw new CliError(`--seed must be a whole number from 0 to 4294967295, got ${seed}`);
+  const speedText = values.speed ?? 'max';
+  const speed = speedText === 'max' ? Number.POSITIVE_INFINITY : (numberOption('speed', speedText) ?? Number.NaN);
+  if (!(speed > 0)) throw new CliError(`--speed must be a positive number or "max", got "${speedText}"`);
+
+  const recipe = loadRecipe(positionals[0] as string, loadMaterialLibrary(values.materials));
+  const profileFile = values.profile ?? DEFAULT_PROFILE;
+  const profile = loadSimProfile(profileFile);
+  const report = await simulateRun(recipe, { profile, profileName: profileFile, seed, speed, journalDir: values.journal, io });
+  io.out(values.json ? JSON.stringify(report) : formatReport(report));
+  return report.outcome === 'complete' ? 0 : 1;
+}
+
+export interface SimulateOptions {
+  profile: Parameters<typeof createVirtualChamber>[1];
+  profileName: string;
+  seed: number;
+  speed: number;
+  journalDir?: string | undefined;
+  /** Where the progress bar goes (stderr of a terminal only). */
+  io?: CommandIo;
+  /** Whether to draw a progress bar (default: stderr is a terminal). */
+  progress?: boolean;
+}
+
+/** One whole simulated run; pure apart from the optional journal and progress output. */
+export async function simulateRun(recipe: ResolvedRecipe, options: SimulateOptions): Promise<SimulationReport> {
+  const chamber = createVirtualChamber(recipe, options.profile, options.seed);
+  const controller = createController(recipe);
+  const events: RunEvent[] = [];
+  let journal: JournalWriter | undefined;
+  if (options.journalDir !== undefined) {
+    const runId = `${new Date().toISOString().replace(/[:.]/g, '-')}-${randomUUID().slice(0, 8)}`;
+    journal = createJournalWriter(join(options.journalDir, runId), {
+      runId,
+      startedAt: new Date().toISOString(),
+      recipe: recipe.name,
+      meta: { source: 'simulator', seed: options.seed, profile: options.profileName },
+    });
+    // The recipe as run, resolved against the library of the day, so that a replay needs nothing else.
+    journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
+  }
+  const run = createSteppedRun(controller, chamber, {
+    ...(journal ? { onInput: (input) => journal.input(input) } : {}),
+    onEvent: (event) => {
+      events.push(event);
+      journal?.event(event);
+    },
+  });
+  const showProgress = options.progress ?? (process.stderr.isTTY && options.io !== undefined);
+  const total = run.state.plan.durationS;
+  await runPaced(run, options.speed, {
+    onChunk: (r) => {
+      if (showProgress) options.io?.err(progressLine(r.state.index + 1, recipe.layers.length, r.nowS, total));
+    },
+  });
+  if (showProgress) process.stderr.write('\n');
+  const report = buildReport(recipe, chamber.truth(), events, options, run.nowS);
+  if (journal) {
+    journal.writeFile('summary.json', `${JSON.stringify(report, null, 2)}\n`);
+    journal.close();
+    report.journal = journal.dir;
+  }
+  return report;
+}
+
+function progressLine(layer: number, layers: number, nowS: number, totalS: number): string {
+  const width = 30;
+  const fraction = Math.min(1, nowS / Math.max(1, totalS));
+  const filled = Math.round(fraction * width);
+  return `\r[${'#'.repeat(filled)}${'.'.repeat(width - filled)}] layer ${layer}/${layers}, ${formatClock(nowS)} of ~${formatClock(totalS)} run time`;
+}
+
+function buildReport(
+  recipe: ResolvedRecipe,
+  truth: ChamberTruth,
+  events: RunEvent[],
+  options: SimulateOptions,
+  nowS: number,
+): SimulationReport {
+  const cuts = new Map<number, Extract<RunEvent, { type: 'cut' }>>();
+  const finished = new Map<number, Extract<RunEvent, { type: 'layer-finished' }>>();
+  let outcome: SimulationReport['outcome'] = 'incomplete';
+  const alerts: SimulationReport['alerts'] = [];
+  for (const e of events) {
+    if (e.type === 'cut') cuts.set(e.layer, e);
+    if (e.type === 'layer-finished') finished.set(e.layer, e);
+    if (e.type === 'run-finished') outcome = e.outcome;
+    if (e.type === 'alert') alerts.push({ code: e.code, layer: e.layer, message: e.message });
+  }
+  const layers = recipe.layers.map((layer, i): SimulatedLayer => {
+    const trueNm = truth.layers[i]?.partNm ?? 0;
+    return {
+      number: layer.number,
+      material: layer.materialName,
+      targetNm: layer.targetNm,
+      trueNm,
+      errorNm: trueNm - layer.targetNm,
+      errorPercent: (100 * (trueNm - layer.targetNm)) / layer.targetNm,
+      cutReason: cuts.get(layer.number)?.reason ?? 'not-cut',
+      estimatedNm: finished.get(layer.number)?.estimatedNm ?? Number.NaN,
+    };
+  });
+  const band = recipe.design.band;
+  let spectrum: SimulationReport['spectrum'] = null;
+  if (band) {
+    const design = recipe.design.stack;
+    const deposited: StackSpec = {
+      ...design,
+      layers: design.layers.map((l, i) => ({
+        dispersion: truth.materials[(recipe.layers[i] as { materialName: string }).materialName]?.dispersion ?? l.dispersion,
+        thicknessNm: truth.layers[i]?.partNm ?? 0,
+      })),
+    };
+    const d = spectrumDeviation(design, deposited, band);
+    spectrum = { fromNm: d.fromNm, toNm: d.toNm, stepNm: d.stepNm, maxAbsR: d.maxAbsR, meanAbsR: d.meanAbsR, maxAbsT: d.maxAbsT, meanAbsT: d.meanAbsT };
+  }
+  return { recipe: recipe.name, seed: options.seed, profile: options.profileName, outcome, durationS: nowS, layers, spectrum, alerts };
+}
+
+function formatReport(r: SimulationReport): string {
+  const rows = [
+    `${r.recipe}: simulated (seed ${r.seed}, ${r.profile}), ${r.outcome}, ${formatClock(r.durationS)} run time`,
+    '',
+    ' #  material  target nm    true nm   error nm  error %  cut',
+  ];
+  for (const l of r.layers) {
+    rows.push(
+      `${String(l.number).padStart(2)}  ${l.material.padEnd(8)} ${l.targetNm.toFixed(2).padStart(9)} ${l.trueNm.toFixed(2).padStart(10)} ${l.errorNm.toFixed(2).padStart(10)} ${l.errorPercent.toFixed(2).padStart(8)}  ${l.cutReason}`,
+    );
+  }
+  const errors = r.layers.map((l) => l.errorPercent);
+  const rms = Math.sqrt(errors.reduce((s, e) => s + e * e, 0) / Math.max(1, errors.length));
+  rows.push('', `rms thickness error ${rms.toFixed(2)} %, worst ${Math.max(...errors.map(Math.abs)).toFixed(2)} %`);
+  if (r.spectrum) {
+    const s = r.spectrum;
+    rows.push(
+      `spectrum of the true stack against the design over ${s.fromNm}–${s.toNm} nm: ` +
+        `T max ${(100 * s.maxAbsT).toFixed(2)} pp, mean ${(100 * s.meanAbsT).toFixed(2)} pp; R max ${(100 * s.maxAbsR).toFixed(2)} pp, mean ${(100 * s.meanAbsR).toFixed(2)} pp`,
+    );
+  }
+  if (r.alerts.length > 0) {
+    rows.push('', `alerts (${r.alerts.length}):`, ...r.alerts.slice(0, 20).map((a) => `  layer ${a.layer ?? '-'}: ${a.code}: ${a.message}`));
+  }
+  if (r.journal) rows.push('', `journal: ${r.journal}`);
+  return rows.join('\n');
+}
+
+function formatClock(seconds: number): string {
+  const s = Math.round(seconds);
+  return `${Math.floor(s / 3600)}:${String(Math.floor((s % 3600) / 60)).padStart(2, '0')}:${String(s % 60).padStart(2, '0')}`;
+}
