@@ -48,3 +48,5 @@ export {
   parseReadingLine,
   parseShutterCommand,
 } from './line-format.ts';
+export { createPtyPair, serveOnPty, serveOnStream, serveOnTcp } from './serve.ts';
+export type { PtyPair, ServedChamber, ServeOptions } from './serve.ts';

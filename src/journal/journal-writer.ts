@@ -3,7 +3,7 @@
  * second and synced to disk at every cut and alert, so a crash loses at most the last second of
  * readings and never a decision. The summary is written atomically (temp file, then rename).
  */
-import { closeSync, fsyncSync, mkdirSync, openSync, renameSync, writeFileSync, writeSync } from 'node:fs';
+import { closeSync, existsSync, fsyncSync, mkdirSync, openSync, renameSync, statSync, writeFileSync, writeSync } from 'node:fs';
 import { join } from 'node:path';
 import type { RunEvent } from '../pipeline/events.ts';
 import type { PipelineInput } from '../pipeline/types.ts';
@@ -34,7 +34,10 @@ export interface JournalWriterOptions {
 
 const SYNCED_EVENTS = new Set<RunEvent['type']>(['cut', 'alert', 'layer-finished', 'run-finished', 'mode-changed']);
 
-/** Creates `dir` (and parents) and opens its journal for appending, first line the header. */
+/**
+ * Creates `dir` (and parents) and opens its journal for appending, first line the header. An
+ * existing journal (a resumed run) is appended to as it is: it keeps its one header.
+ */
 export function createJournalWriter(
   dir: string,
   header: Omit<JournalHeader, 'journal' | 'version'>,
@@ -42,6 +45,7 @@ export function createJournalWriter(
 ): JournalWriter {
   mkdirSync(dir, { recursive: true });
   const file = join(dir, 'journal.ndjson');
+  const resuming = existsSync(file) && statSync(file).size > 0;
   const fd = openSync(file, 'a');
   const maxBytes = options.maxBufferBytes ?? 256 * 1024;
   let buffer: string[] = [];
@@ -67,8 +71,10 @@ export function createJournalWriter(
   const timer = setInterval(flush, options.flushIntervalMs ?? 1000);
   timer.unref();
 
-  push({ journal: 'fringe', version: JOURNAL_VERSION, ...header });
-  sync();
+  if (!resuming) {
+    push({ journal: 'fringe', version: JOURNAL_VERSION, ...header });
+    sync();
+  }
 
   return {
     dir,

@@ -16,6 +16,7 @@ export type AlertCode =
   | 'time-ceiling'
   | 'rate-out-of-band'
   | 'shutter-no-ack'
+  | 'shutter-not-sent'
   | 'operator-cut'
   | 'operator-skip'
   | 'operator-abort'
@@ -36,6 +37,7 @@ export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: 
   'time-ceiling': { severity: 'critical', sentence: 'The layer ran past its time ceiling and was cut.' },
   'rate-out-of-band': { severity: 'warning', sentence: 'The deposition rate is outside its allowed band.' },
   'shutter-no-ack': { severity: 'critical', sentence: 'A shutter did not confirm a command in time: check it by hand.' },
+  'shutter-not-sent': { severity: 'critical', sentence: 'A shutter command could not be sent (no connection, or no command for that source): act by hand.' },
   'operator-cut': { severity: 'info', sentence: 'The operator cut the layer.' },
   'operator-skip': { severity: 'warning', sentence: 'The operator skipped the layer.' },
   'operator-abort': { severity: 'critical', sentence: 'The operator aborted the run; every shutter was asked to close.' },

@@ -23,6 +23,8 @@ export interface LiveRunOptions {
   scheduler?: SchedulerLike;
   /** Resume: the state rebuilt from a journal; run time continues from its `nowS`. */
   resumeFrom?: ControllerState;
+  /** Instrument clock: the instrument time that is run time 0 (default 0). */
+  instrumentOriginS?: number;
 }
 
 export interface LiveRun {
@@ -40,7 +42,7 @@ export function createLiveRun(options: LiveRunOptions): LiveRun {
   let lastRunS = resumedAt;
   let lastArrivalS = clock();
 
-  const readings = merge(...options.sources.map((s) => s.readings)).pipe(toRunClock(runClock, startArrivalS));
+  const readings = merge(...options.sources.map((s) => s.readings)).pipe(toRunClock(runClock, startArrivalS, options.instrumentOriginS));
   const acks = options.shutter.acks.pipe(map((ack): PipelineInput => ({ ...ack, timeS: Math.max(lastRunS, 0) })));
   const commands = options.commands.pipe(
     map((c): PipelineInput => ({ kind: 'operator', action: c.action, ...(c.alertId !== undefined ? { alertId: c.alertId } : {}), timeS: lastRunS })),

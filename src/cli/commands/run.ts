@@ -5,18 +5,19 @@
 import { existsSync, readFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { parseArgs } from 'node:util';
-import { Subject } from 'rxjs';
+import { combineLatest, filter, first, firstValueFrom, Subject, throwError, timeout } from 'rxjs';
 import { loadChamber, openChamber } from '../../../drivers/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import { readJournal } from '../../journal/journal-reader.ts';
 import { createJournalWriter } from '../../journal/journal-writer.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
+import { ALERTS } from '../../pipeline/codes.ts';
 import { createController, type ControllerState } from '../../pipeline/controller.ts';
 import type { RunEvent } from '../../pipeline/events.ts';
 import { createLiveRun } from '../../pipeline/live-run.ts';
 import { replayJournal } from '../../pipeline/replay.ts';
-import type { OperatorAction } from '../../pipeline/types.ts';
+import type { OperatorAction, ReadingSource } from '../../pipeline/types.ts';
 import { CliError } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 
@@ -107,7 +108,15 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
   const statusSubs = [...drivers.sources.entries()].map(([id, source]) =>
     source.status.subscribe((s) => io.err(`${id}: ${s.state}${s.detail ? ` (${s.detail})` : ''}`)),
   );
-  const alertSub = drivers.shutter.alerts.subscribe((a) => io.err(`shutter alert: ${a.code} ${a.source} ${a.action}`));
+  // The shutter output's own alerts (no acknowledgement, not sent) go into the journal beside the controller's.
+  let shutterAlerts = 0;
+  const alertSub = drivers.shutter.alerts.subscribe((a) => {
+    shutterAlerts++;
+    const code = a.code;
+    const message = `${ALERTS[code].sentence} (${a.source} ${a.action}: ${a.detail})`;
+    journal.event({ type: 'alert', timeS: a.timeS, id: `S${shutterAlerts}`, severity: 'critical', code, message, layer: null });
+    io.out(`ALERT critical ${code}: ${message}`);
+  });
 
   let outcome: 'complete' | 'aborted' | undefined;
   let subscription: { unsubscribe(): void } | undefined;
@@ -135,7 +144,20 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
     };
     process.once('SIGINT', onSignal);
     process.once('SIGTERM', onSignal);
-    if (!resumeFrom) commands.next({ action: 'start' });
+    // Start only when every instrument has been speaking for a second: a shutter command sent
+    // before its port is open is refused, a run must not begin blind, and lines the port held
+    // from before must be read out first so that run time is the instruments' time now.
+    void firstReadings([...drivers.sources.entries()], 30_000).then(
+      async () => {
+        await new Promise((r) => setTimeout(r, 1000));
+        if (!resumeFrom) commands.next({ action: 'start' });
+        io.err(resumeFrom ? 'instruments answering: resuming' : 'instruments answering: run started');
+      },
+      (error: unknown) => {
+        io.err((error as Error).message);
+        resolve();
+      },
+    );
   });
   subscription?.unsubscribe();
   for (const s of statusSubs) s.unsubscribe();
@@ -144,6 +166,15 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
   await drivers.close();
   io.err(`journal: ${runDir}`);
   return outcome === 'complete' ? 0 : 1;
+}
+
+/** Resolves when every source has delivered a reading; rejects naming the silent ones after `timeoutMs`. */
+function firstReadings(sources: [string, ReadingSource][], timeoutMs: number): Promise<void> {
+  return firstValueFrom(
+    combineLatest(sources.map(([, s]) => s.readings.pipe(filter((r) => r.kind === 'reading'), first()))).pipe(
+      timeout({ first: timeoutMs, with: () => throwError(() => new Error(`no reading from ${sources.map(([id]) => id).join(', ')} within ${timeoutMs / 1000} s; check the cables and the chamber file`)) }),
+    ),
+  ).then(() => undefined);
 }
 
 function describe(e: RunEvent): string {

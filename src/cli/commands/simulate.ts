@@ -7,7 +7,7 @@ import { randomUUID } from 'node:crypto';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { parseArgs } from 'node:util';
-import { createVirtualChamber, loadSimProfile, type ChamberTruth } from '../../../sim/index.ts';
+import { createPtyPair, createVirtualChamber, loadSimProfile, serveOnPty, serveOnTcp, type ChamberTruth } from '../../../sim/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import { createJournalWriter, type JournalWriter } from '../../journal/journal-writer.ts';
@@ -33,6 +33,12 @@ layer's true thickness and error and the true stack's spectrum against the desig
   --journal DIR         keep the run in DIR/<run id>/ (journal, summary)
   --json                print one object with a "layers" array and a "spectrum" block
   --materials FILE      material library (default: the shipped config/materials.yaml)
+
+  --serve               instead, serve the virtual instruments in fringe's line format, for
+                        \`fringe run\` (or anything else) to read, until Ctrl-C:
+  --pty PATH            on a pseudo-terminal pair (needs socat); PATH is the host's side
+                        (default /tmp/fringe-sim, as in config/chambers/sim-serial.yaml)
+  --tcp PORT            on 127.0.0.1:PORT instead (config/chambers/sim-tcp.yaml uses 7301)
 `;
 
 export interface SimulatedLayer {
@@ -70,6 +76,9 @@ export async function runSimulate(argv: string[], io: CommandIo): Promise<number
       journal: { type: 'string' },
       json: { type: 'boolean' },
       materials: { type: 'string' },
+      serve: { type: 'boolean' },
+      pty: { type: 'string' },
+      tcp: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
     },
   });
@@ -87,9 +96,44 @@ export async function runSimulate(argv: string[], io: CommandIo): Promise<number
   const recipe = loadRecipe(positionals[0] as string, loadMaterialLibrary(values.materials));
   const profileFile = values.profile ?? DEFAULT_PROFILE;
   const profile = loadSimProfile(profileFile);
+  if (values.serve) return serve(recipe, profile, seed, Number.isFinite(speed) ? speed : 1, values, io);
+  if (values.pty !== undefined || values.tcp !== undefined) throw new CliError('--pty and --tcp go with --serve');
   const report = await simulateRun(recipe, { profile, profileName: profileFile, seed, speed, journalDir: values.journal, io });
   io.out(values.json ? JSON.stringify(report) : formatReport(report));
   return report.outcome === 'complete' ? 0 : 1;
+}
+
+async function serve(
+  recipe: ResolvedRecipe,
+  profile: Parameters<typeof createVirtualChamber>[1],
+  seed: number,
+  speed: number,
+  values: { pty?: string | undefined; tcp?: string | undefined },
+  io: CommandIo,
+): Promise<number> {
+  if (values.pty !== undefined && values.tcp !== undefined) throw new CliError('choose one of --pty or --tcp');
+  const stop = new Promise<void>((resolve) => {
+    process.once('SIGINT', resolve);
+    process.once('SIGTERM', resolve);
+  });
+  if (values.tcp !== undefined) {
+    const port = numberOption('tcp', values.tcp) ?? 7301;
+    if (!Number.isInteger(port) || port < 0 || port > 65535) throw new CliError(`--tcp must be a port number, got ${values.tcp}`);
+    const server = await serveOnTcp({ recipe, profile, seed, speed, port });
+    io.out(`virtual instruments on tcp 127.0.0.1:${server.port} at ${speed}× real time (seed ${seed}); Ctrl-C ends`);
+    await stop;
+    await server.close();
+    return 0;
+  }
+  const pair = await createPtyPair(values.pty ?? '/tmp/fringe-sim').catch((error: unknown) => {
+    throw new CliError((error as Error).message, 1);
+  });
+  const served = await serveOnPty(pair, { recipe, profile, seed, speed });
+  io.out(`virtual instruments on the serial port ${pair.hostPath} at ${speed}× real time (seed ${seed}); Ctrl-C ends`);
+  await stop;
+  await served.close();
+  pair.close();
+  return 0;
 }
 
 export interface SimulateOptions {

@@ -2,7 +2,7 @@
  * `toRunClock(clock)`: puts every input on one run clock, seconds since the run began.
  * `arrival`: the host's monotonic arrival time (one clock for instruments whose own clocks
  * differ); `instrument`: the readings' own timestamps, taken as already sharing one origin (the
- * virtual chamber, or instruments synchronised by the site).
+ * virtual chamber, or instruments synchronised by the site), less `startInstrumentS`.
  */
 import { map, type OperatorFunction } from 'rxjs';
 import type { PipelineInput } from '../types.ts';

@@ -1,0 +1,86 @@
+// fringe simulate: the report, determinism by seed, the journal, and replay determinism over a
+// simulated 40-layer run.
+import { mkdtempSync, readdirSync, readFileSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { describe, expect, it } from 'vitest';
+import { loadSimProfile } from '../../sim/index.ts';
+import { main } from '../../src/cli/main.ts';
+import { simulateRun, type SimulationReport } from '../../src/cli/commands/simulate.ts';
+import { readJournal } from '../../src/journal/journal-reader.ts';
+import { createController } from '../../src/pipeline/controller.ts';
+import { replayJournal } from '../../src/pipeline/replay.ts';
+import { fortyLayerRecipe } from '../sim/support.ts';
+
+const root = fileURLToPath(new URL('../../', import.meta.url));
+const ar4 = join(root, 'config/recipes/ar4-visible.yaml');
+
+async function run(...argv: string[]): Promise<{ code: number; out: string; err: string }> {
+  let out = '';
+  let err = '';
+  const code = await main(argv, { out: (t) => (out += `${t}\n`), err: (t) => (err += `${t}\n`) });
+  return { code, out, err };
+}
+
+describe('fringe simulate', () => {
+  it('--json gives a layers array with true thicknesses and a spectrum block; a seed repeats exactly', async () => {
+    const a = await run('simulate', ar4, '--json', '--seed', '4');
+    expect(a.code, a.err).toBe(0);
+    const report = JSON.parse(a.out) as SimulationReport;
+    expect(report.outcome).toBe('complete');
+    expect(report.layers).toHaveLength(4);
+    for (const l of report.layers) {
+      expect(l.trueNm).toBeGreaterThan(0);
+      expect(l.errorNm).toBeCloseTo(l.trueNm - l.targetNm, 12);
+      expect(l.cutReason).not.toBe('not-cut');
+    }
+    expect(report.layers.slice(0, 2).map((l) => l.cutReason)).toEqual(['crystal-thickness', 'crystal-thickness']);
+    expect(report.spectrum?.fromNm).toBe(420);
+    expect(report.spectrum?.maxAbsT).toBeGreaterThanOrEqual(report.spectrum?.meanAbsT ?? Number.NaN);
+    const b = await run('simulate', ar4, '--json', '--seed', '4');
+    expect(b.out).toBe(a.out);
+    const c = await run('simulate', ar4, '--json', '--seed', '5');
+    expect(c.out).not.toBe(a.out);
+  });
+
+  it('prints a table, and refuses bad options in one line', async () => {
+    const t = await run('simulate', ar4, '--seed', '1');
+    expect(t.out).toMatch(/rms thickness error/);
+    expect(t.out).toMatch(/spectrum of the true stack/);
+    for (const [args, message] of [
+      [['--seed=-1'], /--seed must be/],
+      [['--speed', 'fast'], /--speed expects a number/],
+      [['--pty', '/tmp/x'], /go with --serve/],
+    ] as const) {
+      const r = await run('simulate', ar4, ...args);
+      expect(r.code).toBe(2);
+      expect(r.err).toMatch(message);
+    }
+  });
+
+  it('journals a 40-layer run that replays with every decision identical', async () => {
+    const dir = mkdtempSync(join(tmpdir(), 'fringe-sim-journal-'));
+    const recipe = fortyLayerRecipe(10, 10);
+    const report = await simulateRun(recipe, {
+      profile: loadSimProfile(join(root, 'config/sim/typical.yaml')),
+      profileName: 'typical',
+      seed: 11,
+      speed: Number.POSITIVE_INFINITY,
+      journalDir: dir,
+      progress: false,
+    });
+    expect(report.layers).toHaveLength(40);
+    const runDir = join(dir, readdirSync(dir)[0] as string);
+    expect(JSON.parse(readFileSync(join(runDir, 'summary.json'), 'utf8'))).toMatchObject({ recipe: recipe.name, seed: 11 });
+    const journal = readJournal(join(runDir, 'journal.ndjson'));
+    const replay = replayJournal(journal.records, createController(recipe));
+    expect(replay.firstDifference).toBeNull();
+    expect(replay.cuts).toHaveLength(40);
+    expect(replay.cuts.filter((c) => c.differs)).toEqual([]);
+    // And with a changed recipe the replay says where it would have cut instead.
+    const changed = { ...recipe, layers: recipe.layers.map((l) => ({ ...l, shutterDelayS: l.shutterDelayS + 1 })) };
+    const other = replayJournal(journal.records, createController(changed));
+    expect(other.cuts.some((c) => c.differs)).toBe(true);
+  });
+});
