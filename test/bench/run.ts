@@ -8,9 +8,10 @@ import { fileURLToPath } from 'node:url';
 import type { Benchmark, BenchResult } from './harness.ts';
 import { opticsBenchmarks } from './optics.bench.ts';
 import { planBenchmarks } from './plan.bench.ts';
+import { pipelineBenchmarks } from './pipeline.bench.ts';
 import { simBenchmarks } from './sim.bench.ts';
 
-const all: Benchmark[] = [...opticsBenchmarks, ...planBenchmarks, ...simBenchmarks];
+const all: Benchmark[] = [...opticsBenchmarks, ...planBenchmarks, ...simBenchmarks, ...pipelineBenchmarks];
 
 const groups = process.argv.slice(2);
 const selected = groups.length === 0 ? all : all.filter((b) => groups.some((g) => b.name === g || b.name.startsWith(`${g}.`)));
