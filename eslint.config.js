@@ -8,7 +8,7 @@ export default tseslint.config(
   ...tseslint.configs.recommendedTypeChecked,
   {
     languageOptions: {
-      parserOptions: { projectService: { allowDefaultProject: ['*.js', 'src/cli/*.js'] }, tsconfigRootDir: import.meta.dirname },
+      parserOptions: { projectService: { allowDefaultProject: ['*.js', 'src/cli/*.js', 'src/study/*.js'] }, tsconfigRootDir: import.meta.dirname },
     },
     rules: {
       'no-restricted-syntax': ['error', { selector: 'ExportAllDeclaration', message: 'export by name from index.ts' }],

@@ -9,6 +9,7 @@ import { replayUsage, runReplay } from './commands/replay.ts';
 import { runLive, runUsage } from './commands/run.ts';
 import { runSimulate, simulateUsage } from './commands/simulate.ts';
 import { runSpectrum, spectrumUsage } from './commands/spectrum.ts';
+import { runStudyCommand, studyUsage } from './commands/study.ts';
 
 const commands: Record<string, { run: (argv: string[], io: CommandIo) => number | Promise<number>; usage: string }> = {
   spectrum: { run: runSpectrum, usage: spectrumUsage },
@@ -17,6 +18,7 @@ const commands: Record<string, { run: (argv: string[], io: CommandIo) => number 
   run: { run: runLive, usage: runUsage },
   replay: { run: runReplay, usage: replayUsage },
   export: { run: runExport, usage: exportUsage },
+  study: { run: runStudyCommand, usage: studyUsage },
 };
 
 const usage = `fringe: live monitoring and layer cutting for optical coating runs.
@@ -30,6 +32,7 @@ Commands:
   run --chamber F R   a live run on the chamber's instruments (--resume RUN after a crash)
   replay RUN          a recorded run through the controller again, cut by cut
   export RUN --csv    a run's readings and events as CSV
+  study RECIPE        many seeded simulated runs per cut strategy: errors against the plan's precision
 
 fringe is process control, not a safety system: interlocks, manual shutter controls and the
 equipment maker's instructions stay in charge.

@@ -15,7 +15,10 @@
  * crystal, a silent crystal to the clock, each with an alert.
  */
 import { stackThicknessNm, type CrystalLayer } from '../model/crystal/index.ts';
+import { createLayerFit, type LayerFit } from '../model/estimate/index.ts';
+import { buildChipMonitor } from '../model/plan/chip-monitor.ts';
 import { planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
+import { DEFAULT_PRIORS } from '../model/plan/precision.ts';
 import type { CutMode, ResolvedRecipe } from '../model/plan/recipe.ts';
 import { ALERTS, type AlertCode } from './codes.ts';
 import type { CutReason, RunEvent } from './events.ts';
@@ -56,6 +59,12 @@ export interface ControllerOptions {
   settleS: number;
   /** Re-plan the remaining layers after every layer (default true). */
   replan: boolean;
+  /**
+   * How optical layers are cut: `plain` (the rules above) or `fit` (the model fit of the whole
+   * layer's signal, src/model/estimate, on the crystal's thickness as its clock, cutting when the
+   * fitted thickness plus the shutter delay's growth reaches the target). Default `plain`.
+   */
+  estimator: 'plain' | 'fit';
 }
 
 export const DEFAULT_CONTROLLER_OPTIONS: ControllerOptions = {
@@ -71,6 +80,7 @@ export const DEFAULT_CONTROLLER_OPTIONS: ControllerOptions = {
   rateSmoothingS: 5,
   settleS: 1,
   replan: true,
+  estimator: 'plain',
 };
 
 export type Phase = 'ready' | 'depositing' | 'closing' | 'holding' | 'finished' | 'aborted';
@@ -125,6 +135,18 @@ export interface ControllerState {
   readonly lastOpticalS: number;
   readonly lastCrystalS: number;
   readonly layerCrystalNm: number;
+  /**
+   * The model fit of the layer in progress (estimator `fit`), or null. Its reading buffers are
+   * appended to in place — the one mutable part of the state, owned by the layer: a run, a replay
+   * and a simulation each make their own, and the reducer never branches on an old state.
+   */
+  readonly fit: FitRun | null;
+}
+
+interface FitRun {
+  readonly fit: LayerFit;
+  /** The fit's clock is the crystal's part thickness over the planned rate (s), or elapsed time. */
+  readonly clock: 'crystal' | 'time';
 }
 
 export interface StepResult {
@@ -175,6 +197,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       lastOpticalS: Number.NaN,
       lastCrystalS: Number.NaN,
       layerCrystalNm: Number.NaN,
+      fit: null,
     };
   }
 
@@ -213,6 +236,10 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
   }
 
   function onOptical(s: ControllerState, r: Reading): ControllerState {
+    if (s.fit && (s.phase === 'depositing' || s.phase === 'closing')) {
+      s.fit.fit.add(fitClock(s, r.timeS), r.value);
+      s.fit.fit.update();
+    }
     if (s.phase !== 'depositing') return withReading(s, r.timeS, r.timeS, s.lastCrystalS, s.optical, s.crystal, s.layerCrystalNm);
     const plan = layerPlan(s);
     const o = s.optical;
@@ -314,6 +341,23 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     }
 
     const armed = thickness >= opts.armFraction * layer.targetNm;
+    if (s.fit && (s.mode === 'level' || s.mode === 'turning-point')) {
+      if (s.fit.clock === 'crystal' && crystalSilent) {
+        // The fit's clock has stopped: the plain rule of the layer's mode carries on.
+        s = { ...s, fit: null };
+      } else {
+        // The fit's clock runs at the crystal rate over the planned one (1 on the time clock);
+        // cut at the reading nearest the right instant: up to half a reading interval early.
+        const clockRate = s.fit.clock === 'crystal' ? rate / layer.rateNmPerS : 1;
+        const cutClock = s.fit.fit.cutTimeS(plan.chipTargetNm, layer.shutterDelayS * clockRate);
+        const halfStep = (0.5 * clockRate) / recipe.monitor.sampleRateHz;
+        if (armed && fitClock(s, s.nowS) + halfStep >= cutClock) {
+          const est = s.fit.fit.estimate(cutClock + layer.shutterDelayS * clockRate);
+          return cut(s, events, 'model-fit', est.thicknessNm / layer.chipRatio, delayNm);
+        }
+        return s;
+      }
+    }
     switch (s.mode) {
       case 'level':
         if (armed && s.optical.beyond >= opts.debounceReadings) return cut(s, events, 'trigger-level', plan.targetNm, delayNm);
@@ -348,6 +392,16 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
 
   function finishLayer(s: ControllerState, events: RunEvent[], skipped: boolean): ControllerState {
     const layer = layerRecipe(s);
+    if (s.fit && !skipped && Number.isFinite(s.cutAtS)) {
+      // Refit with every reading, those after the shutter closed included (d constant then).
+      const closeClock = fitClock(s, s.cutAtS + layer.shutterDelayS);
+      const final = s.fit.fit.finalThickness(closeClock);
+      if (Number.isFinite(final.thicknessNm)) {
+        const achievedNm = [...s.achievedNm];
+        achievedNm[s.index] = final.thicknessNm / layer.chipRatio;
+        s = { ...s, achievedNm };
+      }
+    }
     const estimatedNm = s.achievedNm[s.index] ?? 0;
     const crystalNm = Number.isFinite(s.layerCrystalNm) ? s.layerCrystalNm : 0;
     const crystalBelow = [...s.crystalBelow, { thicknessNm: crystalNm, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio }];
@@ -377,6 +431,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const plan = layerPlan(s);
     events.push({ type: 'layer-started', timeS: s.nowS, layer: layer.number, material: layer.materialName, cut: plan.cut, targetNm: layer.targetNm });
     events.push({ type: 'shutter', timeS: s.nowS, command: shutter('open', layer.materialName, layer.number, s.nowS) });
+    const crystalAlive = s.nowS - s.lastCrystalS < opts.staleAfterS;
     return {
       ...s,
       phase: 'depositing',
@@ -389,7 +444,55 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       rateAlerted: false,
       crystalAlerted: false,
       layerCrystalNm: Number.NaN,
+      fit: opts.estimator === 'fit' && (plan.cut === 'level' || plan.cut === 'turning-point') ? startFit(s, crystalAlive ? 'crystal' : 'time') : null,
     };
+  }
+
+  /** A model fit for the layer about to start, on the chip as the estimates left it. */
+  function startFit(s: ControllerState, clock: 'crystal' | 'time'): FitRun {
+    const layer = layerRecipe(s);
+    const plan = layerPlan(s);
+    const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
+    const below = [];
+    for (let j = chip.fromLayer - 1; j < s.index; j++) {
+      const l = recipe.layers[j] as ResolvedRecipe['layers'][number];
+      below.push({ dispersion: l.dispersion, thicknessNm: (s.achievedNm[j] ?? l.targetNm) * l.chipRatio });
+    }
+    const monitor = buildChipMonitor({
+      incident: recipe.incident,
+      substrate: chip.substrate,
+      back: chip.back,
+      substrateThicknessNm: chip.thicknessMm * 1e6,
+      below,
+      growing: layer.dispersion,
+      wavelengthNm: layer.wavelengthNm,
+      bandwidthNm: layer.bandwidthNm,
+      angleDeg: layer.angleDeg,
+      signal: layer.signal,
+    });
+    const fit = createLayerFit({
+      monitor,
+      targetNm: plan.chipTargetNm,
+      rateNmPerS: layer.rateNmPerS * layer.chipRatio,
+      rateSigmaFraction: DEFAULT_PRIORS.rateSigmaFraction,
+      gainSigma: DEFAULT_PRIORS.gainSigma,
+      offsetSigma: DEFAULT_PRIORS.offsetSigma,
+      noise,
+    });
+    return { fit, clock };
+  }
+
+  /** The fit's clock at run time t: crystal part thickness over the planned rate, or elapsed time. */
+  function fitClock(s: ControllerState, timeS: number): number {
+    const layer = layerRecipe(s);
+    if (s.fit?.clock !== 'crystal') return timeS - s.openedAtS;
+    const c = s.crystal;
+    if (!Number.isFinite(c.partNm)) return 0;
+    const rate = Number.isFinite(c.rateNmPerS) ? c.rateNmPerS : layer.rateNmPerS;
+    // Between crystal readings the thickness moves on at the crystal's rate (not after the close).
+    const closeS = Number.isFinite(s.cutAtS) ? s.cutAtS + layer.shutterDelayS : Number.POSITIVE_INFINITY;
+    const ahead = Math.max(0, Math.min(timeS, closeS) - c.lastS);
+    return (c.partNm + rate * ahead) / layer.rateNmPerS;
   }
 
   function operator(s: ControllerState, command: OperatorCommand, events: RunEvent[]): StepResult {
@@ -501,6 +604,7 @@ function withReading(
     lastOpticalS,
     lastCrystalS,
     layerCrystalNm,
+    fit: s.fit,
   };
 }
 

@@ -9,6 +9,7 @@ import type { CutMode } from '../model/plan/recipe.ts';
 export const EVENT_FORMAT_VERSION = 1;
 
 export type CutReason =
+  | 'model-fit'
   | 'trigger-level'
   | 'turning-point'
   | 'crystal-thickness'

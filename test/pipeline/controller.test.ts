@@ -210,3 +210,36 @@ describe('bad input and the operator', () => {
     }
   });
 });
+
+describe('the model-fit estimator', () => {
+  it('cuts every mirror layer within a small fraction of the plain rule’s error on the ideal chamber', () => {
+    // Exact rates and indices: the fit of the whole layer's signal (src/model/estimate) on the
+    // crystal's clock should land each layer within its planned precision (the fit's Cramér–Rao
+    // bound, 0.03–0.4 nm here) plus half a reading's growth, where the plain turning-point rule
+    // is late by nanometres (see the test above).
+    const plan = planRun(mirror, { suggest: 'none' });
+    const fit = runIdeal(mirror, createController(mirror, { estimator: 'fit' }), { noise: 0.001, seed: 4 });
+    const plain = runIdeal(mirror, createController(mirror), { noise: 0.001, seed: 4 });
+    expect(ofType(fit.events, 'cut').map((c) => c.reason)).toEqual(mirror.layers.map(() => 'model-fit'));
+    mirror.layers.forEach((layer, i) => {
+      const step = (layer.rateNmPerS / mirror.monitor.sampleRateHz) * 0.5;
+      const bound = plan.layers[i]?.precisionNm ?? Number.NaN;
+      expect(Math.abs((fit.trueNm[i] as number) - layer.targetNm), `layer ${layer.number}`).toBeLessThan(4 * bound + step);
+    });
+    const rms = (r: { trueNm: number[] }): number =>
+      Math.sqrt(mirror.layers.reduce((s, l, i) => s + ((r.trueNm[i] as number) - l.targetNm) ** 2, 0) / mirror.layers.length);
+    expect(rms(fit) * 10).toBeLessThan(rms(plain));
+    // The estimate handed to the re-plan is the refit after the close: within 4σ of the truth.
+    for (const f of ofType(fit.events, 'layer-finished')) {
+      const bound = plan.layers[f.layer - 1]?.precisionNm ?? Number.NaN;
+      expect(Math.abs(f.estimatedNm - (fit.trueNm[f.layer - 1] as number)), `layer ${f.layer}`).toBeLessThan(4 * bound);
+    }
+  });
+
+  it('keeps the plain rule when the crystal, its clock, goes quiet', () => {
+    const run = runIdeal(edge, createController(edge, { estimator: 'fit', replan: false }), { crystalSilentS: [150, 1e9], maxS: 400 });
+    const second = ofType(run.events, 'cut')[1];
+    expect(second?.layer).toBe(2);
+    expect(second?.reason).toBe('trigger-level');
+  });
+});

@@ -31,6 +31,7 @@ layer's true thickness and error and the true stack's spectrum against the desig
   --seed N              random seed; the same seed gives the same run (default 1)
   --speed X|max         run at X times real time, or as fast as possible (default max)
   --journal DIR         keep the run in DIR/<run id>/ (journal, summary)
+  --estimator fit|plain how optical layers are cut (default plain; fit: the model fit)
   --json                print one object with a "layers" array and a "spectrum" block
   --materials FILE      material library (default: the shipped config/materials.yaml)
 
@@ -77,6 +78,7 @@ export async function runSimulate(argv: string[], io: CommandIo): Promise<number
       json: { type: 'boolean' },
       materials: { type: 'string' },
       serve: { type: 'boolean' },
+      estimator: { type: 'string' },
       pty: { type: 'string' },
       tcp: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
@@ -93,12 +95,14 @@ export async function runSimulate(argv: string[], io: CommandIo): Promise<number
   const speed = speedText === 'max' ? Number.POSITIVE_INFINITY : (numberOption('speed', speedText) ?? Number.NaN);
   if (!(speed > 0)) throw new CliError(`--speed must be a positive number or "max", got "${speedText}"`);
 
+  const estimator = values.estimator ?? 'plain';
+  if (estimator !== 'plain' && estimator !== 'fit') throw new CliError(`--estimator must be fit or plain, got "${estimator}"`);
   const recipe = loadRecipe(positionals[0] as string, loadMaterialLibrary(values.materials));
   const profileFile = values.profile ?? DEFAULT_PROFILE;
   const profile = loadSimProfile(profileFile);
   if (values.serve) return serve(recipe, profile, seed, Number.isFinite(speed) ? speed : 1, values, io);
   if (values.pty !== undefined || values.tcp !== undefined) throw new CliError('--pty and --tcp go with --serve');
-  const report = await simulateRun(recipe, { profile, profileName: profileFile, seed, speed, journalDir: values.journal, io });
+  const report = await simulateRun(recipe, { profile, profileName: profileFile, seed, speed, journalDir: values.journal, io, estimator });
   io.out(values.json ? JSON.stringify(report) : formatReport(report));
   return report.outcome === 'complete' ? 0 : 1;
 }
@@ -146,12 +150,13 @@ export interface SimulateOptions {
   io?: CommandIo;
   /** Whether to draw a progress bar (default: stderr is a terminal). */
   progress?: boolean;
+  estimator?: 'plain' | 'fit';
 }
 
 /** One whole simulated run; pure apart from the optional journal and progress output. */
 export async function simulateRun(recipe: ResolvedRecipe, options: SimulateOptions): Promise<SimulationReport> {
   const chamber = createVirtualChamber(recipe, options.profile, options.seed);
-  const controller = createController(recipe);
+  const controller = createController(recipe, { estimator: options.estimator ?? 'plain' });
   const events: RunEvent[] = [];
   let journal: JournalWriter | undefined;
   if (options.journalDir !== undefined) {

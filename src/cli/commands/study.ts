@@ -1,0 +1,121 @@
+/**
+ * `fringe study RECIPE`: many seeded simulated runs per strategy, in worker threads, and per
+ * layer the RMS and worst thickness errors beside the plan's precision, plus the spread of the
+ * final spectra against the design.
+ */
+import { fileURLToPath } from 'node:url';
+import { parseArgs } from 'node:util';
+import { loadSimProfile } from '../../../sim/index.ts';
+import { loadMaterialLibrary } from '../../config/load-design.ts';
+import { loadRecipe } from '../../config/load-recipe.ts';
+import { renderLineChart } from '../../report/index.ts';
+import { STRATEGIES } from '../../study/study-run.ts';
+import { runStudy, type StudyReport } from '../../study/study.ts';
+import { CliError, numberOption, writeOutputFile } from '../cli-error.ts';
+import type { CommandIo } from '../command-io.ts';
+
+const DEFAULT_PROFILE = fileURLToPath(new URL('../../../config/sim/typical.yaml', import.meta.url));
+
+export const studyUsage = `Usage: fringe study RECIPE [options]
+
+Runs the recipe many times on the virtual chamber, the same seeds for every strategy, and
+reports per layer the RMS and worst thickness error (% of target) beside the plan's precision,
+and the final spectrum's deviation from the design.
+
+  --profile FILE        simulator profile (default: config/sim/typical.yaml)
+  --runs N              runs per strategy (default 50)
+  --strategies a,b,...  from: ${Object.keys(STRATEGIES).join(', ')} (default plain,fit)
+  --seed N              first seed (default 1)
+  --workers N           worker threads (default: the machine's cores)
+  --json                print the whole study as one object
+  --plot FILE.svg       draw each strategy's RMS error per layer against the plan's precision
+  --materials FILE      material library (default: the shipped config/materials.yaml)
+`;
+
+export async function runStudyCommand(argv: string[], io: CommandIo): Promise<number> {
+  const { values, positionals } = parseArgs({
+    args: argv,
+    allowPositionals: true,
+    strict: true,
+    options: {
+      profile: { type: 'string' },
+      runs: { type: 'string' },
+      strategies: { type: 'string' },
+      seed: { type: 'string' },
+      workers: { type: 'string' },
+      json: { type: 'boolean' },
+      plot: { type: 'string' },
+      materials: { type: 'string' },
+      help: { type: 'boolean', short: 'h' },
+    },
+  });
+  if (values.help) {
+    io.out(studyUsage);
+    return 0;
+  }
+  if (positionals.length !== 1) throw new CliError('study needs exactly one RECIPE file (see fringe study --help)');
+  const runs = numberOption('runs', values.runs) ?? 50;
+  if (!Number.isInteger(runs) || runs < 1 || runs > 100_000) throw new CliError(`--runs must be a whole number from 1 to 100000, got ${runs}`);
+  const firstSeed = numberOption('seed', values.seed) ?? 1;
+  if (!Number.isInteger(firstSeed) || firstSeed < 0) throw new CliError(`--seed must be a whole number, got ${firstSeed}`);
+  const workers = numberOption('workers', values.workers);
+  if (workers !== undefined && (!Number.isInteger(workers) || workers < 1 || workers > 64)) throw new CliError(`--workers must be from 1 to 64, got ${workers}`);
+  const strategies = (values.strategies ?? 'plain,fit').split(',').map((s) => s.trim()).filter((s) => s !== '');
+  const unknown = strategies.filter((s) => !STRATEGIES[s]);
+  if (unknown.length > 0 || strategies.length === 0) {
+    throw new CliError(`unknown strategy ${unknown.map((u) => `"${u}"`).join(', ') || '(none given)'}; the strategies are ${Object.keys(STRATEGIES).join(', ')}`);
+  }
+  const recipe = loadRecipe(positionals[0] as string, loadMaterialLibrary(values.materials));
+  const profile = loadSimProfile(values.profile ?? DEFAULT_PROFILE);
+  const tty = process.stderr.isTTY;
+  const report = await runStudy(recipe, profile, {
+    runs,
+    strategies,
+    firstSeed,
+    ...(workers !== undefined ? { workers } : {}),
+    onProgress: (done, total) => {
+      if (tty) io.err(`\r[${'#'.repeat(Math.round((30 * done) / total)).padEnd(30, '.')}] ${done}/${total} runs`);
+    },
+  });
+  if (tty) process.stderr.write('\n');
+  if (values.plot) {
+    writeOutputFile(values.plot, plotStudy(report));
+    io.err(`wrote ${values.plot}`);
+  }
+  io.out(values.json ? JSON.stringify(report) : formatStudy(report));
+  return 0;
+}
+
+function formatStudy(r: StudyReport): string {
+  const rows = [`${r.recipe}: ${r.runs} runs per strategy (the same seeds for each)`, ''];
+  const header = [' #  material cut    plan ±%', ...r.strategies.map((s) => `${s.strategy.padStart(10)} rms% worst% n·d rms%`)].join(' ');
+  rows.push(header);
+  const first = r.strategies[0];
+  if (first) {
+    first.layers.forEach((layer, i) => {
+      const cells = r.strategies.map((s) => {
+        const l = s.layers[i];
+        return `${(l?.rmsPercent ?? Number.NaN).toFixed(3).padStart(15)} ${(l?.worstPercent ?? Number.NaN).toFixed(2).padStart(6)} ${(l?.opticalRmsPercent ?? Number.NaN).toFixed(3).padStart(8)}`;
+      });
+      rows.push(`${String(layer.number).padStart(2)}  ${layer.material.padEnd(8)} ${layer.cut.slice(0, 6).padEnd(6)} ${layer.plannedPercent.toFixed(3).padStart(7)} ${cells.join(' ')}`);
+    });
+  }
+  rows.push('');
+  for (const s of r.strategies) {
+    rows.push(
+      `${s.strategy}: rms ${s.rmsPercent.toFixed(3)} %, worst ${s.worstPercent.toFixed(2)} %, optical thickness rms ${s.opticalRmsPercent.toFixed(3)} %; spectrum max |ΔT| mean ${(100 * s.spectrum.meanMaxAbsT).toFixed(2)} pp, worst ${(100 * s.spectrum.worstMaxAbsT).toFixed(2)} pp, mean |ΔT| ${(100 * s.spectrum.meanMeanAbsT).toFixed(3)} pp${s.incomplete ? `; ${s.incomplete} runs incomplete` : ''}`,
+    );
+  }
+  return rows.join('\n');
+}
+
+function plotStudy(r: StudyReport): string {
+  const series = r.strategies.map((s) => ({ label: `${s.strategy}: RMS error`, x: s.layers.map((l) => l.number), y: s.layers.map((l) => l.rmsPercent) }));
+  const first = r.strategies[0];
+  if (first) series.push({ label: 'plan: expected precision', x: first.layers.map((l) => l.number), y: first.layers.map((l) => l.plannedPercent) });
+  return renderLineChart(series, {
+    title: `${r.recipe}: thickness error per layer, ${r.runs} runs per strategy`,
+    xLabel: 'Layer',
+    yLabel: 'RMS thickness error (% of target)',
+  });
+}

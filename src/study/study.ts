@@ -1,0 +1,132 @@
+/**
+ * The accuracy study: N seeded simulated runs per strategy, spread over worker threads, reduced
+ * to per-layer RMS and worst thickness errors beside the plan's predicted precision, and the
+ * final spectrum's deviation from the design.
+ */
+import { availableParallelism } from 'node:os';
+import { Worker } from 'node:worker_threads';
+import type { SimProfile } from '../../sim/index.ts';
+import { planRun } from '../model/plan/plan.ts';
+import type { ResolvedRecipe } from '../model/plan/recipe.ts';
+import { STRATEGIES, type StudyRunResult } from './study-run.ts';
+
+export interface StudyOptions {
+  runs: number;
+  strategies: readonly string[];
+  /** First seed (default 1): runs use seeds first … first + runs − 1, the same for every strategy. */
+  firstSeed?: number;
+  /** Worker threads (default: the machine's parallelism). */
+  workers?: number;
+  onProgress?: (done: number, total: number) => void;
+}
+
+export interface LayerStatistics {
+  number: number;
+  material: string;
+  cut: string;
+  rmsPercent: number;
+  worstPercent: number;
+  meanPercent: number;
+  /** RMS error of the optical thickness n·d at the monitor wavelength, %. */
+  opticalRmsPercent: number;
+  /** The plan's expected precision for the layer, % (the optical fit's bound, or the crystal's). */
+  plannedPercent: number;
+}
+
+export interface StrategyStatistics {
+  strategy: string;
+  runs: number;
+  incomplete: number;
+  layers: LayerStatistics[];
+  rmsPercent: number;
+  worstPercent: number;
+  opticalRmsPercent: number;
+  spectrum: { meanMaxAbsT: number; worstMaxAbsT: number; meanMeanAbsT: number };
+}
+
+export interface StudyReport {
+  recipe: string;
+  runs: number;
+  strategies: StrategyStatistics[];
+  results: StudyRunResult[];
+}
+
+export async function runStudy(recipe: ResolvedRecipe, profile: SimProfile, options: StudyOptions): Promise<StudyReport> {
+  for (const s of options.strategies) {
+    if (!STRATEGIES[s]) throw new Error(`unknown strategy "${s}"; the strategies are ${Object.keys(STRATEGIES).join(', ')}`);
+  }
+  const first = options.firstSeed ?? 1;
+  const tasks = options.strategies.flatMap((strategy) => Array.from({ length: options.runs }, (_, i) => ({ strategy, seed: first + i })));
+  const workers = Math.max(1, Math.min(options.workers ?? availableParallelism(), tasks.length));
+  const shares = Array.from({ length: workers }, (_, w) => tasks.filter((_, i) => i % workers === w));
+  const results: StudyRunResult[] = [];
+  await Promise.all(
+    shares.map(
+      (share) =>
+        new Promise<void>((resolve, reject) => {
+          const worker = new Worker(new URL('./study-worker.js', import.meta.url), { workerData: { recipe, profile, tasks: share } });
+          worker.on('message', (message: { ok: true; result: StudyRunResult } | { ok: false; message: string }) => {
+            if (!message.ok) {
+              reject(new Error(message.message));
+              void worker.terminate();
+              return;
+            }
+            results.push(message.result);
+            options.onProgress?.(results.length, tasks.length);
+          });
+          worker.once('error', reject);
+          worker.once('exit', (code) => (code === 0 ? resolve() : reject(new Error(`a study worker ended with code ${code}`))));
+        }),
+    ),
+  );
+  results.sort((a, b) => a.strategy.localeCompare(b.strategy) || a.seed - b.seed);
+  const plan = planRun(recipe, { suggest: 'none' });
+  return {
+    recipe: recipe.name,
+    runs: options.runs,
+    strategies: options.strategies.map((strategy) => summarise(recipe, plan.layers, strategy, results.filter((r) => r.strategy === strategy))),
+    results,
+  };
+}
+
+function summarise(
+  recipe: ResolvedRecipe,
+  planLayers: ReturnType<typeof planRun>['layers'],
+  strategy: string,
+  runs: StudyRunResult[],
+): StrategyStatistics {
+  const layers = recipe.layers.map((layer, i): LayerStatistics => {
+    const errors = runs.map((r) => r.errorPercent[i] as number);
+    const optical = runs.map((r) => r.opticalErrorPercent[i] as number);
+    return {
+      opticalRmsPercent: rms(optical),
+      number: layer.number,
+      material: layer.materialName,
+      cut: planLayers[i]?.cut ?? 'time',
+      rmsPercent: rms(errors),
+      worstPercent: Math.max(...errors.map(Math.abs)),
+      meanPercent: errors.reduce((s, e) => s + e, 0) / Math.max(1, errors.length),
+      plannedPercent: planLayers[i]?.precisionPercent ?? Number.NaN,
+    };
+  });
+  const all = runs.flatMap((r) => r.errorPercent);
+  const maxT = runs.map((r) => r.maxAbsT);
+  return {
+    strategy,
+    runs: runs.length,
+    incomplete: runs.filter((r) => !r.complete).length,
+    layers,
+    rmsPercent: rms(all),
+    worstPercent: Math.max(...all.map(Math.abs)),
+    opticalRmsPercent: rms(runs.flatMap((r) => r.opticalErrorPercent)),
+    spectrum: {
+      meanMaxAbsT: maxT.reduce((s, x) => s + x, 0) / Math.max(1, maxT.length),
+      worstMaxAbsT: Math.max(...maxT),
+      meanMeanAbsT: runs.reduce((s, r) => s + r.meanAbsT, 0) / Math.max(1, runs.length),
+    },
+  };
+}
+
+function rms(values: readonly number[]): number {
+  return Math.sqrt(values.reduce((s, v) => s + v * v, 0) / Math.max(1, values.length));
+}
