@@ -49,6 +49,7 @@ export {
   type ResolvedRetryOptions,
   type RetryOptions,
 } from './line-link.ts';
+export { createJournalSource, type JournalSourceOptions } from './journal-source.ts';
 export { createLineSource, type LineSource, type LineSourceOptions } from './line-source.ts';
 export {
   AckOptionsSchema,

@@ -50,3 +50,5 @@ export {
 } from './line-format.ts';
 export { createPtyPair, serveOnPty, serveOnStream, serveOnTcp } from './serve.ts';
 export type { PtyPair, ServedChamber, ServeOptions } from './serve.ts';
+export { createChamberSource } from './chamber-source.ts';
+export type { ChamberSourceOptions } from './chamber-source.ts';

@@ -37,24 +37,60 @@ export interface ReplayResult {
  * replayed controller's shutter commands — the chamber's response is what was recorded — so a
  * changed recipe shows where it would have cut on the same signal.
  */
-export function replayJournal(records: readonly JournalRecord[], controller: Controller): ReplayResult {
+export function replayJournal(records: readonly JournalRecord[], controller: Controller, onEvent?: (event: RunEvent) => void): ReplayResult {
+  const replay = createReplay(controller, onEvent);
+  for (const record of records) replay.feed(record);
+  return replay.result();
+}
+
+/**
+ * The same, paced: each input is fed when `speed` × the wall time since the start has reached
+ * its recorded time (the dashboard watches a replay as it would a run).
+ */
+export async function replayJournalPaced(
+  records: readonly JournalRecord[],
+  controller: Controller,
+  speed: number,
+  onEvent?: (event: RunEvent) => void,
+): Promise<ReplayResult> {
+  const replay = createReplay(controller, onEvent);
+  const startMs = performance.now();
+  let origin: number | undefined;
+  for (const record of records) {
+    const t = record.k === 'e' ? undefined : record.t;
+    if (t !== undefined && Number.isFinite(t)) {
+      origin ??= t;
+      const waitMs = ((t - origin) / speed) * 1000 - (performance.now() - startMs);
+      if (waitMs > 5) await new Promise((resolve) => setTimeout(resolve, waitMs));
+    }
+    replay.feed(record);
+  }
+  return replay.result();
+}
+
+function createReplay(controller: Controller, onEvent?: (event: RunEvent) => void): { feed(record: JournalRecord): void; result(): ReplayResult } {
   let state = controller.initial();
   const events: RunEvent[] = [];
   const recordedEvents: RunEvent[] = [];
   let inputs = 0;
-  for (const record of records) {
-    if (record.k === 'e') {
-      recordedEvents.push(record.event);
-      continue;
-    }
-    const input = recordToInput(record);
-    if (!input) continue;
-    inputs++;
-    const result = controller.step(state, input);
-    state = result.state;
-    for (const e of result.events) events.push(e);
-  }
-  return { state, events, recordedEvents, cuts: compareCuts(recordedEvents, events), inputs, firstDifference: firstDifference(recordedEvents, events) };
+  return {
+    feed(record) {
+      if (record.k === 'e') {
+        recordedEvents.push(record.event);
+        return;
+      }
+      const input = recordToInput(record);
+      if (!input) return;
+      inputs++;
+      const step = controller.step(state, input);
+      state = step.state;
+      for (const e of step.events) {
+        events.push(e);
+        onEvent?.(e);
+      }
+    },
+    result: () => ({ state, events, recordedEvents, cuts: compareCuts(recordedEvents, events), inputs, firstDifference: firstDifference(recordedEvents, events) }),
+  };
 }
 
 function compareCuts(recorded: readonly RunEvent[], replayed: readonly RunEvent[]): CutComparison[] {

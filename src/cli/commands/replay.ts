@@ -11,7 +11,7 @@ import { loadRecipe } from '../../config/load-recipe.ts';
 import { JournalError, readJournal } from '../../journal/journal-reader.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { createController } from '../../pipeline/controller.ts';
-import { replayJournal, type CutComparison } from '../../pipeline/replay.ts';
+import { replayJournal, replayJournalPaced, type CutComparison } from '../../pipeline/replay.ts';
 import { CliError } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 
@@ -21,11 +21,12 @@ Feeds a recorded run (a run folder, or its journal.ndjson) through the controlle
 every cut with the recorded one. With the recipe as run, every decision must come out the same.
 
   --recipe FILE         replay with this recipe instead of the one recorded with the run
+  --speed X|max         replay at X times the recorded pace, printing each cut as it comes (default max)
   --json                print the comparison as one object with a "layers" array
   --materials FILE      material library for --recipe (default: the shipped one)
 `;
 
-export function runReplay(argv: string[], io: CommandIo): number {
+export async function runReplay(argv: string[], io: CommandIo): Promise<number> {
   const { values, positionals } = parseArgs({
     args: argv,
     allowPositionals: true,
@@ -60,7 +61,15 @@ export function runReplay(argv: string[], io: CommandIo): number {
     if (!existsSync(recorded)) throw new CliError(`${dir} holds no recipe.json; give one with --recipe`, 1);
     recipe = JSON.parse(readFileSync(recorded, 'utf8')) as ResolvedRecipe;
   }
-  const result = replayJournal(journal.records, createController(recipe));
+  const speedText = values.speed ?? 'max';
+  const speed = speedText === 'max' ? Number.POSITIVE_INFINITY : Number(speedText);
+  if (!(speed > 0)) throw new CliError(`--speed must be a positive number or "max", got "${speedText}"`);
+  const controller = createController(recipe);
+  const result = Number.isFinite(speed)
+    ? await replayJournalPaced(journal.records, controller, speed, (e) => {
+        if (e.type === 'cut' && !values.json) io.out(`${e.timeS.toFixed(1).padStart(8)} s  layer ${e.layer} cut (${e.reason}), about ${e.estimatedNm.toFixed(2)} nm`);
+      })
+    : replayJournal(journal.records, controller);
   const differing = result.cuts.filter((c) => c.differs).length;
   if (values.json) {
     io.out(JSON.stringify({ run: journal.header.runId, recipe: recipe.name, truncated: journal.truncated, inputs: result.inputs, differing, layers: result.cuts, firstDifference: result.firstDifference }));

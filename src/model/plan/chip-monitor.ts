@@ -36,8 +36,8 @@ export interface ChipMonitor {
   readonly spec: ChipMonitorSpec;
 }
 
-/** Half-count of sub-wavelengths on each side of the centre (7 in all). */
-const HALF_SAMPLES = 3;
+/** Half-count of sub-wavelengths on each side of the centre (5 in all: a 2 nm band is smooth). */
+const HALF_SAMPLES = 2;
 
 /**
  * Sub-wavelengths and weights for a triangular pass band of full width at half maximum

@@ -1,0 +1,91 @@
+// The live wiring on virtual time: the virtual chamber in process as the reading source and the
+// shutter sink, the controller deciding, a whole run with no wall-clock waits; and a journal
+// played back as a source at its recorded pace.
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { Subject, VirtualTimeScheduler, toArray } from 'rxjs';
+import { describe, expect, it } from 'vitest';
+import { createJournalSource } from '../../drivers/index.ts';
+import { createChamberSource, createVirtualChamber, loadSimProfile } from '../../sim/index.ts';
+import { loadRecipe } from '../../src/config/load-recipe.ts';
+import type { JournalRecord } from '../../src/journal/journal-format.ts';
+import { createController } from '../../src/pipeline/controller.ts';
+import { createLiveRun } from '../../src/pipeline/live-run.ts';
+import type { Decision } from '../../src/pipeline/operators/index.ts';
+import type { OperatorAction, Reading, SourceStatus } from '../../src/pipeline/types.ts';
+
+const root = fileURLToPath(new URL('../../', import.meta.url));
+const recipe = loadRecipe(join(root, 'config/recipes/ar4-visible.yaml'));
+const profile = loadSimProfile(join(root, 'config/sim/typical.yaml'));
+
+describe('a live run on virtual time', () => {
+  it('runs the AR recipe to the end through the RxJS wiring, shutters answering', () => {
+    const scheduler = new VirtualTimeScheduler(undefined, 2_000_000);
+    const chamber = createVirtualChamber(recipe, profile, 9);
+    const source = createChamberSource(chamber, { speed: 1, scheduler });
+    const commands = new Subject<{ action: OperatorAction }>();
+    const live = createLiveRun({
+      controller: createController(recipe),
+      sources: [source],
+      shutter: source,
+      commands,
+      runClock: 'instrument',
+      clock: () => scheduler.now() / 1000,
+      scheduler,
+    });
+    const decisions: Decision[] = [];
+    const sub = live.decisions.subscribe((d) => {
+      decisions.push(d);
+      if (d.events.some((e) => e.type === 'run-finished')) source.stop();
+    });
+    commands.next({ action: 'start' });
+    scheduler.flush();
+    sub.unsubscribe();
+    const events = decisions.flatMap((d) => d.events);
+    expect(events.filter((e) => e.type === 'cut').map((e) => (e as { layer: number }).layer)).toEqual([1, 2, 3, 4]);
+    expect(events.at(-1)).toMatchObject({ type: 'run-finished', outcome: 'complete' });
+    // The shutter commands reached the chamber: every layer grew to about its target.
+    for (const layer of chamber.truth().layers) expect(Math.abs(layer.partNm / (recipe.layers[layer.number - 1]?.targetNm ?? 1) - 1)).toBeLessThan(0.35);
+  });
+});
+
+describe('a journal as a reading source', () => {
+  const records: JournalRecord[] = [
+    { k: 'r', c: 'o', t: 10, v: 0.5, a: 10 },
+    { k: 'e', event: { type: 'run-started', timeS: 10, layers: 1 } },
+    { k: 'r', c: 'x', t: 11, v: 5.9e6, a: 11 },
+    { k: 'i', t: 11.5, input: { kind: 'fault', channel: 'optical', code: 'garbled', line: 'x', offset: 0, arrivalS: 11.5 } },
+    { k: 'r', c: 'o', t: 12, v: 0.6, a: 12 },
+  ];
+
+  it('plays readings and faults at their recorded pace × speed, then ends', () => {
+    const scheduler = new VirtualTimeScheduler();
+    const source = createJournalSource(records, { speed: 2, scheduler });
+    const seen: { at: number; kind: string }[] = [];
+    const statuses: SourceStatus['state'][] = [];
+    source.status.subscribe((s) => statuses.push(s.state));
+    let completed = false;
+    source.readings.subscribe({ next: (r) => seen.push({ at: scheduler.now(), kind: r.kind }), complete: () => (completed = true) });
+    scheduler.flush();
+    // Recorded at 10, 11, 11.5 and 12 s: at twice the pace 0, 500, 750 and 1000 ms after the start.
+    expect(seen).toEqual([
+      { at: 0, kind: 'reading' },
+      { at: 500, kind: 'reading' },
+      { at: 750, kind: 'fault' },
+      { at: 1000, kind: 'reading' },
+    ]);
+    expect(completed).toBe(true);
+    expect(statuses).toEqual(['connecting', 'connected', 'lost']);
+  });
+
+  it('plays everything at once at infinite speed, and refuses a speed that is not positive', () => {
+    const scheduler = new VirtualTimeScheduler();
+    const values: Reading[] = [];
+    createJournalSource(records, { speed: Number.POSITIVE_INFINITY, scheduler })
+      .readings.pipe(toArray())
+      .subscribe((all) => values.push(...(all as Reading[])));
+    scheduler.flush();
+    expect(values).toHaveLength(4);
+    expect(() => createJournalSource(records, { speed: 0 })).toThrow(/speed must be positive/);
+  });
+});
