@@ -4,6 +4,7 @@ import { OpticalModelError } from '../model/optics/optical-model.ts';
 import { CliError } from './cli-error.ts';
 import { processIo, type CommandIo } from './command-io.ts';
 import { planUsage, runPlan } from './commands/plan.ts';
+import { demoUsage, runDemo } from './commands/demo.ts';
 import { exportUsage, runExport } from './commands/export.ts';
 import { replayUsage, runReplay } from './commands/replay.ts';
 import { runLive, runUsage } from './commands/run.ts';
@@ -19,6 +20,7 @@ const commands: Record<string, { run: (argv: string[], io: CommandIo) => number 
   replay: { run: runReplay, usage: replayUsage },
   export: { run: runExport, usage: exportUsage },
   study: { run: runStudyCommand, usage: studyUsage },
+  demo: { run: runDemo, usage: demoUsage },
 };
 
 const usage = `fringe: live monitoring and layer cutting for optical coating runs.
@@ -33,6 +35,7 @@ Commands:
   replay RUN          a recorded run through the controller again, cut by cut
   export RUN --csv    a run's readings and events as CSV
   study RECIPE        many seeded simulated runs per cut strategy: errors against the plan's precision
+  demo                a simulated run with the live dashboard on http://127.0.0.1:7300
 
 fringe is process control, not a safety system: interlocks, manual shutter controls and the
 equipment maker's instructions stay in charge.

@@ -1,0 +1,133 @@
+/**
+ * `fringe demo`: a simulated run of the shipped edge filter on the virtual chamber, paced at a
+ * brisk multiple of real time, with the live dashboard served on 127.0.0.1. The run is recorded
+ * in the runs folder like any other; the server keeps serving after it ends, until interrupted.
+ */
+import { fileURLToPath } from 'node:url';
+import { parseArgs } from 'node:util';
+import { loadSimProfile } from '../../../sim/index.ts';
+import { loadMaterialLibrary } from '../../config/load-design.ts';
+import { loadRecipe } from '../../config/load-recipe.ts';
+import { generateToken, isLoopback } from '../../server/auth.ts';
+import { buildServer } from '../../server/build-server.ts';
+import { startSimulatedRun } from '../../server/simulated-run.ts';
+import { CliError, numberOption } from '../cli-error.ts';
+import type { CommandIo } from '../command-io.ts';
+import { DEFAULT_PROFILE } from './simulate.ts';
+
+export const DEFAULT_DEMO_RECIPE = fileURLToPath(new URL('../../../config/recipes/edge-longpass-visible.yaml', import.meta.url));
+
+export const demoUsage = `Usage: fringe demo [options]
+
+Runs a simulated coating run on the virtual chamber and serves the live dashboard: the trace of
+every layer against its prediction, the stack, the crystal, the outcome spectrum and the log,
+with the controls. The run is kept in the runs folder; the server stays up after it ends
+(Ctrl-C stops it).
+
+  --recipe FILE         recipe to run (default: config/recipes/edge-longpass-visible.yaml)
+  --profile FILE        simulator profile (default: config/sim/typical.yaml)
+  --seed N              random seed (default 1)
+  --speed X             run at X times real time (default 60)
+  --port N              port to listen on (default 7300; 0 picks a free one)
+  --host ADDRESS        address to bind (default 127.0.0.1); anything wider needs a viewer token
+  --runs DIR            runs folder: where this run is kept and past runs are listed (default runs)
+  --materials FILE      material library (default: the shipped config/materials.yaml)
+
+A command token is made at start and printed once: enter it on the dashboard to use the controls.
+`;
+
+export interface DemoHooks {
+  /** Stops the server (and the run) when aborted; otherwise SIGINT and SIGTERM do. */
+  signal?: AbortSignal;
+  /** Called once listening, with the address. */
+  onListening?: (info: { url: string; token: string; viewerToken: string | undefined }) => void;
+}
+
+export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = {}): Promise<number> {
+  const { values, positionals } = parseArgs({
+    args: argv,
+    allowPositionals: true,
+    strict: true,
+    options: {
+      recipe: { type: 'string' },
+      profile: { type: 'string' },
+      seed: { type: 'string' },
+      speed: { type: 'string' },
+      port: { type: 'string' },
+      host: { type: 'string' },
+      runs: { type: 'string' },
+      materials: { type: 'string' },
+      help: { type: 'boolean', short: 'h' },
+    },
+  });
+  if (values.help) {
+    io.out(demoUsage);
+    return 0;
+  }
+  if (positionals.length > 0) throw new CliError(`demo takes no positional arguments, got "${positionals[0]}" (see fringe demo --help)`);
+  const speed = numberOption('speed', values.speed) ?? 60;
+  if (!(speed > 0) || speed > 100000) throw new CliError(`--speed must be a positive number up to 100000, got ${speed}`);
+  const port = numberOption('port', values.port) ?? 7300;
+  if (!Number.isInteger(port) || port < 0 || port > 65535) throw new CliError(`--port must be a whole number from 0 to 65535, got ${port}`);
+  const seed = numberOption('seed', values.seed) ?? 1;
+  if (!Number.isInteger(seed) || seed < 0 || seed > 2 ** 32 - 1) throw new CliError(`--seed must be a whole number from 0 to 4294967295, got ${seed}`);
+  const host = values.host ?? '127.0.0.1';
+  const runsDir = values.runs ?? 'runs';
+
+  const recipe = loadRecipe(values.recipe ?? DEFAULT_DEMO_RECIPE, loadMaterialLibrary(values.materials));
+  const profileFile = values.profile ?? DEFAULT_PROFILE;
+  const profile = loadSimProfile(profileFile);
+
+  const token = generateToken();
+  const exposed = !isLoopback(host);
+  const viewerToken = exposed ? generateToken() : undefined;
+  const stop = new AbortController();
+  const simulated = startSimulatedRun({ recipe, profile, profileName: profileFile, seed, speed, journalDir: runsDir, signal: stop.signal });
+  const app = buildServer({ hub: simulated.hub, runsDir }, { token, viewerToken, host });
+
+  let address: string;
+  try {
+    address = await app.listen({ port, host });
+  } catch (error) {
+    stop.abort();
+    await simulated.done.catch(() => undefined);
+    throw new CliError(`cannot listen on ${host}:${port}: ${(error as Error).message}`, 1);
+  }
+  const url = `${address.replace('[::1]', 'localhost')}/`;
+  io.out(`fringe demo: "${recipe.name}" on the virtual chamber at ${speed}× real time (seed ${seed})`);
+  io.out(`dashboard: ${viewerToken ? `${url}?viewer=${viewerToken}` : url}`);
+  io.out(`command token (enter it on the dashboard to use the controls; it is shown only now): ${token}`);
+  if (exposed) {
+    io.err(
+      `fringe demo: warning: listening on ${host}, beyond this machine. Viewing needs the viewer token in the address above; ` +
+        'the command token controls the run: keep both to the people at the chamber.',
+    );
+  }
+  io.out(`run kept in ${simulated.dir ?? runsDir}`);
+  io.out("fringe is process control, not a safety system: interlocks, manual shutter controls and the equipment maker's instructions stay in charge.");
+  hooks.onListening?.({ url, token, viewerToken });
+
+  simulated.done.then(
+    (summary) => io.out(`run ${summary.outcome} after ${Math.round(summary.durationS)} s of run time; the dashboard stays up (Ctrl-C to stop)`),
+    (error: unknown) => io.err(`fringe demo: the simulated run failed: ${(error as Error).message}`),
+  );
+
+  await new Promise<void>((resolve) => {
+    const finish = (): void => {
+      process.off('SIGINT', finish);
+      process.off('SIGTERM', finish);
+      resolve();
+    };
+    if (hooks.signal) {
+      if (hooks.signal.aborted) finish();
+      else hooks.signal.addEventListener('abort', finish, { once: true });
+    } else {
+      process.once('SIGINT', finish);
+      process.once('SIGTERM', finish);
+    }
+  });
+  stop.abort();
+  await simulated.done.catch(() => undefined);
+  await app.close();
+  return 0;
+}

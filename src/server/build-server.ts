@@ -1,0 +1,124 @@
+/**
+ * The dashboard server: Fastify with four feature plugins (health, runs, commands, live) and
+ * the static page. `buildServer` returns the instance without listening; the entry point
+ * listens. It only observes the run and forwards operator commands to it.
+ */
+import { createRequire } from 'node:module';
+import { dirname } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import type { Writable } from 'node:stream';
+import fastifyStatic from '@fastify/static';
+import Fastify, { type FastifyInstance, type FastifyServerOptions } from 'fastify';
+import { isLoopback, redactUrl } from './auth.ts';
+import { commandsPlugin } from './plugins/commands.ts';
+import { healthPlugin } from './plugins/health.ts';
+import { livePlugin, type LiveOptions, type LiveStats } from './plugins/live.ts';
+import { runsPlugin } from './plugins/runs.ts';
+import type { RunHub } from './run-hub.ts';
+
+export interface ServerDeps {
+  /** The run on show (and the one commands go to). */
+  hub: RunHub;
+  /** Folder of past runs (`runs/<id>/`). */
+  runsDir: string;
+}
+
+export interface ServerOptions {
+  /** Bearer token required by every command. */
+  token: string;
+  /** When set, viewing (the API and the feeds, not the static page) requires it, or the command token. */
+  viewerToken?: string | undefined;
+  /** Where the server will be bound; wider than loopback is reported by `exposed`. */
+  host: string;
+  /** Fastify logging: off by default; `{ level, stream }` to capture. Tokens are never logged. */
+  logger?: boolean | { level?: string; stream?: Writable };
+  live?: Partial<LiveOptions>;
+}
+
+/** What every plugin sees, decorated once on the instance. */
+export interface ServerContext {
+  readonly hub: RunHub;
+  readonly runsDir: string;
+  readonly token: string;
+  readonly viewerToken: string | undefined;
+  readonly host: string;
+  /** True when bound beyond this machine. */
+  readonly exposed: boolean;
+  /** Counters of the live feed (kept by the live plugin). */
+  readonly liveStats: LiveStats;
+}
+
+declare module 'fastify' {
+  interface FastifyInstance {
+    fringe: ServerContext;
+  }
+}
+
+export const PUBLIC_DIR = fileURLToPath(new URL('./public/', import.meta.url));
+const UPLOT_DIR = dirname(createRequire(import.meta.url).resolve('uplot'));
+
+const CONTENT_SECURITY_POLICY = [
+  "default-src 'self'",
+  "script-src 'self'",
+  "style-src 'self'",
+  "img-src 'self' data:",
+  "connect-src 'self'",
+  "object-src 'none'",
+  "base-uri 'none'",
+  "frame-ancestors 'none'",
+].join('; ');
+
+export function buildServer(deps: ServerDeps, options: ServerOptions): FastifyInstance {
+  if (options.token.length < 16) throw new Error('options.token must be at least 16 characters');
+  if (options.viewerToken !== undefined && options.viewerToken.length < 16) throw new Error('options.viewerToken must be at least 16 characters');
+  const app = Fastify({
+    logger: loggerOptions(options.logger),
+    // Unknown keys in a body are refused, not silently dropped: a typo must fail.
+    ajv: { customOptions: { removeAdditional: false, allErrors: false } },
+    bodyLimit: 16 * 1024,
+    schemaErrorFormatter: (errors, dataVar) => {
+      const first = errors[0];
+      const params: Record<string, unknown> = first?.params ?? {};
+      const detail = typeof params.additionalProperty === 'string' ? `has an unknown property "${params.additionalProperty}"` : (first?.message ?? 'is not valid');
+      return new Error(`${dataVar}${first?.instancePath ?? ''} ${detail}`);
+    },
+  });
+  app.decorate('fringe', {
+    hub: deps.hub,
+    runsDir: deps.runsDir,
+    token: options.token,
+    viewerToken: options.viewerToken,
+    host: options.host,
+    exposed: !isLoopback(options.host),
+    liveStats: { clients: 0, replays: 0, dropped: 0, resyncs: 0 },
+  } satisfies ServerContext);
+
+  app.addHook('onSend', async (request, reply, payload) => {
+    reply.header('x-content-type-options', 'nosniff');
+    reply.header('referrer-policy', 'no-referrer');
+    if (!request.url.startsWith('/api/')) reply.header('content-security-policy', CONTENT_SECURITY_POLICY);
+    return payload;
+  });
+
+  void app.register(healthPlugin, { prefix: '/api' });
+  void app.register(runsPlugin, { prefix: '/api' });
+  void app.register(commandsPlugin, { prefix: '/api' });
+  void app.register(livePlugin, { prefix: '/api', ...options.live });
+  void app.register(fastifyStatic, { root: PUBLIC_DIR, prefix: '/', wildcard: false, index: 'index.html', cacheControl: false });
+  void app.register(fastifyStatic, { root: UPLOT_DIR, prefix: '/vendor/uplot/', wildcard: false, decorateReply: false, maxAge: '1h' });
+  return app;
+}
+
+function loggerOptions(logger: ServerOptions['logger']): NonNullable<FastifyServerOptions['logger']> {
+  if (logger === undefined || logger === false) return false;
+  const base = logger === true ? {} : logger;
+  return {
+    level: base.level ?? 'info',
+    ...(base.stream ? { stream: base.stream } : {}),
+    // The default request serializer logs the URL; mask a viewer token in it, and never log headers.
+    redact: { paths: ['req.headers.authorization', `req.headers["x-fringe-viewer"]`], censor: '[redacted]' },
+    serializers: {
+      req: (request: { method: string; url: string; ip: string }) => ({ method: request.method, url: redactUrl(request.url), remoteAddress: request.ip }),
+    },
+  };
+}

@@ -1,0 +1,128 @@
+// Numbers and words for the dashboard: units on every number, signals in percent, time as mm:ss.
+
+/** A value or an en dash when it is missing. */
+const ok = (x) => typeof x === 'number' && Number.isFinite(x);
+
+/** Seconds as mm:ss (h:mm:ss from an hour). */
+export function clock(seconds) {
+  if (!ok(seconds)) return '–';
+  const s = Math.max(0, Math.round(seconds));
+  const h = Math.floor(s / 3600);
+  const m = Math.floor((s % 3600) / 60);
+  const ss = String(s % 60).padStart(2, '0');
+  return h > 0 ? `${h}:${String(m).padStart(2, '0')}:${ss}` : `${String(m).padStart(2, '0')}:${ss}`;
+}
+
+export function nm(x, digits = 2) {
+  return ok(x) ? `${x.toFixed(digits)} nm` : '–';
+}
+
+/** A signal fraction as percent. */
+export function percent(fraction, digits = 2) {
+  return ok(fraction) ? `${(fraction * 100).toFixed(digits)} %` : '–';
+}
+
+export function rate(x) {
+  return ok(x) ? `${x.toFixed(3)} nm/s` : '–';
+}
+
+export function signed(x, digits, unit) {
+  if (!ok(x)) return '–';
+  const sign = x > 0 ? '+' : x < 0 ? '−' : '±';
+  return `${sign}${Math.abs(x).toFixed(digits)}${unit}`;
+}
+
+export function frequency(hz) {
+  return ok(hz) ? `${(hz / 1e6).toFixed(6)} MHz` : '–';
+}
+
+export function bytes(n) {
+  if (!ok(n)) return '–';
+  if (n < 1024) return `${n} B`;
+  if (n < 1024 * 1024) return `${(n / 1024).toFixed(0)} KiB`;
+  return `${(n / 1024 / 1024).toFixed(1)} MiB`;
+}
+
+export const PHASE_WORDS = {
+  connecting: 'Connecting',
+  offline: 'Not connected',
+  ready: 'Ready',
+  depositing: 'Depositing',
+  closing: 'Cutting',
+  holding: 'On hold',
+  finished: 'Run complete',
+  aborted: 'Aborted',
+};
+
+export const MODE_WORDS = {
+  'turning-point': 'turning point',
+  level: 'trigger level',
+  crystal: 'crystal',
+  time: 'time',
+};
+
+/** Short forms for the stack table. */
+export const MODE_SHORT = { 'turning-point': 'turn. pt', level: 'level', crystal: 'crystal', time: 'time' };
+export const REASON_SHORT = {
+  'trigger-level': '✓ level',
+  'turning-point': '✓ turn. pt',
+  'crystal-thickness': '✓ crystal',
+  time: '✓ time',
+  'thickness-ceiling': '! ceiling',
+  'time-ceiling': '! time ceiling',
+  operator: '✓ operator',
+  abort: '■ aborted',
+};
+
+export const REASON_WORDS = {
+  'trigger-level': 'trigger level',
+  'turning-point': 'turning point',
+  'crystal-thickness': 'crystal',
+  time: 'time',
+  'thickness-ceiling': 'thickness ceiling',
+  'time-ceiling': 'time ceiling',
+  operator: 'operator',
+  abort: 'abort',
+};
+
+export const SEVERITY_WORDS = { info: 'Note', warning: 'Warning', critical: 'Critical' };
+export const SEVERITY_MARKS = { info: '●', warning: '▲', critical: '■' };
+
+/** One log line for an event: a mark, the words, and the severity for alerts. */
+export function describeEvent(e) {
+  switch (e.type) {
+    case 'run-started':
+      return { mark: '▶', text: `Run started: ${e.layers} layers` };
+    case 'layer-started':
+      return { mark: '▶', text: `Layer ${e.layer} (${e.material}) started: target ${nm(e.targetNm)}, cut on ${MODE_WORDS[e.cut] ?? e.cut}` };
+    case 'shutter':
+      return { mark: e.command.action === 'open' ? '○' : '◌', text: `Shutter ${e.command.source} ${e.command.action === 'open' ? 'opened' : 'closed'} (layer ${e.command.layer})` };
+    case 'approaching-cut':
+      return { mark: '◆', text: `Layer ${e.layer}: cut expected in ${clock(e.expectedInS)}` };
+    case 'cut':
+      return {
+        mark: '✂',
+        text: `Layer ${e.layer} cut on ${REASON_WORDS[e.reason] ?? e.reason} at ≈ ${nm(e.estimatedNm)}${ok(e.signal) ? `, signal ${percent(e.signal)}` : ''}`,
+      };
+    case 'layer-finished':
+      return e.skipped
+        ? { mark: '⤼', text: `Layer ${e.layer} skipped at ≈ ${nm(e.estimatedNm)}` }
+        : { mark: '✓', text: `Layer ${e.layer} finished: ≈ ${nm(e.estimatedNm)}${ok(e.crystalNm) ? ` (crystal ${nm(e.crystalNm)})` : ''}` };
+    case 'mode-changed':
+      return { mark: '↪', text: `Layer ${e.layer}: cut mode ${MODE_WORDS[e.from] ?? e.from} → ${MODE_WORDS[e.to] ?? e.to}` };
+    case 'alert':
+      return { mark: SEVERITY_MARKS[e.severity] ?? '●', severity: e.severity, text: `${SEVERITY_WORDS[e.severity] ?? e.severity} ${e.id}: ${e.message}` };
+    case 'alert-acknowledged':
+      return { mark: '✓', text: `Alert ${e.id} acknowledged` };
+    case 'replanned':
+      return { mark: '↻', text: `Re-planned from layer ${e.fromLayer}` };
+    case 'held':
+      return { mark: '❚❚', text: `Layer ${e.layer} held: shutter closed` };
+    case 'resumed':
+      return { mark: '▶', text: `Layer ${e.layer} resumed` };
+    case 'run-finished':
+      return e.outcome === 'complete' ? { mark: '✓', text: 'Run complete' } : { mark: '■', severity: 'critical', text: 'Run aborted' };
+    default:
+      return { mark: '·', text: e.type };
+  }
+}

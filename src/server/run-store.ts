@@ -1,0 +1,112 @@
+/**
+ * The runs folder: `runs/<id>/` with `journal.ndjson` (first line the header), `summary.json`
+ * once the run has ended, and `recipe.json` (the recipe as run). Read-only here; a folder name
+ * is only ever used after it matched {@link RUN_ID_PATTERN}, so no request can leave the folder.
+ */
+import { closeSync, existsSync, openSync, readdirSync, readFileSync, readSync, statSync } from 'node:fs';
+import { join, resolve, sep } from 'node:path';
+import { parseRecord, type JournalHeader } from '../journal/journal-format.ts';
+
+/** Run ids are folder names: letters, digits, dot, dash and underscore, not starting with a dot. */
+export const RUN_ID_PATTERN = '^[A-Za-z0-9][A-Za-z0-9._-]{0,127}$';
+const RUN_ID = new RegExp(RUN_ID_PATTERN);
+
+export interface RunListing {
+  id: string;
+  recipe: string | null;
+  startedAt: string | null;
+  source: string | null;
+  /** From the summary; `in progress` while the run has none. */
+  outcome: string;
+  layers: number | null;
+  durationS: number | null;
+  /** Root-mean-square of the layers' estimated errors, % (null without a summary). */
+  rmsErrorPercent: number | null;
+  /** Simulated runs: root-mean-square of the layers' true errors, % (null otherwise). */
+  rmsTrueErrorPercent: number | null;
+  journalBytes: number;
+  replayable: boolean;
+}
+
+export interface RunFolder {
+  id: string;
+  dir: string;
+  journalFile: string;
+  summaryFile: string;
+  recipeFile: string;
+}
+
+/** The folder of run `id` when it exists and holds a journal, else null. */
+export function runFolder(runsDir: string, id: string): RunFolder | null {
+  if (!RUN_ID.test(id)) return null;
+  const root = resolve(runsDir);
+  const dir = resolve(root, id);
+  if (!dir.startsWith(root + sep)) return null;
+  const journalFile = join(dir, 'journal.ndjson');
+  if (!existsSync(journalFile)) return null;
+  return { id, dir, journalFile, summaryFile: join(dir, 'summary.json'), recipeFile: join(dir, 'recipe.json') };
+}
+
+/** The journal's first line, read without loading the file. */
+export function readJournalHeader(file: string): JournalHeader | null {
+  let fd: number | undefined;
+  try {
+    fd = openSync(file, 'r');
+    const buffer = Buffer.alloc(16384);
+    const n = readSync(fd, buffer, 0, buffer.length, 0);
+    const text = buffer.subarray(0, n).toString('utf8');
+    const end = text.indexOf('\n');
+    if (end < 0) return null;
+    const header = parseRecord(text.slice(0, end)) as Partial<JournalHeader> | null;
+    return header && header.journal === 'fringe' ? (header as JournalHeader) : null;
+  } catch {
+    return null;
+  } finally {
+    if (fd !== undefined) closeSync(fd);
+  }
+}
+
+export function readSummary(folder: RunFolder): Record<string, unknown> | null {
+  try {
+    const value = JSON.parse(readFileSync(folder.summaryFile, 'utf8')) as unknown;
+    return value !== null && typeof value === 'object' && !Array.isArray(value) ? (value as Record<string, unknown>) : null;
+  } catch {
+    return null;
+  }
+}
+
+/** Every run in `runsDir`, newest first. A missing folder is an empty list. */
+export function listRuns(runsDir: string): RunListing[] {
+  let names: string[];
+  try {
+    names = readdirSync(runsDir);
+  } catch {
+    return [];
+  }
+  const out: RunListing[] = [];
+  for (const name of names) {
+    const folder = runFolder(runsDir, name);
+    if (!folder) continue;
+    const header = readJournalHeader(folder.journalFile);
+    const summary = readSummary(folder);
+    const layers = Array.isArray(summary?.layers) ? (summary.layers as Record<string, unknown>[]) : null;
+    const rms = (key: string): number | null => {
+      const values = (layers ?? []).map((l) => l[key]).filter((e): e is number => typeof e === 'number' && Number.isFinite(e));
+      return values.length > 0 ? Math.sqrt(values.reduce((s, e) => s + e * e, 0) / values.length) : null;
+    };
+    out.push({
+      id: name,
+      recipe: typeof summary?.recipe === 'string' ? summary.recipe : (header?.recipe ?? null),
+      startedAt: header?.startedAt ?? null,
+      source: typeof header?.meta.source === 'string' ? header.meta.source : null,
+      outcome: typeof summary?.outcome === 'string' ? summary.outcome : 'in progress',
+      layers: layers ? layers.length : null,
+      durationS: typeof summary?.durationS === 'number' ? summary.durationS : null,
+      rmsErrorPercent: rms('errorPercent'),
+      rmsTrueErrorPercent: rms('trueErrorPercent'),
+      journalBytes: statSync(folder.journalFile).size,
+      replayable: existsSync(folder.recipeFile),
+    });
+  }
+  return out.sort((a, b) => (b.startedAt ?? b.id).localeCompare(a.startedAt ?? a.id));
+}

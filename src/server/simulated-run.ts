@@ -1,0 +1,104 @@
+/**
+ * A run on the virtual chamber behind a run hub, paced at a multiple of real time, optionally
+ * recorded to `runs/<id>/` (journal, recipe as run, summary) like any other run.
+ */
+import { randomUUID } from 'node:crypto';
+import { join } from 'node:path';
+import { createVirtualChamber, type SimProfile } from '../../sim/index.ts';
+import { createJournalWriter, type JournalWriter } from '../journal/journal-writer.ts';
+import type { ResolvedRecipe } from '../model/plan/recipe.ts';
+import { createController, type ControllerOptions } from '../pipeline/controller.ts';
+import { createSteppedRun, runPaced, type SteppedRun } from '../pipeline/run-stepped.ts';
+import { createRunHub, type RunHub, type RunHubOptions } from './run-hub.ts';
+import { buildRunSummary, type RunSummary } from './run-summary.ts';
+
+export interface SimulatedRunOptions {
+  recipe: ResolvedRecipe;
+  profile: SimProfile;
+  /** Name of the profile for the journal (a file name). */
+  profileName?: string;
+  seed: number;
+  /** Multiple of real time (Infinity: as fast as the CPU allows). */
+  speed: number;
+  /** Record the run in `<journalDir>/<run id>/`. */
+  journalDir?: string;
+  /** Stops the run early (the summary then says `incomplete`). */
+  signal?: AbortSignal;
+  controller?: Partial<ControllerOptions>;
+  hub?: Pick<RunHubOptions, 'pointsPerS' | 'maxTracePoints' | 'maxRatePoints' | 'maxLog'>;
+  /** Run-time chunk between yields to the event loop, s (default: runPaced's). */
+  chunkS?: number;
+}
+
+export interface SimulatedRun {
+  readonly runId: string;
+  readonly hub: RunHub;
+  readonly run: SteppedRun;
+  /** The run's folder when recorded. */
+  readonly dir: string | null;
+  /** Resolves with the summary when the run has ended (finished, aborted, stopped). */
+  readonly done: Promise<RunSummary>;
+}
+
+export function newRunId(now: Date = new Date()): string {
+  return `${now.toISOString().replace(/[:.]/g, '-')}-${randomUUID().slice(0, 8)}`;
+}
+
+export function startSimulatedRun(options: SimulatedRunOptions): SimulatedRun {
+  const { recipe } = options;
+  const runId = newRunId();
+  const chamber = createVirtualChamber(recipe, options.profile, options.seed);
+  const controller = createController(recipe, options.controller);
+  const hub = createRunHub({
+    ...options.hub,
+    recipe,
+    source: 'simulated',
+    runId,
+    speed: Number.isFinite(options.speed) ? options.speed : null,
+  });
+  let journal: JournalWriter | undefined;
+  if (options.journalDir !== undefined) {
+    journal = createJournalWriter(join(options.journalDir, runId), {
+      runId,
+      startedAt: new Date().toISOString(),
+      recipe: recipe.name,
+      meta: { source: 'simulator', seed: options.seed, profile: options.profileName ?? options.profile.name, speed: options.speed },
+    });
+    // The recipe as run, so that a replay needs nothing else.
+    journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
+  }
+  const run = createSteppedRun(controller, chamber, {
+    onInput: (input) => {
+      journal?.input(input);
+      hub.feed.input(input);
+    },
+    onEvent: (event) => {
+      journal?.event(event);
+      hub.feed.event(event);
+    },
+  });
+  hub.attach(run);
+
+  const finish = (): RunSummary => {
+    const summary = buildRunSummary(hub.snapshot(), hub.alertHistory(), {
+      runId,
+      source: 'simulator',
+      seed: options.seed,
+      profile: options.profileName ?? options.profile.name,
+      trueNm: chamber.truth().layers.map((l) => l.partNm),
+    });
+    if (journal) {
+      journal.writeFile('summary.json', `${JSON.stringify(summary, null, 2)}\n`);
+      journal.close();
+    }
+    return summary;
+  };
+  const done = runPaced(run, options.speed, {
+    ...(options.signal ? { signal: options.signal } : {}),
+    ...(options.chunkS !== undefined ? { chunkS: options.chunkS } : {}),
+  }).then(finish, (error: unknown) => {
+    journal?.close();
+    throw error;
+  });
+  return { runId, hub, run, dir: journal?.dir ?? null, done };
+}
