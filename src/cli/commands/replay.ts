@@ -4,7 +4,7 @@
  * did, flagging every difference.
  */
 import { existsSync, readFileSync, statSync } from 'node:fs';
-import { join } from 'node:path';
+import { basename, join } from 'node:path';
 import { parseArgs } from 'node:util';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
@@ -12,7 +12,9 @@ import { JournalError, readJournal } from '../../journal/journal-reader.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { createController } from '../../pipeline/controller.ts';
 import { replayJournal, replayJournalPaced, type CutComparison } from '../../pipeline/replay.ts';
+import { startJournalReplay } from '../../server/journal-run.ts';
 import { CliError } from '../cli-error.ts';
+import { serveDashboard } from '../serve-dashboard.ts';
 import type { CommandIo } from '../command-io.ts';
 
 export const replayUsage = `Usage: fringe replay RUN [options]
@@ -22,6 +24,7 @@ every cut with the recorded one. With the recipe as run, every decision must com
 
   --recipe FILE         replay with this recipe instead of the one recorded with the run
   --speed X|max         replay at X times the recorded pace, printing each cut as it comes (default max)
+  --serve               watch the replay on the dashboard (at --speed, default 60; --port N, default 7300)
   --json                print the comparison as one object with a "layers" array
   --materials FILE      material library for --recipe (default: the shipped one)
 `;
@@ -35,6 +38,9 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
       recipe: { type: 'string' },
       json: { type: 'boolean' },
       speed: { type: 'string' },
+      serve: { type: 'boolean' },
+      port: { type: 'string' },
+      host: { type: 'string' },
       materials: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
     },
@@ -60,6 +66,21 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
     const recorded = join(dir, 'recipe.json');
     if (!existsSync(recorded)) throw new CliError(`${dir} holds no recipe.json; give one with --recipe`, 1);
     recipe = JSON.parse(readFileSync(recorded, 'utf8')) as ResolvedRecipe;
+  }
+  if (values.serve) {
+    if (values.recipe) throw new CliError('--serve replays the run with its own recipe; drop --recipe');
+    const folder = { id: basename(dir), dir, journalFile, summaryFile: join(dir, 'summary.json'), recipeFile: join(dir, 'recipe.json') };
+    const speed = values.speed === undefined || values.speed === 'max' ? 60 : Number(values.speed);
+    if (!(speed > 0 && Number.isFinite(speed))) throw new CliError(`--speed must be a positive number with --serve, got "${values.speed}"`);
+    const replay = startJournalReplay(folder, speed);
+    const dashboard = await serveDashboard(replay.hub, join(dir, '..'), values, io);
+    io.out(`replaying ${folder.id} at ${speed}× on ${dashboard.url}; Ctrl-C ends`);
+    await new Promise<void>((resolve) => {
+      process.once('SIGINT', resolve);
+      process.once('SIGTERM', resolve);
+    });
+    await dashboard.close();
+    return 0;
   }
   const speedText = values.speed ?? 'max';
   const speed = speedText === 'max' ? Number.POSITIVE_INFINITY : Number(speedText);

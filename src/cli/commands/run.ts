@@ -18,7 +18,9 @@ import type { RunEvent } from '../../pipeline/events.ts';
 import { createLiveRun } from '../../pipeline/live-run.ts';
 import { replayJournal } from '../../pipeline/replay.ts';
 import type { OperatorAction, ReadingSource } from '../../pipeline/types.ts';
+import { createRunHub } from '../../server/run-hub.ts';
 import { CliError } from '../cli-error.ts';
+import { serveDashboard } from '../serve-dashboard.ts';
 import type { CommandIo } from '../command-io.ts';
 
 export const runUsage = `Usage: fringe run --chamber FILE RECIPE [options]
@@ -32,6 +34,7 @@ control, not a safety system: the manual shutter controls and interlocks stay in
   --runs DIR            where runs are kept (default: runs)
   --clock arrival|instrument   decide on the host's clock (default) or the readings' own
   --resume RUN          continue the run in RUN (a run folder) after a crash
+  --serve               serve the live dashboard on 127.0.0.1 (--port N, default 7300; --host wider warns)
   --materials FILE      material library (default: the shipped config/materials.yaml)
 `;
 
@@ -45,6 +48,9 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
       runs: { type: 'string' },
       clock: { type: 'string' },
       resume: { type: 'string' },
+      serve: { type: 'boolean' },
+      port: { type: 'string' },
+      host: { type: 'string' },
       materials: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
     },
@@ -118,14 +124,36 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
     io.out(`ALERT critical ${code}: ${message}`);
   });
 
+  // The dashboard sees the live run through a hub; its commands step the controller at once.
+  let lastState: ControllerState = resumeFrom ?? controller.initial();
+  const hub = values.serve ? createRunHub({ recipe, source: 'live', runId: runDir.split(/[\\/]/).pop() ?? null }) : undefined;
+  hub?.attach({
+    get state() {
+      return lastState;
+    },
+    get nowS() {
+      return Number.isFinite(lastState.nowS) ? lastState.nowS : 0;
+    },
+    get running() {
+      return lastState.phase !== 'finished' && lastState.phase !== 'aborted';
+    },
+    apply(input) {
+      if (input.kind === 'operator') commands.next(input.alertId === undefined ? { action: input.action } : { action: input.action, alertId: input.alertId });
+    },
+  });
+  const dashboard = hub ? await serveDashboard(hub, join(runDir, '..'), values, io) : undefined;
+
   let outcome: 'complete' | 'aborted' | undefined;
   let subscription: { unsubscribe(): void } | undefined;
   await new Promise<void>((resolve) => {
     subscription = live.decisions.subscribe({
       next(decision) {
         journal.input(decision.input);
+        hub?.feed.input(decision.input);
+        lastState = decision.state;
         for (const event of decision.events) {
           journal.event(event);
+          hub?.feed.event(event);
           if (event.type !== 'shutter' || event.command.action === 'close') io.out(describe(event));
           if (event.type === 'run-finished') {
             outcome = event.outcome;
@@ -164,6 +192,7 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
   alertSub.unsubscribe();
   journal.close();
   await drivers.close();
+  await dashboard?.close();
   io.err(`journal: ${runDir}`);
   return outcome === 'complete' ? 0 : 1;
 }
