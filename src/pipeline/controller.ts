@@ -16,8 +16,7 @@
  */
 import { stackThicknessNm, type CrystalLayer } from '../model/crystal/index.ts';
 import { createLayerFit, type LayerFit } from '../model/estimate/index.ts';
-import { buildChipMonitor } from '../model/plan/chip-monitor.ts';
-import { planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
+import { chipMonitorFor, planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
 import { DEFAULT_PRIORS } from '../model/plan/precision.ts';
 import type { CutMode, ResolvedRecipe } from '../model/plan/recipe.ts';
 import { ALERTS, type AlertCode } from './codes.ts';
@@ -452,24 +451,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
   function startFit(s: ControllerState, clock: 'crystal' | 'time'): FitRun {
     const layer = layerRecipe(s);
     const plan = layerPlan(s);
-    const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
-    const below = [];
-    for (let j = chip.fromLayer - 1; j < s.index; j++) {
-      const l = recipe.layers[j] as ResolvedRecipe['layers'][number];
-      below.push({ dispersion: l.dispersion, thicknessNm: (s.achievedNm[j] ?? l.targetNm) * l.chipRatio });
-    }
-    const monitor = buildChipMonitor({
-      incident: recipe.incident,
-      substrate: chip.substrate,
-      back: chip.back,
-      substrateThicknessNm: chip.thicknessMm * 1e6,
-      below,
-      growing: layer.dispersion,
-      wavelengthNm: layer.wavelengthNm,
-      bandwidthNm: layer.bandwidthNm,
-      angleDeg: layer.angleDeg,
-      signal: layer.signal,
-    });
+    const monitor = chipMonitorFor(recipe, s.index, s.achievedNm);
     const fit = createLayerFit({
       monitor,
       targetNm: plan.chipTargetNm,

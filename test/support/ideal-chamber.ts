@@ -4,7 +4,8 @@
  * (The physically modelled chamber lives in sim/; this one keeps the reducer's tests free of it.)
  */
 import { stackFrequencyHz, type CrystalLayer } from '../../src/model/crystal/index.ts';
-import { buildChipMonitor, type ChipMonitor } from '../../src/model/plan/chip-monitor.ts';
+import type { ChipMonitor } from '../../src/model/plan/chip-monitor.ts';
+import { chipMonitorFor } from '../../src/model/plan/plan.ts';
 import type { ResolvedRecipe } from '../../src/model/plan/recipe.ts';
 import type { Controller, ControllerState } from '../../src/pipeline/controller.ts';
 import type { RunEvent } from '../../src/pipeline/events.ts';
@@ -67,7 +68,7 @@ export function runIdeal(recipe: ResolvedRecipe, controller: Controller, options
       if (e.command.action === 'open') {
         if (current !== e.command.layer - 1) {
           current = e.command.layer - 1;
-          monitor = monitorFor(recipe, current, trueNm);
+          monitor = chipMonitorFor(recipe, current, trueNm);
           crystal.push({ thicknessNm: 0, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio });
         }
         open = true;
@@ -104,26 +105,4 @@ export function runIdeal(recipe: ResolvedRecipe, controller: Controller, options
     }
   }
   return { events, state, trueNm };
-}
-
-function monitorFor(recipe: ResolvedRecipe, index: number, trueNm: number[]): ChipMonitor {
-  const layer = recipe.layers[index] as ResolvedRecipe['layers'][number];
-  const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
-  const below = [];
-  for (let j = chip.fromLayer - 1; j < index; j++) {
-    const l = recipe.layers[j] as ResolvedRecipe['layers'][number];
-    below.push({ dispersion: l.dispersion, thicknessNm: (trueNm[j] as number) * l.chipRatio });
-  }
-  return buildChipMonitor({
-    incident: recipe.incident,
-    substrate: chip.substrate,
-    back: chip.back,
-    substrateThicknessNm: chip.thicknessMm * 1e6,
-    below,
-    growing: layer.dispersion,
-    wavelengthNm: layer.wavelengthNm,
-    bandwidthNm: layer.bandwidthNm,
-    angleDeg: layer.angleDeg,
-    signal: layer.signal,
-  });
 }

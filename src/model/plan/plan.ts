@@ -155,22 +155,7 @@ export function planRun(recipe: ResolvedRecipe, options: PlanOptions = {}): RunP
   for (const layer of planned) {
     const i = layer.number - 1;
     const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
-    const below = [];
-    for (let j = chip.fromLayer - 1; j < i; j++) {
-      below.push({ dispersion: (recipe.layers[j] as LayerRecipe).dispersion, thicknessNm: chipNm[j] as number });
-    }
-    const monitor = buildChipMonitor({
-      incident: recipe.incident,
-      substrate: chip.substrate,
-      back: chip.back,
-      substrateThicknessNm: chip.thicknessMm * 1e6,
-      below,
-      growing: layer.dispersion,
-      wavelengthNm: layer.wavelengthNm,
-      bandwidthNm: layer.bandwidthNm,
-      angleDeg: layer.angleDeg,
-      signal: layer.signal,
-    });
+    const monitor = chipMonitorFor(recipe, i, partNm);
     const target = chipNm[i] as number;
     const intervals = Math.max(2, Math.ceil(target / curveStep));
     const step = target / intervals;
@@ -210,6 +195,32 @@ export function planRun(recipe: ResolvedRecipe, options: PlanOptions = {}): RunP
     sampleRateHz,
     ...(wholeRun ? { wholeRun: { changes: wholeRun.changes, wavelengthsNm: wholeRun.wavelengthsNm } } : {}),
   };
+}
+
+/**
+ * The optical monitor's view of layer `index` (0-based) on its chip, with the chip's earlier
+ * layers at the part thicknesses `partNm` (× their chip ratios).
+ */
+export function chipMonitorFor(recipe: ResolvedRecipe, index: number, partNm: readonly number[]): ChipMonitor {
+  const layer = recipe.layers[index] as LayerRecipe;
+  const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
+  const below = [];
+  for (let j = chip.fromLayer - 1; j < index; j++) {
+    const l = recipe.layers[j] as LayerRecipe;
+    below.push({ dispersion: l.dispersion, thicknessNm: (partNm[j] ?? l.targetNm) * l.chipRatio });
+  }
+  return buildChipMonitor({
+    incident: recipe.incident,
+    substrate: chip.substrate,
+    back: chip.back,
+    substrateThicknessNm: chip.thicknessMm * 1e6,
+    below,
+    growing: layer.dispersion,
+    wavelengthNm: layer.wavelengthNm,
+    bandwidthNm: layer.bandwidthNm,
+    angleDeg: layer.angleDeg,
+    signal: layer.signal,
+  });
 }
 
 function crystalLayer(layer: LayerRecipe, partNm: number): CrystalLayer {
