@@ -38,6 +38,7 @@ import { stackFrequencyHz, crystalLifeUsed, type CrystalLayer } from '../src/mod
 import { indexAt, type Dispersion } from '../src/model/optics/dispersion.ts';
 import { buildChipMonitor, type ChipMonitor } from '../src/model/plan/chip-monitor.ts';
 import type { LayerRecipe, ResolvedRecipe } from '../src/model/plan/recipe.ts';
+import type { StackSpec } from '../src/model/optics/optical-model.ts';
 import type { Reading, ShutterAck, ShutterCommand } from '../src/pipeline/types.ts';
 import { materialSettingsFor, sourceSettingsFor, type SimProfile, type SourceSettings } from './profile.ts';
 import { createRandomStream, type RandomStream } from './random.ts';
@@ -715,4 +716,16 @@ class DropoutSchedule {
       .map((w) => [w[0], w[1]] as [number, number])
       .sort((a, b) => a[0] - b[0]);
   }
+}
+
+/** The stack as it was really deposited on the parts: the design's media, true indices and thicknesses. */
+export function trueStackSpec(recipe: ResolvedRecipe, truth: ChamberTruth): StackSpec {
+  const design = recipe.design.stack;
+  return {
+    ...design,
+    layers: design.layers.map((l, i) => ({
+      dispersion: truth.materials[(recipe.layers[i] as { materialName: string }).materialName]?.dispersion ?? l.dispersion,
+      thicknessNm: truth.layers[i]?.partNm ?? 0,
+    })),
+  };
 }

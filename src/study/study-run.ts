@@ -2,10 +2,9 @@
  * One seeded simulated run of a recipe with a cut strategy, reduced to what the accuracy study
  * keeps: each layer's thickness error and the spectrum's deviation from the design.
  */
-import { createVirtualChamber, type SimProfile } from '../../sim/index.ts';
+import { createVirtualChamber, trueStackSpec, type SimProfile } from '../../sim/index.ts';
 import { spectrumDeviation } from '../model/design/spectrum-deviation.ts';
 import { indexAt } from '../model/optics/dispersion.ts';
-import type { StackSpec } from '../model/optics/optical-model.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import { createController, type ControllerOptions } from '../pipeline/controller.ts';
 import { runStepped } from '../pipeline/run-stepped.ts';
@@ -60,13 +59,7 @@ export function runOne(recipe: ResolvedRecipe, profile: SimProfile, strategy: st
   const band = recipe.design.band;
   if (band) {
     const design = recipe.design.stack;
-    const deposited: StackSpec = {
-      ...design,
-      layers: design.layers.map((l, i) => ({
-        dispersion: truth.materials[(recipe.layers[i] as { materialName: string }).materialName]?.dispersion ?? l.dispersion,
-        thicknessNm: truth.layers[i]?.partNm ?? 0,
-      })),
-    };
+    const deposited = trueStackSpec(recipe, truth);
     deviation = spectrumDeviation(design, deposited, band, { stepNm: 2 });
   }
   return {

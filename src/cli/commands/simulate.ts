@@ -7,12 +7,11 @@ import { randomUUID } from 'node:crypto';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { parseArgs } from 'node:util';
-import { createPtyPair, createVirtualChamber, loadSimProfile, serveOnPty, serveOnTcp, type ChamberTruth } from '../../../sim/index.ts';
+import { createPtyPair, createVirtualChamber, loadSimProfile, serveOnPty, serveOnTcp, trueStackSpec, type ChamberTruth } from '../../../sim/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import { createJournalWriter, type JournalWriter } from '../../journal/journal-writer.ts';
 import { spectrumDeviation, type SpectrumDeviation } from '../../model/design/spectrum-deviation.ts';
-import type { StackSpec } from '../../model/optics/optical-model.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { createController } from '../../pipeline/controller.ts';
 import type { CutReason, RunEvent } from '../../pipeline/events.ts';
@@ -235,13 +234,7 @@ function buildReport(
   let spectrum: SimulationReport['spectrum'] = null;
   if (band) {
     const design = recipe.design.stack;
-    const deposited: StackSpec = {
-      ...design,
-      layers: design.layers.map((l, i) => ({
-        dispersion: truth.materials[(recipe.layers[i] as { materialName: string }).materialName]?.dispersion ?? l.dispersion,
-        thicknessNm: truth.layers[i]?.partNm ?? 0,
-      })),
-    };
+    const deposited = trueStackSpec(recipe, truth);
     const d = spectrumDeviation(design, deposited, band);
     spectrum = { fromNm: d.fromNm, toNm: d.toNm, stepNm: d.stepNm, maxAbsR: d.maxAbsR, meanAbsR: d.meanAbsR, maxAbsT: d.maxAbsT, meanAbsT: d.meanAbsT };
   }
