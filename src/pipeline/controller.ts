@@ -15,6 +15,7 @@
  * crystal, a silent crystal to the clock, each with an alert.
  */
 import { stackThicknessNm, type CrystalLayer } from '../model/crystal/index.ts';
+import { compensate } from '../model/design/compensate.ts';
 import { createLayerFit, type LayerFit } from '../model/estimate/index.ts';
 import { chipMonitorFor, planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
 import { DEFAULT_PRIORS } from '../model/plan/precision.ts';
@@ -140,6 +141,8 @@ export interface ControllerState {
    * and a simulation each make their own, and the reducer never branches on an old state.
    */
   readonly fit: FitRun | null;
+  /** Part thickness every layer is to reach: the design's, or as compensation re-optimised them. */
+  readonly targetsNm: readonly number[];
 }
 
 interface FitRun {
@@ -166,6 +169,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
   const opts: ControllerOptions = { ...DEFAULT_CONTROLLER_OPTIONS, ...options };
   const noise = recipe.monitor.noisePercent / 100;
   const f0 = recipe.crystal.bareFrequencyHz;
+  const compensation = recipe.compensation?.enabled ? recipe.compensation : undefined;
 
   /** A tenth of the planned swing, kept between confirmMinSigma·σ and confirmSigma·σ. */
   const confirmStep = (plan: LayerPlan | undefined): number =>
@@ -197,6 +201,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       lastCrystalS: Number.NaN,
       layerCrystalNm: Number.NaN,
       fit: null,
+      targetsNm: recipe.layers.map((l) => l.targetNm),
     };
   }
 
@@ -322,8 +327,8 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     }
 
     // Guard rails.
-    if (!crystalSilent && thickness > opts.thicknessCeiling * layer.targetNm) {
-      s = alert(s, events, 'thickness-ceiling', `${ALERTS['thickness-ceiling'].sentence} (${thickness.toFixed(1)} nm of ${layer.targetNm.toFixed(1)} nm)`);
+    if (!crystalSilent && thickness > opts.thicknessCeiling * plan.targetNm) {
+      s = alert(s, events, 'thickness-ceiling', `${ALERTS['thickness-ceiling'].sentence} (${thickness.toFixed(1)} nm of ${plan.targetNm.toFixed(1)} nm)`);
       return cut(s, events, 'thickness-ceiling', thickness + delayNm, delayNm);
     }
     if (elapsed > opts.timeCeiling * plan.durationS) {
@@ -332,14 +337,14 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     }
 
     if (!s.approachingSent) {
-      const expectedInS = (layer.targetNm - thickness) / rate - layer.shutterDelayS;
+      const expectedInS = (plan.targetNm - thickness) / rate - layer.shutterDelayS;
       if (expectedInS <= opts.approachingS) {
         events.push({ type: 'approaching-cut', timeS: s.nowS, layer: layer.number, expectedInS: Math.max(0, expectedInS) });
         s = { ...s, approachingSent: true };
       }
     }
 
-    const armed = thickness >= opts.armFraction * layer.targetNm;
+    const armed = thickness >= opts.armFraction * plan.targetNm;
     if (s.fit && (s.mode === 'level' || s.mode === 'turning-point')) {
       if (s.fit.clock === 'crystal' && crystalSilent) {
         // The fit's clock has stopped: the plain rule of the layer's mode carries on.
@@ -372,10 +377,10 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         return s;
       }
       case 'crystal':
-        if (!crystalSilent && thickness + delayNm >= layer.targetNm) return cut(s, events, 'crystal-thickness', thickness + delayNm, delayNm);
+        if (!crystalSilent && thickness + delayNm >= plan.targetNm) return cut(s, events, 'crystal-thickness', thickness + delayNm, delayNm);
         return s;
       case 'time':
-        if (elapsed + layer.shutterDelayS >= layer.targetNm / layer.rateNmPerS) {
+        if (elapsed + layer.shutterDelayS >= plan.targetNm / layer.rateNmPerS) {
           return cut(s, events, 'time', layer.rateNmPerS * (elapsed + layer.shutterDelayS), delayNm);
         }
         return s;
@@ -417,18 +422,48 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       events.push({ type: 'run-finished', timeS: s.nowS, outcome: 'complete' });
       return { ...next, phase: 'finished' };
     }
-    if (opts.replan) {
-      const plan = planRun(recipe, { achievedNm: next.achievedNm, suggest: 'none' });
+    if (compensation && recipe.design.band && s.index + 1 < recipe.layers.length) next = compensateRest(next, events);
+    if (opts.replan || compensation) {
+      const plan = planRun(withTargets(recipe, next.targetsNm), { achievedNm: next.achievedNm, suggest: 'none' });
       events.push({ type: 'replanned', timeS: s.nowS, fromLayer: plan.fromLayer, triggerSignals: plan.layers.map((l) => l.triggerSignal) });
       next = { ...next, plan };
     }
     return startLayer({ ...next, index: s.index + 1 }, events);
   }
 
+  /**
+   * Re-optimises the thicknesses of the layers still to come so that the finished stack's
+   * spectrum over the design band stays closest to the design's, the finished layers at their
+   * estimates (src/model/design/compensate.ts).
+   */
+  function compensateRest(s: ControllerState, events: RunEvent[]): ControllerState {
+    const band = recipe.design.band as { fromNm: number; toNm: number };
+    const fixed = s.index + 1;
+    const current = s.targetsNm.map((t, i) => (i < fixed ? (s.achievedNm[i] ?? t) : t));
+    const result = compensate(recipe.design.stack, current, fixed, {
+      fromNm: band.fromNm,
+      toNm: band.toNm,
+      quantity: compensation?.quantity ?? 'T',
+      boundsFraction: (compensation?.boundsPercent ?? 10) / 100,
+      stepNm: compensation?.stepNm ?? 5,
+    });
+    const targetsNm = Array.from(result.thicknessNm, (t, i) => (i < fixed ? (s.targetsNm[i] as number) : t));
+    events.push({
+      type: 'compensated',
+      timeS: s.nowS,
+      fromLayer: fixed + 1,
+      beforeNm: s.targetsNm.slice(fixed),
+      afterNm: targetsNm.slice(fixed),
+      rmsBefore: result.rmsBefore,
+      rmsAfter: result.rmsAfter,
+    });
+    return { ...s, targetsNm };
+  }
+
   function startLayer(s: ControllerState, events: RunEvent[]): ControllerState {
     const layer = layerRecipe(s);
     const plan = layerPlan(s);
-    events.push({ type: 'layer-started', timeS: s.nowS, layer: layer.number, material: layer.materialName, cut: plan.cut, targetNm: layer.targetNm });
+    events.push({ type: 'layer-started', timeS: s.nowS, layer: layer.number, material: layer.materialName, cut: plan.cut, targetNm: plan.targetNm });
     events.push({ type: 'shutter', timeS: s.nowS, command: shutter('open', layer.materialName, layer.number, s.nowS) });
     const crystalAlive = s.nowS - s.lastCrystalS < opts.staleAfterS;
     return {
@@ -587,6 +622,7 @@ function withReading(
     lastCrystalS,
     layerCrystalNm,
     fit: s.fit,
+    targetsNm: s.targetsNm,
   };
 }
 
@@ -624,6 +660,11 @@ export function visibleTurns(plan: LayerPlan | undefined, confirm: number): { tr
   // The first visible move sets the initial trend; count turns from it.
   const first = points.find((p) => Math.abs(p - plan.startSignal) >= 2 * confirm) ?? plan.cutSignal;
   return { trend: first >= plan.startSignal ? 1 : -1, turnsNeeded };
+}
+
+/** The recipe with other part targets (compensated), for the re-plan. */
+function withTargets(recipe: ResolvedRecipe, targetsNm: readonly number[]): ResolvedRecipe {
+  return { ...recipe, layers: recipe.layers.map((l, i) => ({ ...l, targetNm: targetsNm[i] ?? l.targetNm })) };
 }
 
 function shutter(action: 'open' | 'close', source: string, layer: number, timeS: number): ShutterCommand {

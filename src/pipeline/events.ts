@@ -64,6 +64,17 @@ export type RunEvent =
       readonly layer: number | null;
     }
   | { readonly type: 'alert-acknowledged'; readonly timeS: number; readonly id: string }
+  | {
+      readonly type: 'compensated';
+      readonly timeS: number;
+      /** First layer whose target changed. */
+      readonly fromLayer: number;
+      readonly beforeNm: readonly number[];
+      readonly afterNm: readonly number[];
+      /** rms deviation of the finished stack's spectrum from the design's over the band, before and after. */
+      readonly rmsBefore: number;
+      readonly rmsAfter: number;
+    }
   | { readonly type: 'replanned'; readonly timeS: number; readonly fromLayer: number; readonly triggerSignals: readonly number[] }
   | { readonly type: 'held' | 'resumed'; readonly timeS: number; readonly layer: number }
   | { readonly type: 'run-finished'; readonly timeS: number; readonly outcome: 'complete' | 'aborted' };

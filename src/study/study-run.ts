@@ -9,14 +9,16 @@ import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import { createController, type ControllerOptions } from '../pipeline/controller.ts';
 import { runStepped } from '../pipeline/run-stepped.ts';
 
-/** Named controller settings the study compares. */
-export const STRATEGIES: Readonly<Record<string, Partial<ControllerOptions>>> = {
+/** Named cut strategies the study compares: controller settings, and whether to compensate. */
+export const STRATEGIES: Readonly<Record<string, { controller: Partial<ControllerOptions>; compensate?: boolean }>> = {
   /** The plain rules, as a careful operator applies them. */
-  plain: {},
+  plain: { controller: {} },
   /** The plain rules without the re-plan after each layer. */
-  'plain-no-replan': { replan: false },
+  'plain-no-replan': { controller: { replan: false } },
   /** The model fit of each optical layer's whole signal, on the crystal's clock. */
-  fit: { estimator: 'fit' },
+  fit: { controller: { estimator: 'fit' } },
+  /** The fit, and after each layer the later layers re-optimised for the design's spectrum. */
+  'fit-compensated': { controller: { estimator: 'fit' }, compensate: true },
 };
 
 export interface StudyRunResult {
@@ -41,9 +43,12 @@ export interface StudyRunResult {
 export function runOne(recipe: ResolvedRecipe, profile: SimProfile, strategy: string, seed: number): StudyRunResult {
   const options = STRATEGIES[strategy];
   if (!options) throw new Error(`unknown strategy "${strategy}"; the strategies are ${Object.keys(STRATEGIES).join(', ')}`);
+  if (options.compensate && recipe.design.band) {
+    recipe = { ...recipe, compensation: { enabled: true, boundsPercent: 10, quantity: 'T', stepNm: 5, ...recipe.compensation } };
+  }
   const chamber = createVirtualChamber(recipe, profile, seed);
   const cutReasons: string[] = recipe.layers.map(() => 'not-cut');
-  const state = runStepped(createController(recipe, options), chamber, {
+  const state = runStepped(createController(recipe, options.controller), chamber, {
     onEvent: (e) => {
       if (e.type === 'cut') cutReasons[e.layer - 1] = e.reason;
     },

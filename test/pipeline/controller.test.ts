@@ -243,3 +243,19 @@ describe('the model-fit estimator', () => {
     expect(second?.reason).toBe('trigger-level');
   });
 });
+
+describe('compensation', () => {
+  it('re-optimises the later layers after a layer cut short, and plans with the new targets', () => {
+    const compensated = { ...edge, compensation: { enabled: true, boundsPercent: 10, quantity: 'T' as const, stepNm: 5 } };
+    const controller = createController(compensated, { replan: true });
+    // Layer 2 is cut by the operator at about 80 % of its thickness (it takes ~150 s).
+    const run = runIdeal(compensated, controller, { inject: [{ atS: 116 + 120, input: { kind: 'operator', action: 'cut-now', timeS: 236 } }], maxS: 700 });
+    const after = ofType(run.events, 'compensated').find((e) => e.fromLayer === 3);
+    expect(after).toBeDefined();
+    expect((after?.rmsAfter ?? 1) < (after?.rmsBefore ?? 0) / 2).toBe(true);
+    expect(after?.afterNm).not.toEqual(after?.beforeNm);
+    // The next layer is planned and cut on its new target.
+    const started = ofType(run.events, 'layer-started').find((e) => e.layer === 3);
+    expect(started?.targetNm).toBeCloseTo(after?.afterNm[0] ?? Number.NaN, 9);
+  });
+});

@@ -89,6 +89,18 @@ export const RecipeSchema = z
       })
       .default({ bareFrequencyHz: 6e6, minUsableFrequencyHz: 5.5e6, noiseHz: 0.05, sampleRateHz: 10, toolingSigmaPercent: 1 }),
     chips: z.array(ChipSchema).min(1).default([{ fromLayer: 1, thicknessMm: 1, back: 'incoherent' }]),
+    /**
+     * After each layer, re-optimise the layers still to come (within ±boundsPercent of the design)
+     * so that the spectrum over the design's band stays closest to the design's.
+     */
+    compensation: z
+      .strictObject({
+        enabled: z.boolean().default(true),
+        boundsPercent: positive.max(50).default(10),
+        quantity: z.enum(['R', 'T']).default('T'),
+        stepNm: positive.default(5),
+      })
+      .optional(),
     defaults: LayerSettingsSchema.default({}),
     /** Per-layer settings by layer number or range, e.g. `"1": {cut: turning-point}`, `"4-9": {...}`. */
     layers: z.record(layerKey, LayerSettingsSchema).default({}),
@@ -162,6 +174,7 @@ export interface ResolvedRecipe {
   monitor: Recipe['monitor'];
   crystal: Recipe['crystal'];
   incident: Dispersion;
+  compensation?: NonNullable<Recipe['compensation']>;
 }
 
 export type RecipeResult =
@@ -280,6 +293,9 @@ export function resolveRecipe(recipe: Recipe, design: ResolvedDesign, library: M
       validRangeNm: rangeOf(layer.materialName, library),
     };
   });
+  if (recipe.compensation?.enabled && !design.band) {
+    violations.push({ at: 'compensation', message: 'compensation needs the design band (band: {fromNm, toNm} in the design)' });
+  }
   if (violations.length > 0) return { ok: false, violations };
   return {
     ok: true,
@@ -291,6 +307,7 @@ export function resolveRecipe(recipe: Recipe, design: ResolvedDesign, library: M
       monitor: recipe.monitor,
       crystal: recipe.crystal,
       incident: design.stack.incident,
+      ...(recipe.compensation ? { compensation: recipe.compensation } : {}),
     },
   };
 }
