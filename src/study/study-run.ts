@@ -38,6 +38,8 @@ export interface StudyRunResult {
   meanAbsT: number;
   maxAbsR: number;
   meanAbsR: number;
+  /** The deposited stack's T over the design band (2 nm steps from its start), for the spread plot. */
+  depositedT: number[];
 }
 
 export function runOne(recipe: ResolvedRecipe, profile: SimProfile, strategy: string, seed: number): StudyRunResult {
@@ -60,7 +62,13 @@ export function runOne(recipe: ResolvedRecipe, profile: SimProfile, strategy: st
     const nDesign = indexAt({ n: 0, k: 0 }, l.dispersion, t?.wavelengthNm ?? l.wavelengthNm).n;
     return t ? 100 * ((t.nTrue * t.partNm) / (nDesign * l.targetNm) - 1) : Number.NaN;
   });
-  let deviation = { maxAbsT: Number.NaN, meanAbsT: Number.NaN, maxAbsR: Number.NaN, meanAbsR: Number.NaN };
+  let deviation: { maxAbsT: number; meanAbsT: number; maxAbsR: number; meanAbsR: number; deposited: { T: ArrayLike<number> } } = {
+    maxAbsT: Number.NaN,
+    meanAbsT: Number.NaN,
+    maxAbsR: Number.NaN,
+    meanAbsR: Number.NaN,
+    deposited: { T: [] },
+  };
   const band = recipe.design.band;
   if (band) {
     const design = recipe.design.stack;
@@ -78,5 +86,6 @@ export function runOne(recipe: ResolvedRecipe, profile: SimProfile, strategy: st
     meanAbsT: deviation.meanAbsT,
     maxAbsR: deviation.maxAbsR,
     meanAbsR: deviation.meanAbsR,
+    depositedT: Array.from(deviation.deposited.T),
   };
 }

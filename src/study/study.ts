@@ -6,6 +6,7 @@
 import { availableParallelism } from 'node:os';
 import { Worker } from 'node:worker_threads';
 import type { SimProfile } from '../../sim/index.ts';
+import { spectrumDeviation } from '../model/design/spectrum-deviation.ts';
 import { planRun } from '../model/plan/plan.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import { STRATEGIES, type StudyRunResult } from './study-run.ts';
@@ -47,6 +48,8 @@ export interface StrategyStatistics {
 export interface StudyReport {
   recipe: string;
   runs: number;
+  /** The design's T over its band (2 nm steps), beside each run's `depositedT`. */
+  band: { fromNm: number; stepNm: number; designT: number[] } | null;
   strategies: StrategyStatistics[];
   results: StudyRunResult[];
 }
@@ -81,9 +84,13 @@ export async function runStudy(recipe: ResolvedRecipe, profile: SimProfile, opti
   );
   results.sort((a, b) => a.strategy.localeCompare(b.strategy) || a.seed - b.seed);
   const plan = planRun(recipe, { suggest: 'none' });
+  const band = recipe.design.band;
   return {
     recipe: recipe.name,
     runs: options.runs,
+    band: band
+      ? { fromNm: band.fromNm, stepNm: 2, designT: Array.from(spectrumDeviation(recipe.design.stack, recipe.design.stack, band, { stepNm: 2 }).design.T) }
+      : null,
     strategies: options.strategies.map((strategy) => summarise(recipe, plan.layers, strategy, results.filter((r) => r.strategy === strategy))),
     results,
   };

@@ -81,6 +81,11 @@ export async function runStudyCommand(argv: string[], io: CommandIo): Promise<nu
   if (values.plot) {
     writeOutputFile(values.plot, plotStudy(report));
     io.err(`wrote ${values.plot}`);
+    if (report.band) {
+      const spectra = values.plot.replace(/(\.svg)?$/i, '-spectra.svg');
+      writeOutputFile(spectra, plotSpectra(report));
+      io.err(`wrote ${spectra}`);
+    }
   }
   io.out(values.json ? JSON.stringify(report) : formatStudy(report));
   return 0;
@@ -109,13 +114,36 @@ function formatStudy(r: StudyReport): string {
   return rows.join('\n');
 }
 
+/** Per layer, each strategy's RMS and worst error against the plan's precision: the error distributions' scale and tail. */
 function plotStudy(r: StudyReport): string {
-  const series = r.strategies.map((s) => ({ label: `${s.strategy}: RMS error`, x: s.layers.map((l) => l.number), y: s.layers.map((l) => l.rmsPercent) }));
+  const series = r.strategies.flatMap((s) => [
+    { label: `${s.strategy}: RMS error`, x: s.layers.map((l) => l.number), y: s.layers.map((l) => l.rmsPercent) },
+    { label: `${s.strategy}: worst error`, x: s.layers.map((l) => l.number), y: s.layers.map((l) => l.worstPercent) },
+  ]);
   const first = r.strategies[0];
   if (first) series.push({ label: 'plan: expected precision', x: first.layers.map((l) => l.number), y: first.layers.map((l) => l.plannedPercent) });
   return renderLineChart(series, {
     title: `${r.recipe}: thickness error per layer, ${r.runs} runs per strategy`,
     xLabel: 'Layer',
-    yLabel: 'RMS thickness error (% of target)',
+    yLabel: 'Thickness error (% of target)',
+  });
+}
+
+/** The spread of the final spectra: for each strategy the lowest and highest T over its runs, against the design. */
+function plotSpectra(r: StudyReport): string {
+  const band = r.band as NonNullable<StudyReport['band']>;
+  const x = band.designT.map((_, i) => band.fromNm + i * band.stepNm);
+  const series = [{ label: 'design', x, y: band.designT }];
+  for (const s of r.strategies) {
+    const runs = r.results.filter((res) => res.strategy === s.strategy);
+    const at = (i: number): number[] => runs.map((res) => res.depositedT[i] ?? Number.NaN);
+    series.push({ label: `${s.strategy}: lowest T`, x, y: x.map((_, i) => Math.min(...at(i))) });
+    series.push({ label: `${s.strategy}: highest T`, x, y: x.map((_, i) => Math.max(...at(i))) });
+  }
+  return renderLineChart(series, {
+    title: `${r.recipe}: final spectra, ${r.runs} runs per strategy`,
+    xLabel: 'Wavelength (nm)',
+    yLabel: 'T (%)',
+    yPercent: true,
   });
 }
