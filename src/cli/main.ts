@@ -11,6 +11,7 @@ import { runLive, runUsage } from './commands/run.ts';
 import { runSimulate, simulateUsage } from './commands/simulate.ts';
 import { runSpectrum, spectrumUsage } from './commands/spectrum.ts';
 import { runStudyCommand, studyUsage } from './commands/study.ts';
+import { runTooling, toolingUsage } from './commands/tooling.ts';
 
 const commands: Record<string, { run: (argv: string[], io: CommandIo) => number | Promise<number>; usage: string }> = {
   spectrum: { run: runSpectrum, usage: spectrumUsage },
@@ -21,6 +22,7 @@ const commands: Record<string, { run: (argv: string[], io: CommandIo) => number 
   export: { run: runExport, usage: exportUsage },
   study: { run: runStudyCommand, usage: studyUsage },
   demo: { run: runDemo, usage: demoUsage },
+  tooling: { run: runTooling, usage: toolingUsage },
 };
 
 const usage = `fringe: live monitoring and layer cutting for optical coating runs.
@@ -36,6 +38,7 @@ Commands:
   export RUN --csv    a run's readings and events as CSV
   study RECIPE        many seeded simulated runs per cut strategy: errors against the plan's precision
   demo                a simulated run with the live dashboard on http://127.0.0.1:7300
+  tooling             a corrected tooling factor from a calibration run
 
 fringe is process control, not a safety system: interlocks, manual shutter controls and the
 equipment maker's instructions stay in charge.

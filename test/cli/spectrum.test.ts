@@ -108,3 +108,18 @@ layers: [{ material: SiO2, thicknessNm: 100 }]
     expect((JSON.parse(out) as { R: number[] }).R[0]).toBeCloseTo(0.012600790214630288, 12);
   });
 });
+
+describe('fringe tooling', () => {
+  it('corrects a tooling factor from a calibration run', async () => {
+    // Definition (physics-notes): TF_new = TF_old · measured / indicated; 100 % · 157/250 = 62.8 %.
+    const r = await run('tooling', '--factor', '100%', '--measured', '157', '--indicated', '250', '--json');
+    expect(r.code).toBe(0);
+    expect((JSON.parse(r.out) as { percent: number }).percent).toBeCloseTo(62.8, 12);
+    const fraction = await run('tooling', '--factor', '1.05', '--measured', '98', '--indicated', '100');
+    expect(fraction.out).toMatch(/tooling factor 102\.90 %/);
+    const bad = await run('tooling', '--factor', '1.05', '--measured=-3', '--indicated', '100');
+    expect(bad.code).toBe(2);
+    expect(bad.err).toMatch(/--measured must be positive/);
+    expect((await run('tooling', '--factor', '1')).err).toMatch(/needs --factor, --measured and --indicated/);
+  });
+});
