@@ -4,10 +4,11 @@
  * With the recorded recipe every decision is reproduced exactly: the controller is a pure
  * function of its inputs, and the journal holds all of them, ticks included.
  */
-import type { JournalRecord } from '../journal/journal-format.ts';
-import { recordToInput } from '../journal/journal-format.ts';
+import { recordToInput, type JournalRecord } from '../journal/journal-format.ts';
 import type { Controller, ControllerState } from './controller.ts';
 import type { RunEvent } from './events.ts';
+import { runPaced, type SteppedRun } from './run-stepped.ts';
+import type { PipelineInput } from './types.ts';
 
 type CutEvent = Extract<RunEvent, { type: 'cut' }>;
 
@@ -38,8 +39,8 @@ export interface ReplayResult {
  * changed recipe shows where it would have cut on the same signal.
  */
 export function replayJournal(records: readonly JournalRecord[], controller: Controller, onEvent?: (event: RunEvent) => void): ReplayResult {
-  const replay = createReplay(controller, onEvent);
-  for (const record of records) replay.feed(record);
+  const replay = collect(records, controller, onEvent);
+  replay.run.runUntil(Number.POSITIVE_INFINITY);
   return replay.result();
 }
 
@@ -53,43 +54,76 @@ export async function replayJournalPaced(
   speed: number,
   onEvent?: (event: RunEvent) => void,
 ): Promise<ReplayResult> {
-  const replay = createReplay(controller, onEvent);
-  const startMs = performance.now();
-  let origin: number | undefined;
-  for (const record of records) {
-    const t = record.k === 'e' ? undefined : record.t;
-    if (t !== undefined && Number.isFinite(t)) {
-      origin ??= t;
-      const waitMs = ((t - origin) / speed) * 1000 - (performance.now() - startMs);
-      if (waitMs > 5) await new Promise((resolve) => setTimeout(resolve, waitMs));
-    }
-    replay.feed(record);
-  }
+  const replay = collect(records, controller, onEvent);
+  await runPaced(replay.run, speed);
   return replay.result();
 }
 
-function createReplay(controller: Controller, onEvent?: (event: RunEvent) => void): { feed(record: JournalRecord): void; result(): ReplayResult } {
-  let state = controller.initial();
-  const events: RunEvent[] = [];
-  const recordedEvents: RunEvent[] = [];
-  let inputs = 0;
+/**
+ * A journal's inputs as a stepped run (recorded events skipped), to be run at full speed or
+ * spread over wall time by `runPaced`.
+ */
+export function createJournalRun(
+  records: readonly JournalRecord[],
+  controller: Controller,
+  callbacks: { onInput?: (input: PipelineInput) => void; onEvent?: (event: RunEvent) => void } = {},
+): SteppedRun {
+  let state: ControllerState = controller.initial();
+  let next = 0;
+  let now = 0;
+  const apply = (input: PipelineInput): void => {
+    callbacks.onInput?.(input);
+    const result = controller.step(state, input);
+    state = result.state;
+    for (const event of result.events) callbacks.onEvent?.(event);
+  };
+  const skipEvents = (): void => {
+    while (next < records.length && (records[next] as JournalRecord).k === 'e') next++;
+  };
+  const running = (): boolean => {
+    skipEvents();
+    return next < records.length && state.phase !== 'finished' && state.phase !== 'aborted';
+  };
   return {
-    feed(record) {
-      if (record.k === 'e') {
-        recordedEvents.push(record.event);
-        return;
-      }
-      const input = recordToInput(record);
-      if (!input) return;
-      inputs++;
-      const step = controller.step(state, input);
-      state = step.state;
-      for (const e of step.events) {
-        events.push(e);
-        onEvent?.(e);
-      }
+    get state() {
+      return state;
     },
-    result: () => ({ state, events, recordedEvents, cuts: compareCuts(recordedEvents, events), inputs, firstDifference: firstDifference(recordedEvents, events) }),
+    get nowS() {
+      return now;
+    },
+    get running() {
+      return running();
+    },
+    apply,
+    runUntil(untilS) {
+      while (running()) {
+        const record = records[next] as Exclude<JournalRecord, { k: 'e' }>;
+        if (record.t > untilS) break;
+        next++;
+        const input = recordToInput(record);
+        if (input) apply(input);
+        now = Math.max(now, record.t);
+      }
+      if (Number.isFinite(untilS) && running()) now = Math.max(now, untilS);
+    },
+  };
+}
+
+
+function collect(records: readonly JournalRecord[], controller: Controller, onEvent?: (event: RunEvent) => void): { run: SteppedRun; result(): ReplayResult } {
+  const events: RunEvent[] = [];
+  let inputs = 0;
+  const run = createJournalRun(records, controller, {
+    onInput: () => inputs++,
+    onEvent: (e) => {
+      events.push(e);
+      onEvent?.(e);
+    },
+  });
+  const recordedEvents = records.flatMap((r): RunEvent[] => (r.k === 'e' ? [r.event] : []));
+  return {
+    run,
+    result: () => ({ state: run.state, events, recordedEvents, cuts: compareCuts(recordedEvents, events), inputs, firstDifference: firstDifference(recordedEvents, events) }),
   };
 }
 

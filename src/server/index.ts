@@ -5,7 +5,7 @@ export type { ServerContext, ServerDeps, ServerOptions } from './build-server.ts
 export { BoundedHistory } from './bounded-history.ts';
 export { Decimator } from './decimator.ts';
 export type { DecimatedPoint } from './decimator.ts';
-export { createJournalRun, startJournalReplay } from './journal-run.ts';
+export { startJournalReplay } from './journal-run.ts';
 export type { JournalReplay } from './journal-run.ts';
 export { outcomeSpectrum } from './outcome.ts';
 export { COMMAND_ACTIONS } from './plugins/commands.ts';

@@ -84,3 +84,15 @@ describe('fringe simulate', () => {
     expect(other.cuts.some((c) => c.differs)).toBe(true);
   });
 });
+
+describe('commands that read a recorded run', () => {
+  it('refuse a folder that holds no journal in one sentence', async () => {
+    const empty = mkdtempSync(join(tmpdir(), 'fringe-empty-run-'));
+    for (const argv of [['replay', empty], ['export', empty, '--csv'], ['run', '--resume', empty]]) {
+      const r = await run(...argv);
+      expect(r.code, argv.join(' ')).toBe(1);
+      expect(r.err, argv.join(' ')).toMatch(/journal\.ndjson cannot be read: no such file/);
+      expect(r.err.trim().split('\n')).toHaveLength(1);
+    }
+  });
+});

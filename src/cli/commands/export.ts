@@ -1,11 +1,9 @@
 /** `fringe export RUN --csv`: a run's readings and events as CSV for a spreadsheet. */
-import { existsSync, statSync } from 'node:fs';
-import { join } from 'node:path';
 import { parseArgs } from 'node:util';
-import { JournalError, readJournal } from '../../journal/journal-reader.ts';
 import type { RunEvent } from '../../pipeline/events.ts';
 import { CliError, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
+import { readRecordedRun } from '../run-folder.ts';
 
 export const exportUsage = `Usage: fringe export RUN --csv [--out FILE]
 
@@ -26,15 +24,7 @@ export function runExport(argv: string[], io: CommandIo): number {
   }
   if (positionals.length !== 1) throw new CliError('export needs exactly one RUN (a run folder or a journal file)');
   if (!values.csv) throw new CliError('say which format: --csv');
-  const target = positionals[0] as string;
-  const file = existsSync(target) && statSync(target).isDirectory() ? join(target, 'journal.ndjson') : target;
-  let journal;
-  try {
-    journal = readJournal(file);
-  } catch (error) {
-    if (error instanceof JournalError) throw new CliError(error.message, 1);
-    throw error;
-  }
+  const { journal } = readRecordedRun(positionals[0] as string);
   const rows = ['time_s,kind,channel_or_event,value,arrival_s,layer,detail'];
   for (const r of journal.records) {
     if (r.k === 'r') rows.push(`${r.t},reading,${r.c === 'o' ? 'optical' : 'crystal'},${r.v},${r.a},,`);

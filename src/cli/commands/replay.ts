@@ -3,17 +3,16 @@
  * or a changed one — and reports layer by layer where the replay cuts against where the run
  * did, flagging every difference.
  */
-import { existsSync, readFileSync, statSync } from 'node:fs';
 import { basename, join } from 'node:path';
 import { parseArgs } from 'node:util';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
-import { JournalError, readJournal } from '../../journal/journal-reader.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { createController } from '../../pipeline/controller.ts';
 import { replayJournal, replayJournalPaced, type CutComparison } from '../../pipeline/replay.ts';
 import { startJournalReplay } from '../../server/journal-run.ts';
 import { CliError } from '../cli-error.ts';
+import { readRecordedRecipe, readRecordedRun } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
 import type { CommandIo } from '../command-io.ts';
 
@@ -50,23 +49,10 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
     return 0;
   }
   if (positionals.length !== 1) throw new CliError('replay needs exactly one RUN (a run folder or a journal file)');
-  const target = positionals[0] as string;
-  const dir = existsSync(target) && statSync(target).isDirectory() ? target : join(target, '..');
-  const journalFile = dir === target ? join(dir, 'journal.ndjson') : target;
-  let journal;
-  try {
-    journal = readJournal(journalFile);
-  } catch (error) {
-    if (error instanceof JournalError) throw new CliError(error.message, 1);
-    throw error;
-  }
-  let recipe: ResolvedRecipe;
-  if (values.recipe) recipe = loadRecipe(values.recipe, loadMaterialLibrary(values.materials));
-  else {
-    const recorded = join(dir, 'recipe.json');
-    if (!existsSync(recorded)) throw new CliError(`${dir} holds no recipe.json; give one with --recipe`, 1);
-    recipe = JSON.parse(readFileSync(recorded, 'utf8')) as ResolvedRecipe;
-  }
+  const { dir, journalFile, journal } = readRecordedRun(positionals[0] as string);
+  const recipe: ResolvedRecipe = values.recipe
+    ? loadRecipe(values.recipe, loadMaterialLibrary(values.materials))
+    : readRecordedRecipe(dir, 'give one with --recipe');
   if (values.serve) {
     if (values.recipe) throw new CliError('--serve replays the run with its own recipe; drop --recipe');
     const folder = { id: basename(dir), dir, journalFile, summaryFile: join(dir, 'summary.json'), recipeFile: join(dir, 'recipe.json') };

@@ -2,14 +2,13 @@
  * `fringe run --chamber FILE RECIPE`: a live run with the chamber's drivers, journalled; and
  * `fringe run --resume RUN`: the state rebuilt from a journal, continuing the layer in progress.
  */
-import { existsSync, readFileSync } from 'node:fs';
+import { readFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { parseArgs } from 'node:util';
 import { combineLatest, filter, first, firstValueFrom, Subject, throwError, timeout } from 'rxjs';
 import { loadChamber, openChamber } from '../../../drivers/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
-import { readJournal } from '../../journal/journal-reader.ts';
 import { createJournalWriter } from '../../journal/journal-writer.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { ALERTS } from '../../pipeline/codes.ts';
@@ -20,6 +19,7 @@ import { replayJournal } from '../../pipeline/replay.ts';
 import type { OperatorAction, ReadingSource } from '../../pipeline/types.ts';
 import { createRunHub } from '../../server/run-hub.ts';
 import { CliError } from '../cli-error.ts';
+import { readRecordedRecipe, readRecordedRun } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
 import type { CommandIo } from '../command-io.ts';
 
@@ -68,11 +68,10 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
   let chamberFile = values.chamber;
   if (values.resume !== undefined) {
     if (positionals.length > 0) throw new CliError('--resume takes the recipe from the run; give no RECIPE');
-    runDir = values.resume;
-    const recorded = join(runDir, 'recipe.json');
-    if (!existsSync(recorded)) throw new CliError(`${runDir} is not a run folder (no recipe.json)`, 1);
-    recipe = JSON.parse(readFileSync(recorded, 'utf8')) as ResolvedRecipe;
-    const journal = readJournal(join(runDir, 'journal.ndjson'));
+    const recorded = readRecordedRun(values.resume);
+    runDir = recorded.dir;
+    recipe = readRecordedRecipe(runDir, 'it is not a run folder fringe can resume');
+    const journal = recorded.journal;
     resumeFrom = replayJournal(journal.records, createController(recipe)).state;
     if (resumeFrom.phase === 'finished' || resumeFrom.phase === 'aborted') throw new CliError(`the run in ${runDir} has already ${resumeFrom.phase === 'finished' ? 'finished' : 'been aborted'}`, 1);
     chamberFile ??= join(runDir, 'chamber.yaml');
