@@ -465,7 +465,8 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const plan = layerPlan(s);
     events.push({ type: 'layer-started', timeS: s.nowS, layer: layer.number, material: layer.materialName, cut: plan.cut, targetNm: plan.targetNm });
     events.push({ type: 'shutter', timeS: s.nowS, command: shutter('open', layer.materialName, layer.number, s.nowS) });
-    const crystalAlive = s.nowS - s.lastCrystalS < opts.staleAfterS;
+    // Not yet heard counts as alive, as for the silence guard (the first reading may come just after the opening).
+    const crystalAlive = Number.isNaN(s.lastCrystalS) || s.nowS - s.lastCrystalS < opts.staleAfterS;
     return {
       ...s,
       phase: 'depositing',
@@ -504,7 +505,8 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const layer = layerRecipe(s);
     if (s.fit?.clock !== 'crystal') return timeS - s.openedAtS;
     const c = s.crystal;
-    if (!Number.isFinite(c.partNm)) return 0;
+    // Before the layer's first crystal reading: elapsed time, the same clock at the planned rate.
+    if (!Number.isFinite(c.partNm)) return timeS - s.openedAtS;
     const rate = Number.isFinite(c.rateNmPerS) ? c.rateNmPerS : layer.rateNmPerS;
     // Between crystal readings the thickness moves on at the crystal's rate (not after the close).
     const closeS = Number.isFinite(s.cutAtS) ? s.cutAtS + layer.shutterDelayS : Number.POSITIVE_INFINITY;

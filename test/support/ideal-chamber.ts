@@ -14,8 +14,8 @@ import type { PipelineInput } from '../../src/pipeline/types.ts';
 export interface IdealRunOptions {
   /** rms noise of the optical signal (default 0). */
   noise?: number;
-  /** True rate / planned rate (default 1). */
-  rateFactor?: number;
+  /** True rate / planned rate (default 1), or that ratio as a function of run time. */
+  rateFactor?: number | ((timeS: number) => number);
   sampleRateHz?: number;
   /** Optical readings stop in this window of run time. */
   opticalSilentS?: [number, number];
@@ -37,7 +37,8 @@ export interface IdealRunResult {
 
 export function runIdeal(recipe: ResolvedRecipe, controller: Controller, options: IdealRunOptions = {}): IdealRunResult {
   const dt = 1 / (options.sampleRateHz ?? recipe.monitor.sampleRateHz);
-  const rateFactor = options.rateFactor ?? 1;
+  const factor = options.rateFactor ?? 1;
+  const rateFactor = typeof factor === 'number' ? (): number => factor : factor;
   let seed = options.seed ?? 1;
   const gauss = (): number => {
     // Park–Miller minimal standard generator with Box–Muller (test noise only).
@@ -89,7 +90,7 @@ export function runIdeal(recipe: ResolvedRecipe, controller: Controller, options
     if (open && current >= 0) {
       const layer = recipe.layers[current] as ResolvedRecipe['layers'][number];
       const growS = Math.max(0, Math.min(t, openUntil) - (t - dt));
-      trueNm[current] = (trueNm[current] as number) + layer.rateNmPerS * rateFactor * growS;
+      trueNm[current] = (trueNm[current] as number) + layer.rateNmPerS * rateFactor(t) * growS;
       (crystal[crystal.length - 1] as { thicknessNm: number }).thicknessNm = (trueNm[current] as number) / layer.toolingFactor;
       if (t >= openUntil) open = false;
     }
