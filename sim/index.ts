@@ -26,7 +26,7 @@ export type {
   SourceOverride,
   SourceSettings,
 } from './profile.ts';
-export { scaledDispersion } from './true-materials.ts';
+export { scaledDispersion } from '../src/model/optics/dispersion.ts';
 export { fluctuationGridS, SourceRate } from './source-rate.ts';
 export type { SourceRateSettings } from './source-rate.ts';
 export { createVirtualChamber, INHOMOGENEITY_SLICES, trueStackSpec } from './virtual-chamber.ts';

@@ -59,8 +59,8 @@ export const SourceSettingsSchema = z.strictObject({
   driftPercentPerHour: sourceFields.driftPercentPerHour.default(1),
   shutterDelayS: sourceFields.shutterDelayS.optional(),
   shutterJitterS: sourceFields.shutterJitterS.default(0.02),
-  chipRatioErrorPercent: sourceFields.chipRatioErrorPercent.default(0.5),
-  toolingErrorPercent: sourceFields.toolingErrorPercent.default(1.5),
+  chipRatioErrorPercent: sourceFields.chipRatioErrorPercent.default(0),
+  toolingErrorPercent: sourceFields.toolingErrorPercent.default(0),
 });
 export type SourceSettings = z.infer<typeof SourceSettingsSchema>;
 

@@ -35,7 +35,7 @@
  */
 import { deepFreeze } from '../src/config/read-config.ts';
 import { stackFrequencyHz, crystalLifeUsed, type CrystalLayer } from '../src/model/crystal/index.ts';
-import { indexAt, type Dispersion } from '../src/model/optics/dispersion.ts';
+import { indexAt, scaledDispersion, type Dispersion } from '../src/model/optics/dispersion.ts';
 import { buildChipMonitor, type ChipMonitor } from '../src/model/plan/chip-monitor.ts';
 import type { LayerRecipe, ResolvedRecipe } from '../src/model/plan/recipe.ts';
 import type { StackSpec } from '../src/model/optics/optical-model.ts';
@@ -43,7 +43,6 @@ import type { Reading, ShutterAck, ShutterCommand } from '../src/pipeline/types.
 import { materialSettingsFor, sourceSettingsFor, type SimProfile, type SourceSettings } from './profile.ts';
 import { createRandomStream, type RandomStream } from './random.ts';
 import { SourceRate } from './source-rate.ts';
-import { scaledDispersion } from './true-materials.ts';
 
 /** Sub-layers of an inhomogeneous layer per planned chip thickness. */
 export const INHOMOGENEITY_SLICES = 8;

@@ -16,7 +16,7 @@
  */
 import { stackThicknessNm, type CrystalLayer } from '../model/crystal/index.ts';
 import { compensate } from '../model/design/compensate.ts';
-import { createLayerFit, type LayerFit } from '../model/estimate/index.ts';
+import { buildIndexTables, createLayerFit, layerSignalTable, refitChip, type LayerFit, type RefitLayer } from '../model/estimate/index.ts';
 import { chipMonitorFor, planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
 import { DEFAULT_PRIORS } from '../model/plan/precision.ts';
 import type { CutMode, ResolvedRecipe } from '../model/plan/recipe.ts';
@@ -65,6 +65,14 @@ export interface ControllerOptions {
    * fitted thickness plus the shutter delay's growth reaches the target). Default `plain`.
    */
   estimator: 'plain' | 'fit';
+  /**
+   * With the fit: prior rms of a layer's index against the design's (fraction; default 0.03, a
+   * few per cent being how far evaporated films stray, common practice, no source); 0 fits no
+   * index. The fitted index goes to the chip model of the later layers.
+   */
+  indexSigma: number;
+  /** With the fit: after each layer, refit the chip's layers together (default true). */
+  chipRefit: boolean;
 }
 
 export const DEFAULT_CONTROLLER_OPTIONS: ControllerOptions = {
@@ -81,7 +89,68 @@ export const DEFAULT_CONTROLLER_OPTIONS: ControllerOptions = {
   settleS: 1,
   replan: true,
   estimator: 'plain',
+  indexSigma: 0.03,
+  chipRefit: true,
 };
+
+/** Bins of a layer's readings kept for the chip refit: while it grew, and after the close. */
+const RECORD_BINS = 60;
+const RECORD_BINS_AFTER = 6;
+
+/**
+ * A layer's readings on the crystal's clock as bin means (spikes left out), each with its count
+ * as its weight: over a bin of a few seconds the signal is straight to far below the noise, so
+ * the means keep nearly all the information at a hundredth of the cost.
+ */
+function binnedRecord(fit: LayerFit, index: number, closeClock: number): RefitLayer | null {
+  const { times, values, spikes } = fit.readings();
+  const before: number[] = [];
+  const after: number[] = [];
+  for (let i = 0; i < times.length; i++) {
+    if (spikes[i] !== 0 || !Number.isFinite(times[i])) continue;
+    ((times[i] as number) < closeClock ? before : after).push(i);
+  }
+  if (before.length < 8) return null;
+  const clocks: number[] = [];
+  const means: number[] = [];
+  const weights: number[] = [];
+  for (const [group, bins] of [[before, RECORD_BINS], [after, RECORD_BINS_AFTER]] as const) {
+    const count = Math.min(bins, group.length);
+    for (let b = 0; b < count; b++) {
+      const from = Math.floor((b * group.length) / count);
+      const to = Math.floor(((b + 1) * group.length) / count);
+      let clock = 0;
+      let value = 0;
+      for (let k = from; k < to; k++) {
+        clock += times[group[k] as number] as number;
+        value += values[group[k] as number] as number;
+      }
+      clocks.push(clock / (to - from));
+      means.push(value / (to - from));
+      weights.push(to - from);
+    }
+  }
+  return { index, clocks: Float64Array.from(clocks), values: Float64Array.from(means), weights: Float64Array.from(weights), closeClock };
+}
+
+/** Half-width of the index difference behind the fit's index tables (signal-table.ts). */
+const INDEX_DELTA = 0.01;
+/**
+ * How far a material's index may move between its layers in one run, rms: a material's earlier
+ * layers set the prior of its next one (a film's index holds within a run far better than from
+ * run to run; common practice, no source).
+ */
+const INDEX_RUN_SIGMA = 0.002;
+/** The same for a material's rate scale on the crystal's clock (tooling and distribution hold as well; common practice, no source). */
+const RATE_RUN_SIGMA = 0.003;
+/** A material's rate on the crystal's clock known this well (fraction, rms) stands for the thickness of each of its layers (resolvedStack). */
+const CALIBRATED_RATE_SIGMA = 0.005;
+/**
+ * Prior rms of the chip thickness when the crystal's clock starts, nm: the crystal and the chip
+ * start growing at the same shutter opening, so it is the crystal's noise and heat shift, a tenth
+ * of a nanometre or so (derived from config/sim/typical.yaml's 0.05 Hz and 3 Hz; allowed 0.5).
+ */
+const CLOCK_START_SIGMA_NM = 0.5;
 
 export type Phase = 'ready' | 'depositing' | 'closing' | 'holding' | 'finished' | 'aborted';
 
@@ -126,6 +195,30 @@ export interface ControllerState {
   readonly crystalBelow: readonly CrystalLayer[];
   /** Estimated part thickness of each finished layer, nm. */
   readonly achievedNm: readonly number[];
+  /**
+   * Estimated n_true / n_design of each finished layer: the fit's; NaN where the layer was not
+   * fitted (cut on the crystal, say), whose index is then its material's as estimated so far.
+   */
+  readonly indexFactors: readonly number[];
+  /**
+   * For a layer not cut by the fit but watched by it (cut on the crystal): the optical thickness
+   * the fit saw, as part nm at the design index; NaN otherwise. Stands for the layer's optical
+   * thickness until its material's rate on the crystal's clock is known (see resolvedStack).
+   */
+  readonly opticalNm: readonly number[];
+  /** Each material's index over the design's as its fitted layers so far showed it, with its rms. */
+  readonly materialIndex: Readonly<Record<string, { readonly factor: number; readonly sigma: number }>>;
+  /**
+   * Each material's chip growth in u per second of the crystal clock over the planned chip rate,
+   * with its rms, as its fitted layers showed it: the crystal's tooling, the chip ratio and the
+   * index in one figure, the same for every layer of the material.
+   */
+  readonly materialRate: Readonly<Record<string, { readonly factor: number; readonly sigma: number }>>;
+  /** The current chip's finished layers watched on the crystal's clock, binned, for the chip refit. */
+  readonly chipRecords: readonly RefitLayer[];
+  /** The chip those records are of (−1 before any), and the material estimates when it began: the refit's priors. */
+  readonly recordsChip: number;
+  readonly chipPriors: { readonly rate: ControllerState['materialRate']; readonly index: ControllerState['materialIndex'] };
   readonly approachingSent: boolean;
   readonly rateAlerted: boolean;
   readonly crystalAlerted: boolean;
@@ -191,6 +284,13 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       crystal: { lastS: Number.NaN, frequencyHz: Number.NaN, partNm: Number.NaN, rateNmPerS: Number.NaN },
       crystalBelow: [],
       achievedNm: [],
+      indexFactors: [],
+      opticalNm: [],
+      materialIndex: {},
+      materialRate: {},
+      chipRecords: [],
+      recordsChip: -1,
+      chipPriors: { rate: {}, index: {} },
       approachingSent: false,
       rateAlerted: false,
       crystalAlerted: false,
@@ -357,11 +457,13 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         const halfStep = (0.5 * clockRate) / recipe.monitor.sampleRateHz;
         if (armed && fitClock(s, s.nowS) + halfStep >= cutClock) {
           const est = s.fit.fit.estimate(cutClock + layer.shutterDelayS * clockRate);
-          return cut(s, events, 'model-fit', est.thicknessNm / layer.chipRatio, delayNm);
+          return cut(s, events, 'model-fit', est.thicknessNm / est.indexFactor / layer.chipRatio, delayNm);
         }
         return s;
       }
     }
+    const materialRate = opts.estimator === 'fit' ? s.materialRate[layer.materialName] : undefined;
+    const calibration = materialRate ? { rate: materialRate.factor, index: s.materialIndex[layer.materialName]?.factor ?? 1 } : undefined;
     switch (s.mode) {
       case 'level':
         if (armed && s.optical.beyond >= opts.debounceReadings) return cut(s, events, 'trigger-level', plan.targetNm, delayNm);
@@ -377,7 +479,16 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         return s;
       }
       case 'crystal':
-        if (!crystalSilent && thickness + delayNm >= plan.targetNm) return cut(s, events, 'crystal-thickness', thickness + delayNm, delayNm);
+        if (crystalSilent) return s;
+        if (calibration) {
+          // The optical fits of the material's earlier layers calibrate the crystal: cut at the optical thickness.
+          if (calibration.rate * (thickness + delayNm) >= plan.targetNm) {
+            // The layer is recorded at its crystal thickness: resolvedStack calibrates it (now and as the calibration improves).
+            return cut(s, events, 'crystal-calibrated', (calibration.rate * (thickness + delayNm)) / calibration.index, delayNm, thickness + delayNm);
+          }
+          return s;
+        }
+        if (thickness + delayNm >= plan.targetNm) return cut(s, events, 'crystal-thickness', thickness + delayNm, delayNm);
         return s;
       case 'time':
         if (elapsed + layer.shutterDelayS >= plan.targetNm / layer.rateNmPerS) {
@@ -387,44 +498,74 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     }
   }
 
-  function cut(s: ControllerState, events: RunEvent[], reason: CutReason, estimatedNm: number, delayAllowanceNm: number): ControllerState {
+  function cut(s: ControllerState, events: RunEvent[], reason: CutReason, estimatedNm: number, delayAllowanceNm: number, recordedNm = estimatedNm): ControllerState {
     const layer = layerRecipe(s);
     events.push({ type: 'cut', timeS: s.nowS, layer: layer.number, reason, estimatedNm, delayAllowanceNm, signal: s.optical.value });
     events.push({ type: 'shutter', timeS: s.nowS, command: shutter('close', layer.materialName, layer.number, s.nowS) });
-    return { ...s, phase: 'closing', cutAtS: s.nowS, achievedNm: [...s.achievedNm, estimatedNm] };
+    return { ...s, phase: 'closing', cutAtS: s.nowS, achievedNm: [...s.achievedNm, recordedNm] };
   }
 
   function finishLayer(s: ControllerState, events: RunEvent[], skipped: boolean): ControllerState {
     const layer = layerRecipe(s);
-    if (s.fit && !skipped && Number.isFinite(s.cutAtS)) {
-      // Refit with every reading, those after the shutter closed included (d constant then).
+    const indexFactors = [...s.indexFactors];
+    indexFactors[s.index] = Number.NaN;
+    const opticalNm = [...s.opticalNm];
+    opticalNm[s.index] = Number.NaN;
+    let materialIndex = s.materialIndex;
+    let materialRate = s.materialRate;
+    let record: RefitLayer | null = null;
+    const planned = layerPlan(s).cut;
+    const fitCut = s.mode === 'level' || s.mode === 'turning-point';
+    const watched = s.mode === planned && (planned === 'crystal' || planned === 'time');
+    if (s.fit && !skipped && Number.isFinite(s.cutAtS) && (fitCut || watched)) {
+      // Refit with every reading, those after the shutter closed included (u constant then).
       const closeClock = fitClock(s, s.cutAtS + layer.shutterDelayS);
       const final = s.fit.fit.finalThickness(closeClock);
-      if (Number.isFinite(final.thicknessNm)) {
-        const achievedNm = [...s.achievedNm];
-        achievedNm[s.index] = final.thicknessNm / layer.chipRatio;
-        s = { ...s, achievedNm };
+      if (s.fit.clock === 'crystal' && opts.chipRefit) record = binnedRecord(s.fit.fit, s.index, closeClock);
+      const partNm = s.achievedNm[s.index] ?? 0;
+      if (Number.isFinite(final.thicknessNm) && final.indexFactor > 0 && final.thicknessNm > 0) {
+        if (fitCut && s.fit.clock === 'crystal' && final.rateSigma > 0) {
+          const planned = layer.rateNmPerS * layer.chipRatio;
+          materialRate = { ...materialRate, [layer.materialName]: { factor: final.rateNmPerS / planned, sigma: final.rateSigma / planned } };
+        }
+        if (fitCut) {
+          // The fit's u is the optical thickness at the design index: physically u/κ at index κ·n.
+          const achievedNm = [...s.achievedNm];
+          achievedNm[s.index] = final.thicknessNm / final.indexFactor / layer.chipRatio;
+          indexFactors[s.index] = final.indexFactor;
+          // The fit's prior was the material's estimate so far: its posterior is the new estimate.
+          if (final.indexSigma > 0) materialIndex = { ...materialIndex, [layer.materialName]: { factor: final.indexFactor, sigma: final.indexSigma } };
+          s = { ...s, achievedNm };
+        } else if (partNm > 0) {
+          // Cut on the crystal and watched by the fit: the optical thickness the signal showed.
+          opticalNm[s.index] = final.thicknessNm / layer.chipRatio;
+        }
       }
     }
-    const estimatedNm = s.achievedNm[s.index] ?? 0;
     const crystalNm = Number.isFinite(s.layerCrystalNm) ? s.layerCrystalNm : 0;
     const crystalBelow = [...s.crystalBelow, { thicknessNm: crystalNm, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio }];
+    s = { ...s, indexFactors, opticalNm, materialIndex, materialRate, crystalBelow };
+    if (record) s = refitRecords({ ...s, chipRecords: [...s.chipRecords, record] });
+    const resolved = resolvedStack(s);
+    const estimatedNm = resolved.partNm[s.index] ?? 0;
     events.push({
       type: 'layer-finished',
       timeS: s.nowS,
       layer: layer.number,
       estimatedNm,
       crystalNm: Number.isFinite(s.layerCrystalNm) ? s.layerCrystalNm * layer.toolingFactor : Number.NaN,
+      indexFactor: resolved.indexFactors[s.index] as number,
       skipped,
     });
-    let next: ControllerState = { ...s, crystalBelow };
+    let next: ControllerState = s;
     if (s.index + 1 >= recipe.layers.length) {
       events.push({ type: 'run-finished', timeS: s.nowS, outcome: 'complete' });
       return { ...next, phase: 'finished' };
     }
     if (compensation && recipe.design.band && s.index + 1 < recipe.layers.length) next = compensateRest(next, events);
     if (opts.replan || compensation) {
-      const plan = planRun(withTargets(recipe, next.targetsNm), { achievedNm: next.achievedNm, suggest: 'none' });
+      const stack = resolvedStack(next);
+      const plan = planRun(withTargets(recipe, next.targetsNm), { achievedNm: stack.partNm, achievedIndexFactors: stack.indexFactors, suggest: 'none' });
       events.push({ type: 'replanned', timeS: s.nowS, fromLayer: plan.fromLayer, triggerSignals: plan.layers.map((l) => l.triggerSignal) });
       next = { ...next, plan };
     }
@@ -439,7 +580,9 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
   function compensateRest(s: ControllerState, events: RunEvent[]): ControllerState {
     const band = recipe.design.band as { fromNm: number; toNm: number };
     const fixed = s.index + 1;
-    const current = s.targetsNm.map((t, i) => (i < fixed ? (s.achievedNm[i] ?? t) : t));
+    // A finished layer enters at its optical thickness in design-index nanometres (d·κ).
+    const stack = resolvedStack(s);
+    const current = s.targetsNm.map((t, i) => (i < fixed ? (stack.partNm[i] ?? t) * (stack.indexFactors[i] ?? 1) : t));
     const result = compensate(recipe.design.stack, current, fixed, {
       fromNm: band.fromNm,
       toNm: band.toNm,
@@ -467,6 +610,8 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     events.push({ type: 'shutter', timeS: s.nowS, command: shutter('open', layer.materialName, layer.number, s.nowS) });
     // Not yet heard counts as alive, as for the silence guard (the first reading may come just after the opening).
     const crystalAlive = Number.isNaN(s.lastCrystalS) || s.nowS - s.lastCrystalS < opts.staleAfterS;
+    // A new chip starts a new refit, its priors what the earlier chips showed.
+    if (layer.chip !== s.recordsChip) s = { ...s, chipRecords: [], recordsChip: layer.chip, chipPriors: { rate: s.materialRate, index: s.materialIndex } };
     return {
       ...s,
       phase: 'depositing',
@@ -479,25 +624,118 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       rateAlerted: false,
       crystalAlerted: false,
       layerCrystalNm: Number.NaN,
-      fit: opts.estimator === 'fit' && (plan.cut === 'level' || plan.cut === 'turning-point') ? startFit(s, crystalAlive ? 'crystal' : 'time') : null,
+      // Layers cut on the crystal are watched by the fit too: the chip model of the later layers takes their optical thickness from it.
+      fit: opts.estimator === 'fit' && plan.cut !== 'time' && (plan.cut !== 'crystal' || crystalAlive) ? startFit(s, crystalAlive ? 'crystal' : 'time') : null,
     };
   }
 
-  /** A model fit for the layer about to start, on the chip as the estimates left it. */
+  /**
+   * A model fit for the layer about to start, on the chip as the estimates left it (thicknesses
+   * and indices, resolvedStack), its index and its rate on the crystal's clock starting from what
+   * the material's earlier layers showed. (The monitor's gain is not carried over from the layer
+   * below: at a high-reflectance stack's low transmission the chip model's small errors move the
+   * signal's level by per cents, and a gain held to the last layer's would push that into κ.)
+   */
   function startFit(s: ControllerState, clock: 'crystal' | 'time'): FitRun {
     const layer = layerRecipe(s);
     const plan = layerPlan(s);
-    const monitor = chipMonitorFor(recipe, s.index, s.achievedNm);
+    const stack = resolvedStack(s);
+    const view = { indexFactors: stack.indexFactors };
+    const monitor = chipMonitorFor(recipe, s.index, stack.partNm, view);
+    const table = layerSignalTable(monitor, plan.chipTargetNm);
+    const withIndex = opts.indexSigma > 0;
+    const index = withIndex
+      ? buildIndexTables(
+          table,
+          chipMonitorFor(recipe, s.index, stack.partNm, { ...view, growingIndexFactor: 1 + INDEX_DELTA }),
+          chipMonitorFor(recipe, s.index, stack.partNm, { ...view, growingIndexFactor: 1 - INDEX_DELTA }),
+          INDEX_DELTA,
+        )
+      : undefined;
+    const known = s.materialIndex[layer.materialName];
+    const rateKnown = clock === 'crystal' ? s.materialRate[layer.materialName] : undefined;
     const fit = createLayerFit({
       monitor,
+      table,
       targetNm: plan.chipTargetNm,
-      rateNmPerS: layer.rateNmPerS * layer.chipRatio,
-      rateSigmaFraction: DEFAULT_PRIORS.rateSigmaFraction,
+      rateNmPerS: layer.rateNmPerS * layer.chipRatio * (rateKnown?.factor ?? 1),
+      rateSigmaFraction: rateKnown ? Math.hypot(rateKnown.sigma / rateKnown.factor, RATE_RUN_SIGMA) : DEFAULT_PRIORS.rateSigmaFraction,
       gainSigma: DEFAULT_PRIORS.gainSigma,
       offsetSigma: DEFAULT_PRIORS.offsetSigma,
       noise,
+      ...(clock === 'crystal' ? { startSigmaNm: CLOCK_START_SIGMA_NM } : {}),
+      ...(index ? { indexSigma: known ? Math.hypot(known.sigma, INDEX_RUN_SIGMA) : opts.indexSigma, indexFactor: known?.factor ?? 1, indexTables: index } : {}),
     });
     return { fit, clock };
+  }
+
+  /**
+   * Refits the current chip's recorded layers together (src/model/estimate/chip-refit.ts) and
+   * takes its thicknesses, indices and material factors for everything that follows.
+   */
+  function refitRecords(s: ControllerState): ControllerState {
+    const stack = resolvedStack(s);
+    const result = refitChip(recipe, s.chipRecords, {
+      noise,
+      fixedPartNm: stack.partNm,
+      fixedIndexFactors: stack.indexFactors,
+      ratePriors: s.chipPriors.rate,
+      indexPriors: s.chipPriors.index,
+      defaultRateSigma: DEFAULT_PRIORS.rateSigmaFraction,
+      defaultIndexSigma: opts.indexSigma > 0 ? opts.indexSigma : 1e-6,
+      startSigmaNm: CLOCK_START_SIGMA_NM,
+      rateSpread: RATE_RUN_SIGMA,
+      gainSigma: DEFAULT_PRIORS.gainSigma,
+      offsetSigma: DEFAULT_PRIORS.offsetSigma,
+    });
+    const achievedNm = [...s.achievedNm];
+    const indexFactors = [...s.indexFactors];
+    for (const l of result.layers) {
+      if (!(l.partNm > 0) || !(l.indexFactor > 0)) continue;
+      achievedNm[l.index] = l.partNm;
+      indexFactors[l.index] = l.indexFactor;
+    }
+    return { ...s, achievedNm, indexFactors, materialRate: { ...s.materialRate, ...result.rate }, materialIndex: { ...s.materialIndex, ...result.index } };
+  }
+
+  /**
+   * The finished layers as the chip model and the re-plan take them: physical part thickness and
+   * index factor. A layer the fit cut: its own estimates (u/κ and κ). A layer cut on the crystal:
+   * once the fits of its material have calibrated the material's rate on the crystal's clock (ρ,
+   * to CALIBRATED_RATE_SIGMA), its crystal thickness made optical, u = ρ·crystal, at the
+   * material's index — re-resolved as the calibration improves, so that a first layer cut blind
+   * does not hold the chip model of the later ones hostage; before that, the optical thickness
+   * the watching fit saw, else the crystal's at the material's index (1 before any estimate).
+   * (Replacing a fitted layer's own estimate by ρ·crystal too was tried: ρ is known to a few
+   * tenths of a per cent, a layer's own fit to a few hundredths, so it loses.)
+   */
+  function resolvedStack(s: ControllerState): { partNm: number[]; indexFactors: number[] } {
+    const partNm: number[] = [];
+    const indexFactors: number[] = [];
+    s.achievedNm.forEach((achieved, i) => {
+      const layer = recipe.layers[i] as ResolvedRecipe['layers'][number];
+      const fitted = s.indexFactors[i] ?? Number.NaN;
+      const rate = s.materialRate[layer.materialName];
+      const crystalNm = (s.crystalBelow[i]?.thicknessNm ?? 0) * layer.toolingFactor;
+      const known = s.materialIndex[layer.materialName]?.factor;
+      if (!Number.isNaN(fitted)) {
+        partNm.push(achieved);
+        indexFactors.push(fitted);
+        return;
+      }
+      if (rate && rate.sigma < CALIBRATED_RATE_SIGMA * rate.factor && crystalNm > 0) {
+        const index = known ?? 1;
+        partNm.push((rate.factor * crystalNm) / index);
+        indexFactors.push(index);
+        return;
+      }
+      const watched = s.opticalNm[i] ?? Number.NaN;
+      // Before any fitted layer of the material, what the watching fit saw stands for its index too.
+      const index = known ?? (Number.isFinite(watched) && achieved > 0 ? Math.min(1.1, Math.max(0.9, watched / achieved)) : 1);
+      partNm.push((Number.isFinite(watched) ? watched : achieved * index) / index);
+      indexFactors.push(index);
+    });
+    return { partNm, indexFactors };
   }
 
   /** The fit's clock at run time t: crystal part thickness over the planned rate, or elapsed time. */
@@ -614,6 +852,13 @@ function withReading(
     crystal,
     crystalBelow: s.crystalBelow,
     achievedNm: s.achievedNm,
+    indexFactors: s.indexFactors,
+    opticalNm: s.opticalNm,
+    materialIndex: s.materialIndex,
+    materialRate: s.materialRate,
+    chipRecords: s.chipRecords,
+    recordsChip: s.recordsChip,
+    chipPriors: s.chipPriors,
     approachingSent: s.approachingSent,
     rateAlerted: s.rateAlerted,
     crystalAlerted: s.crystalAlerted,

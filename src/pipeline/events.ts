@@ -13,6 +13,7 @@ export type CutReason =
   | 'trigger-level'
   | 'turning-point'
   | 'crystal-thickness'
+  | 'crystal-calibrated'
   | 'time'
   | 'thickness-ceiling'
   | 'time-ceiling'
@@ -51,6 +52,8 @@ export type RunEvent =
       readonly estimatedNm: number;
       /** The crystal's figure for the same layer (NaN without a crystal). */
       readonly crystalNm: number;
+      /** The layer's index over the design's as the model fit estimated it (NaN when not fitted). */
+      readonly indexFactor: number;
       readonly skipped: boolean;
     }
   | { readonly type: 'mode-changed'; readonly timeS: number; readonly layer: number; readonly from: CutMode; readonly to: CutMode }

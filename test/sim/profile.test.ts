@@ -9,7 +9,7 @@ import { indexAt, type Dispersion } from '../../src/model/optics/dispersion.ts';
 import { loadSimProfile, materialSettingsFor, scaledDispersion, SimProfileSchema, sourceSettingsFor } from '../../sim/index.ts';
 import { profiles } from './support.ts';
 
-const { ideal, typical, harsh } = profiles;
+const { ideal, typical, harsh, uncalibrated } = profiles;
 
 describe('shipped profiles', () => {
   it('typical has the values the issue names', () => {
@@ -30,6 +30,17 @@ describe('shipped profiles', () => {
     const { description, ...rest } = typical;
     expect(description).toMatch(/e-beam/);
     expect(rest).toEqual({ ...defaults, sources: { default: { ...defaults.sources.default, shutterDelayS: 0.2 } }, optical: { ...defaults.optical, sampleRateHz: 10 }, crystal: { ...defaults.crystal, sampleRateHz: 10 } });
+  });
+
+  it('uncalibrated is typical with the chip ratio and the tooling factor off', () => {
+    expect([typical.sources.default.chipRatioErrorPercent, typical.sources.default.toolingErrorPercent]).toEqual([0, 0]);
+    expect(uncalibrated).toEqual({
+      ...typical,
+      name: 'uncalibrated',
+      description: uncalibrated.description,
+      sources: { default: { ...typical.sources.default, chipRatioErrorPercent: 0.5, toolingErrorPercent: 1.5 } },
+    });
+    expect(uncalibrated.description).toMatch(/typical/);
   });
 
   it('harsh has five times the noise and drift of typical, spikes and a dropout', () => {

@@ -22,6 +22,7 @@ export const profiles = {
   ideal: loadSimProfile(join(root, 'config/sim/ideal.yaml')),
   typical: loadSimProfile(join(root, 'config/sim/typical.yaml')),
   harsh: loadSimProfile(join(root, 'config/sim/harsh.yaml')),
+  uncalibrated: loadSimProfile(join(root, 'config/sim/uncalibrated.yaml')),
 };
 
 type Patch = { [key: string]: unknown };

@@ -26,6 +26,8 @@ export interface IdealRunOptions {
   /** Stop after this much run time (default: 3 × the planned duration). */
   maxS?: number;
   seed?: number;
+  /** True index over the design's per material (default 1): the monitor shows the chip with these. */
+  indexFactors?: Readonly<Record<string, number>>;
 }
 
 export interface IdealRunResult {
@@ -69,7 +71,8 @@ export function runIdeal(recipe: ResolvedRecipe, controller: Controller, options
       if (e.command.action === 'open') {
         if (current !== e.command.layer - 1) {
           current = e.command.layer - 1;
-          monitor = chipMonitorFor(recipe, current, trueNm);
+          const factors = recipe.layers.map((l) => options.indexFactors?.[l.materialName] ?? 1);
+          monitor = chipMonitorFor(recipe, current, trueNm, { indexFactors: factors, growingIndexFactor: factors[current] as number });
           crystal.push({ thicknessNm: 0, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio });
         }
         open = true;

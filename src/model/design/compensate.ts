@@ -7,6 +7,7 @@
  * Recipes*, §15.5; from memory). Pure; the optical model is built once per call.
  */
 import { buildOpticalModel, spectrum, type StackSpec } from '../optics/optical-model.ts';
+import { solveDamped } from '../numeric/dense.ts';
 
 export interface CompensationOptions {
   /** The band, nm, and its sampling step (default 5 nm). */
@@ -120,31 +121,4 @@ export function compensate(design: StackSpec, current: ArrayLike<number>, fixed:
     if (!improved) break;
   }
   return { thicknessNm: x, rmsBefore, rmsAfter: Math.sqrt(cost / count), iterations };
-}
-
-/** Solves (A + λ·diag(A)) δ = g for the lower-triangle-filled symmetric A by Cholesky. */
-function solveDamped(A: Float64Array, g: Float64Array, n: number, lambda: number): Float64Array {
-  const L = new Float64Array(n * n);
-  for (let i = 0; i < n; i++) {
-    for (let j = 0; j <= i; j++) {
-      let sum = A[i * n + j] as number;
-      if (i === j) sum += lambda * Math.max(sum, 1e-12);
-      for (let k = 0; k < j; k++) sum -= (L[i * n + k] as number) * (L[j * n + k] as number);
-      if (i === j) L[i * n + i] = Math.sqrt(Math.max(sum, 1e-300));
-      else L[i * n + j] = sum / (L[j * n + j] as number);
-    }
-  }
-  const y = new Float64Array(n);
-  for (let i = 0; i < n; i++) {
-    let sum = g[i] as number;
-    for (let k = 0; k < i; k++) sum -= (L[i * n + k] as number) * (y[k] as number);
-    y[i] = sum / (L[i * n + i] as number);
-  }
-  const x = new Float64Array(n);
-  for (let i = n - 1; i >= 0; i--) {
-    let sum = y[i] as number;
-    for (let k = i + 1; k < n; k++) sum -= (L[k * n + i] as number) * (x[k] as number);
-    x[i] = sum / (L[i * n + i] as number);
-  }
-  return x;
 }

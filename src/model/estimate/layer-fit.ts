@@ -3,13 +3,20 @@
  * Gauss–Newton fit of the readings to the plan's signal curve, updated reading by reading, that
  * says how thick the layer is now, how sure it is, and when to send the cut.
  *
- * Model: y(t) = g·S(κ·d(t)) + o + ε, d(t) = d₀ + r·min(t, t_close), ε white with rms σ.
- * θ = (d₀, r, g, o[, κ]); t counts from the layer's shutter-open command. The priors enter as
- * pseudo-observations (maximum a posteriori; Kay, *Fundamentals of Statistical Signal
- * Processing: Estimation Theory*, ch. 10): g ~ N(1, σ_g), o ~ N(0, σ_o), r ~ N(r_plan, σ_r·r_plan),
- * κ ~ N(1, σ_κ), and a weak d₀ ~ N(0, startSigmaNm) that only keeps the first readings solvable on a
- * flat start. Identifiability: g and o trade off on a flat signal, d and κ near a turning point, and
- * κ with (d₀, r) exactly (S sees only κ·d): the priors fix what the data cannot tell.
+ * Model: y(t) = g·F(u(t), κ) + o + ε, u(t) = u₀ + r·min(t, t_close), ε white with rms σ.
+ * u is the layer's thickness at the design index with the layer's optical thickness (κ·d for a
+ * layer of physical thickness d at index κ·n): what optical monitoring controls, and what the cut
+ * compares with the target. F(u, 1) = S(u), the plan's curve; with an index correction
+ * (`indexSigma`, `indexTables`) F(u, κ) ≈ S(u) + (κ−1)·S_κ(u) + ½(κ−1)²·S_κκ(u) (signal-table.ts):
+ * at a fixed optical thickness the index changes the swing's depth, not its phase, so the shape
+ * of a level or turning-point curve no longer biases u when the chamber's index is not the
+ * design's. θ = (u₀, r, g, o[, κ]); t counts from the layer's shutter-open command. The priors
+ * enter as pseudo-observations (maximum a posteriori; Kay, *Fundamentals of Statistical Signal
+ * Processing: Estimation Theory*, ch. 10): g ~ N(1, σ_g), o ~ N(0, σ_o),
+ * r ~ N(r_plan, σ_r·r_plan), κ ~ N(κ_prior, σ_κ), and a weak u₀ ~ N(0, startSigmaNm) that only keeps
+ * the first readings solvable on a flat start. Identifiability: g and o trade off on a flat signal,
+ * u and κ with g and o to first order (the depth of the swing is also a gain): the priors fix what
+ * the data cannot tell (the controller's priors of κ and r come from the material's earlier layers).
  *
  * Rate ramp after the opening: d₀ is free, so a ramp with time constant τ is absorbed as
  * d₀ ≈ −r·τ once t ≫ τ; `rampS` drops the readings of the first seconds where the ramp bends the
@@ -32,7 +39,7 @@
  * every block revisited within N/(REFRESH_BLOCKS·BLOCK) readings. The fixed point is the exact MAP
  * estimate: at convergence every block is re-linearised there. A step that moves the fitted
  * thickness by more than RELINEARISE_NM re-linearises every block at the next iteration (early
- * in the layer only). Steps are limited to maxStepNm of κ·d at either end of the window (a
+ * in the layer only). Steps are limited to maxStepNm of u at either end of the window (a
  * trust region against the first, poorly determined readings).
  *
  * Signal: S and dS/dd from a cubic Hermite table of the chip monitor (signal-table.ts), built
@@ -43,7 +50,7 @@
  * grows geometrically.
  */
 import type { ChipMonitor } from '../plan/chip-monitor.ts';
-import { buildSignalTable, signalAndSlope, type SignalTable } from './signal-table.ts';
+import { layerSignalTable, signalAndSlope, type IndexTables, type SignalTable } from './signal-table.ts';
 
 export interface LayerFitOptions {
   /** S(d) for this layer on its chip (the re-planned chip history). */
@@ -55,7 +62,7 @@ export interface LayerFitOptions {
   /** Planned chip rate nm/s, and its prior rms (fraction), e.g. from the crystal. */
   rateNmPerS: number;
   rateSigmaFraction: number;
-  /** Priors of the monitor gain (about 1) and offset (about 0), rms. Every prior σ must be positive; Infinity means no prior. */
+  /** Priors of the monitor gain and offset, rms. Every prior σ must be positive; Infinity means no prior. */
   gainSigma: number;
   offsetSigma: number;
   /** rms of one reading (fraction of full scale). */
@@ -66,8 +73,12 @@ export interface LayerFitOptions {
   spikeSigma?: number;
   /** Use readings of the last windowS seconds (of the readings' clock) only (default: the whole layer), to follow a wandering rate. */
   windowS?: number;
-  /** Fit an index correction κ (a stretch of S along d) with this prior rms (fraction); absent or 0: κ = 1 fixed. */
+  /** Fit an index correction κ (n_true = κ·n) with this prior rms (fraction); absent or 0: κ = 1 fixed. Needs `indexTables`. */
   indexSigma?: number;
+  /** Mean of that prior (default 1): e.g. what the material's earlier layers showed. */
+  indexFactor?: number;
+  /** ∂F/∂κ and ∂²F/∂κ² on the grid of `table` (buildIndexTables). */
+  indexTables?: IndexTables;
   /** Ignore readings in the first rampS seconds after the opening command (default 0). */
   rampS?: number;
   /** Prior rms of d₀, nm (default: targetNm, i.e. practically free). */
@@ -75,7 +86,7 @@ export interface LayerFitOptions {
 }
 
 export interface LayerEstimate {
-  /** Thickness on the chip at the asked time, nm. */
+  /** Thickness on the chip at the asked time, nm: u, at the design index with the layer's optical thickness. */
   thicknessNm: number;
   /** Its standard deviation from the fit's covariance (inverse information incl. priors), nm. */
   sigmaNm: number;
@@ -103,8 +114,27 @@ export interface LayerFit {
   estimate(timeS: number): LayerEstimate;
   /** When the cut command should go out so that the fitted thickness reaches `targetNm` when the shutter has closed: t_target − delay. */
   cutTimeS(targetNm: number, shutterDelayS: number): number;
-  /** After the cut: the thickness stops growing at `closeTimeS`; refits to convergence with every reading incl. those after the close. */
-  finalThickness(closeTimeS: number): { thicknessNm: number; sigmaNm: number; indexFactor: number };
+  /** Every reading added so far (the clock, the value, 1 where it is now flagged a spike): views, valid until the next add. */
+  readings(): { times: Float64Array; values: Float64Array; spikes: Uint8Array };
+  /**
+   * After the cut: the thickness stops growing at `closeTimeS`; refits to convergence with every
+   * reading incl. those after the close. `thicknessNm` is u (physical: u/κ); gain and offset as
+   * fitted, with their rms, to carry over to the next layer.
+   */
+  finalThickness(closeTimeS: number): FinalEstimate;
+}
+
+export interface FinalEstimate {
+  thicknessNm: number;
+  sigmaNm: number;
+  rateNmPerS: number;
+  rateSigma: number;
+  indexFactor: number;
+  indexSigma: number;
+  gain: number;
+  gainSigma: number;
+  offset: number;
+  offsetSigma: number;
 }
 
 /** Readings per block of the update scheme. */
@@ -119,7 +149,7 @@ const REFRESH_BLOCKS = 4;
 const ITERATIONS = 2;
 const SETTLED_SIGMA = 0.05;
 /**
- * A step that moves κ·d by more than this re-linearises every block: the quadratic model of a
+ * A step that moves u by more than this re-linearises every block: the quadratic model of a
  * block errs by about ½|S″|Δu² per reading, ≈ 5e-6 for |S″| ≤ 1e-3 per nm² — far below σ.
  */
 const RELINEARISE_NM = 0.1;
@@ -143,7 +173,14 @@ export function createLayerFit(options: LayerFitOptions): LayerFit {
   const windowS = options.windowS !== undefined && options.windowS > 0 ? options.windowS : Number.POSITIVE_INFINITY;
   const rampS = options.rampS ?? 0;
   const P = options.indexSigma !== undefined && options.indexSigma > 0 ? 5 : 4;
-  const table = options.table ?? buildSignalTable(monitor, -(0.1 * targetNm + 5), 1.5 * targetNm + 5);
+  const table = options.table ?? layerSignalTable(monitor, targetNm);
+  const indexTables = options.indexTables;
+  if (P === 5) {
+    if (!indexTables) throw new RangeError('layer fit: an index correction (indexSigma) needs indexTables');
+    if (indexTables.first.count !== table.count || indexTables.first.fromNm !== table.fromNm || indexTables.first.stepNm !== table.stepNm) {
+      throw new RangeError('layer fit: indexTables must be built on the grid of the signal table');
+    }
+  }
   const maxStepNm = Math.max(1, 0.05 * targetNm);
   const invVar = 1 / (noise * noise);
   const noiseVar = noise * noise;
@@ -153,7 +190,7 @@ export function createLayerFit(options: LayerFitOptions): LayerFit {
     if (!(sigma > 0)) throw new RangeError(`layer fit: ${what} must be positive (Infinity for no prior)`);
     return Number.isFinite(sigma) ? 1 / (sigma * sigma) : 0;
   };
-  const priorMean = Float64Array.of(0, rateNmPerS, 1, 0, 1);
+  const priorMean = Float64Array.of(0, rateNmPerS, 1, 0, P === 5 ? (options.indexFactor ?? 1) : 1);
   const priorInfo = Float64Array.of(
     info(options.startSigmaNm ?? targetNm, 'startSigmaNm'),
     info(options.rateSigmaFraction * rateNmPerS, 'rateSigmaFraction'),
@@ -187,7 +224,7 @@ export function createLayerFit(options: LayerFitOptions): LayerFit {
   let kDone = 0;
   let rr = 0;
   let relinearise = false;
-  /** |Δ(κ·d)| of the last step, nm (the larger of the window's two ends). */
+  /** |Δu| of the last step, nm (the larger of the window's two ends). */
   let lastMoveNm = 0;
   let tClose = Number.POSITIVE_INFINITY;
 
@@ -231,7 +268,8 @@ export function createLayerFit(options: LayerFitOptions): LayerFit {
     const r = theta[RATE] as number;
     const g = theta[GAIN] as number;
     const o = theta[OFFSET] as number;
-    const k = theta[INDEX] as number;
+    const e1 = (theta[INDEX] as number) - 1;
+    const halfE1Sq = 0.5 * e1 * e1;
     const withIndex = P === 5;
     // The covariance and the sums in scalars: the loop below then runs in registers.
     const c00 = cov[0] as number, c01 = cov[1] as number, c02 = cov[2] as number, c03 = cov[3] as number, c04 = cov[4] as number;
@@ -243,6 +281,12 @@ export function createLayerFit(options: LayerFitOptions): LayerFit {
     let b0 = 0, b1 = 0, b2 = 0, b3 = 0, b4 = 0;
     const values = table.values;
     const slopes = table.slopes;
+    const firstTable = withIndex ? (indexTables as IndexTables).first : table;
+    const secondTable = withIndex ? (indexTables as IndexTables).second : table;
+    const values1 = firstTable.values;
+    const slopes1 = firstTable.slopes;
+    const values2 = secondTable.values;
+    const slopes2 = secondTable.slopes;
     const h = table.stepNm;
     const invH = 1 / h;
     const from0 = table.fromNm;
@@ -253,35 +297,59 @@ export function createLayerFit(options: LayerFitOptions): LayerFit {
     for (let i = from; i < to; i++) {
       const ti = times[i] as number;
       const t = ti < tClose ? ti : tClose;
-      const d = d0 + r * t;
-      const u = k * d;
-      // S(u), S′(u): the cubic Hermite spline of signal-table.ts, inlined.
+      const u = d0 + r * t;
+      // F(u, κ) and ∂F/∂u, ∂F/∂κ: the cubic Hermite splines of signal-table.ts, inlined (one basis for every table).
       let s: number;
       let ds: number;
+      let dk = 0;
       const x = (u - from0) * invH;
       const j = Math.floor(x);
       if (j >= 0 && j < last) {
         const f = x - j;
         const f2 = f * f;
         const f3 = f2 * f;
+        const h00 = 2 * f3 - 3 * f2 + 1;
+        const h10 = (f3 - 2 * f2 + f) * h;
+        const h01 = 3 * f2 - 2 * f3;
+        const h11 = (f3 - f2) * h;
+        const q00 = (6 * f2 - 6 * f) * invH;
+        const q10 = 3 * f2 - 4 * f + 1;
+        const q11 = 3 * f2 - 2 * f;
         const p0 = values[j] as number;
         const p1 = values[j + 1] as number;
-        const m0 = (slopes[j] as number) * h;
-        const m1 = (slopes[j + 1] as number) * h;
-        s = (2 * f3 - 3 * f2 + 1) * p0 + (f3 - 2 * f2 + f) * m0 + (3 * f2 - 2 * f3) * p1 + (f3 - f2) * m1;
-        ds = ((6 * f2 - 6 * f) * (p0 - p1) + (3 * f2 - 4 * f + 1) * m0 + (3 * f2 - 2 * f) * m1) * invH;
+        const m0 = slopes[j] as number;
+        const m1 = slopes[j + 1] as number;
+        s = h00 * p0 + h10 * m0 + h01 * p1 + h11 * m1;
+        ds = q00 * (p0 - p1) + q10 * m0 + q11 * m1;
+        if (withIndex) {
+          const g0 = values1[j] as number, g1 = values1[j + 1] as number, gm0 = slopes1[j] as number, gm1 = slopes1[j + 1] as number;
+          const k0 = values2[j] as number, k1 = values2[j + 1] as number, km0 = slopes2[j] as number, km1 = slopes2[j + 1] as number;
+          const first = h00 * g0 + h10 * gm0 + h01 * g1 + h11 * gm1;
+          const second = h00 * k0 + h10 * km0 + h01 * k1 + h11 * km1;
+          s += e1 * first + halfE1Sq * second;
+          ds += e1 * (q00 * (g0 - g1) + q10 * gm0 + q11 * gm1) + halfE1Sq * (q00 * (k0 - k1) + q10 * km0 + q11 * km1);
+          dk = first + e1 * second;
+        }
       } else {
         signalAndSlope(table, u, ss);
         s = ss[0] as number;
         ds = ss[1] as number;
+        if (withIndex) {
+          signalAndSlope(firstTable, u, ss);
+          const first = ss[0] as number;
+          ds += e1 * (ss[1] as number);
+          signalAndSlope(secondTable, u, ss);
+          s += e1 * first + halfE1Sq * (ss[0] as number);
+          ds += halfE1Sq * (ss[1] as number);
+          dk = first + e1 * (ss[0] as number);
+        }
       }
-      const slope = g * ds;
       const e = (readings[i] as number) - (g * s + o);
-      // ∂y/∂θ: (g S′ κ, g S′ κ t, S, 1, g S′ d)
-      const j0 = slope * k;
+      // ∂y/∂θ: (g ∂F/∂u, g ∂F/∂u t, F, 1, g ∂F/∂κ)
+      const j0 = g * ds;
       const j1 = j0 * t;
       const j2 = s;
-      const j4 = withIndex ? slope * d : 0;
+      const j4 = g * dk;
       // Predictive variance of the reading: σ² + jᵀΣj (j₃ = 1).
       const v =
         c00 * j0 * j0 + c11 * j1 * j1 + c22 * j2 * j2 + c33 + c44 * j4 * j4 +
@@ -472,7 +540,7 @@ export function createLayerFit(options: LayerFitOptions): LayerFit {
       rhs[p] = (rhs[p] as number) + w * ((priorMean[p] as number) - (theta[p] as number));
     }
     if (!solve()) return false;
-    // Limit the step: κ·d may move by at most maxStepNm at either end of the window.
+    // Limit the step: u may move by at most maxStepNm at either end of the window.
     const move = n > 0 ? Math.max(moveAt(ts[i0] as number), moveAt(ts[n - 1] as number)) : 0;
     const alpha = move > maxStepNm ? maxStepNm / move : 1;
     for (let p = 0; p < P; p++) {
@@ -485,12 +553,10 @@ export function createLayerFit(options: LayerFitOptions): LayerFit {
     return true;
   }
 
-  /** |Δ(κ·d)| at time t for the proposed step (first order). */
+  /** |Δu| at time t for the proposed step. */
   function moveAt(time: number): number {
     const t = time < tClose ? time : tClose;
-    const d = (theta[D0] as number) + (theta[RATE] as number) * t;
-    const du = (theta[INDEX] as number) * ((step[D0] as number) + (step[RATE] as number) * t) + (P === 5 ? d * (step[INDEX] as number) : 0);
-    return Math.abs(du);
+    return Math.abs((step[D0] as number) + (step[RATE] as number) * t);
   }
 
   /**
@@ -600,6 +666,10 @@ export function createLayerFit(options: LayerFitOptions): LayerFit {
       return (target - (theta[D0] as number)) / r - shutterDelayS;
     },
 
+    readings() {
+      return { times: ts.subarray(0, n), values: ys.subarray(0, n), spikes: flags.subarray(0, n) };
+    },
+
     finalThickness(closeTimeS: number) {
       tClose = closeTimeS;
       rebuild();
@@ -612,7 +682,19 @@ export function createLayerFit(options: LayerFitOptions): LayerFit {
         }
         if (largest < 1e-9) break;
       }
-      return { thicknessNm: thicknessAt(closeTimeS), sigmaNm: sigmaAt(closeTimeS), indexFactor: theta[INDEX] as number };
+      const sd = (p: number): number => (p < P && (cov[p * M + p] as number) > 0 ? Math.sqrt(cov[p * M + p] as number) : 0);
+      return {
+        thicknessNm: thicknessAt(closeTimeS),
+        sigmaNm: sigmaAt(closeTimeS),
+        rateNmPerS: theta[RATE] as number,
+        rateSigma: sd(RATE),
+        indexFactor: theta[INDEX] as number,
+        indexSigma: sd(INDEX),
+        gain: theta[GAIN] as number,
+        gainSigma: sd(GAIN),
+        offset: theta[OFFSET] as number,
+        offsetSigma: sd(OFFSET),
+      };
     },
   };
 }

@@ -12,10 +12,14 @@
  * two errors are ≈ 6e-12 per nm and ≈ 6e-12: nine orders below a reading's noise (1e-3). The
  * spline is C¹ and its derivative is exact for it, so a Gauss–Newton fit on it is consistent.
  */
-import type { ChipMonitor } from '../plan/chip-monitor.ts';
+/** Anything that gives a signal as a function of the growing layer's thickness (a ChipMonitor, say). */
+export interface SignalSource {
+  signalAt(thicknessNm: number): number;
+}
 
 export interface SignalTable {
-  readonly monitor: ChipMonitor;
+  /** What the table tabulates; read directly outside the table's range. */
+  readonly source: SignalSource;
   /** Chip thickness of node 0, nm (may be negative: the fit's start may sit before the opening). */
   readonly fromNm: number;
   readonly stepNm: number;
@@ -33,11 +37,14 @@ export const SIGNAL_TABLE_STEP_NM = 0.1;
  * Tabulates `monitor` from `fromNm` to at least `toNm` every `stepNm`: one signal evaluation per
  * node (plus two on each side for the end slopes).
  */
-export function buildSignalTable(monitor: ChipMonitor, fromNm: number, toNm: number, stepNm: number = SIGNAL_TABLE_STEP_NM): SignalTable {
+export function buildSignalTable(source: SignalSource, fromNm: number, toNm: number, stepNm: number = SIGNAL_TABLE_STEP_NM): SignalTable {
   if (!(stepNm > 0) || !(toNm > fromNm)) throw new RangeError('signal table: need stepNm > 0 and toNm > fromNm');
-  const count = Math.ceil((toNm - fromNm) / stepNm) + 1;
+  return tabulate(source, fromNm, stepNm, Math.ceil((toNm - fromNm) / stepNm) + 1);
+}
+
+function tabulate(source: SignalSource, fromNm: number, stepNm: number, count: number): SignalTable {
   const padded = new Float64Array(count + 4);
-  for (let i = 0; i < count + 4; i++) padded[i] = monitor.signalAt(fromNm + (i - 2) * stepNm);
+  for (let i = 0; i < count + 4; i++) padded[i] = source.signalAt(fromNm + (i - 2) * stepNm);
   const values = padded.slice(2, count + 2);
   const slopes = new Float64Array(count);
   const inv12h = 1 / (12 * stepNm);
@@ -46,7 +53,41 @@ export function buildSignalTable(monitor: ChipMonitor, fromNm: number, toNm: num
     const j = i + 2;
     slopes[i] = ((padded[j - 2] as number) - 8 * (padded[j - 1] as number) + 8 * (padded[j + 1] as number) - (padded[j + 2] as number)) * inv12h;
   }
-  return { monitor, fromNm, stepNm, count, values, slopes };
+  return { source, fromNm, stepNm, count, values, slopes };
+}
+
+/** The table the layer fit uses for a layer of chip target `targetNm`: from −(0.1·target + 5) nm to 1.5·target + 5 nm. */
+export function layerSignalTable(monitor: SignalSource, targetNm: number): SignalTable {
+  return buildSignalTable(monitor, -(0.1 * targetNm + 5), 1.5 * targetNm + 5);
+}
+
+/**
+ * How the signal changes with the growing layer's index at a fixed optical thickness, tabulated
+ * on the grid of `table`: with F(u, κ) the signal of the layer at index κ·n and physical thickness
+ * u/κ (so u is the thickness at the design index with the same optical thickness),
+ * `first` = ∂F/∂κ and `second` = ∂²F/∂κ² at κ = 1, by central differences over ±δ
+ * (Abramowitz and Stegun 25.3.23 and 25.3.24: errors δ²/6·∂³F/∂κ³ and δ²/12·∂⁴F/∂κ⁴).
+ * The fit then models F(u, κ) ≈ S(u) + (κ−1)·first(u) + ½(κ−1)²·second(u), exact to (κ−1)³.
+ * `plus` and `minus` are the same chip with the growing layer's index × (1 ± δ).
+ */
+export interface IndexTables {
+  readonly first: SignalTable;
+  readonly second: SignalTable;
+}
+
+export function buildIndexTables(table: SignalTable, plus: SignalSource, minus: SignalSource, delta: number): IndexTables {
+  if (!(delta > 0 && delta < 0.2)) throw new RangeError('index tables: delta must be in (0, 0.2)');
+  const centre = table.source;
+  const first: SignalSource = {
+    signalAt: (u) => (plus.signalAt(u / (1 + delta)) - minus.signalAt(u / (1 - delta))) / (2 * delta),
+  };
+  const second: SignalSource = {
+    signalAt: (u) => (plus.signalAt(u / (1 + delta)) - 2 * centre.signalAt(u) + minus.signalAt(u / (1 - delta))) / (delta * delta),
+  };
+  return {
+    first: tabulate(first, table.fromNm, table.stepNm, table.count),
+    second: tabulate(second, table.fromNm, table.stepNm, table.count),
+  };
 }
 
 /**
@@ -70,7 +111,7 @@ export function signalAndSlope(table: SignalTable, thicknessNm: number, out: Flo
     out[1] = ((6 * s2 - 6 * s) * (p0 - p1) + (3 * s2 - 4 * s + 1) * m0 + (3 * s2 - 2 * s) * m1) / h;
     return;
   }
-  const m = table.monitor;
+  const m = table.source;
   out[0] = m.signalAt(thicknessNm);
   out[1] = (m.signalAt(thicknessNm - 2 * h) - 8 * m.signalAt(thicknessNm - h) + 8 * m.signalAt(thicknessNm + h) - m.signalAt(thicknessNm + 2 * h)) / (12 * h);
 }

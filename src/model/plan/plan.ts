@@ -6,7 +6,7 @@
  * the layer's thickness on its chip (part thickness × chipRatio); the crystal's is on the
  * crystal (part thickness / tooling factor).
  */
-import { indexAt } from '../optics/dispersion.ts';
+import { indexAt, scaledDispersion } from '../optics/dispersion.ts';
 import { crystalLifeUsed, stackFrequencyHz, type CrystalLayer } from '../crystal/index.ts';
 import { buildChipMonitor, findTurningPoints, type ChipMonitor, type TurningPoint } from './chip-monitor.ts';
 import {
@@ -38,6 +38,8 @@ export interface PlanOptions {
    * later layers are planned; the chips and the crystal carry the achieved layers.
    */
   achievedNm?: readonly number[];
+  /** n_true / n_design of those layers, as estimated (default 1 each): the chips carry them. */
+  achievedIndexFactors?: readonly number[];
 }
 
 export type PlanWarningCode =
@@ -155,7 +157,7 @@ export function planRun(recipe: ResolvedRecipe, options: PlanOptions = {}): RunP
   for (const layer of planned) {
     const i = layer.number - 1;
     const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
-    const monitor = chipMonitorFor(recipe, i, partNm);
+    const monitor = chipMonitorFor(recipe, i, partNm, { indexFactors: options.achievedIndexFactors ?? [] });
     const target = chipNm[i] as number;
     const intervals = Math.max(2, Math.ceil(target / curveStep));
     const step = target / intervals;
@@ -197,17 +199,26 @@ export function planRun(recipe: ResolvedRecipe, options: PlanOptions = {}): RunP
   };
 }
 
+export interface ChipViewOptions {
+  /** n_true / n_design of the earlier layers, as estimated (default 1 each). */
+  indexFactors?: readonly number[];
+  /** The same for the growing layer (default 1). */
+  growingIndexFactor?: number;
+}
+
 /**
  * The optical monitor's view of layer `index` (0-based) on its chip, with the chip's earlier
- * layers at the part thicknesses `partNm` (× their chip ratios).
+ * layers at the part thicknesses `partNm` (× their chip ratios) and, where given, their
+ * estimated indices.
  */
-export function chipMonitorFor(recipe: ResolvedRecipe, index: number, partNm: readonly number[]): ChipMonitor {
+export function chipMonitorFor(recipe: ResolvedRecipe, index: number, partNm: readonly number[], view: ChipViewOptions = {}): ChipMonitor {
   const layer = recipe.layers[index] as LayerRecipe;
   const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
+  const factors = view.indexFactors ?? [];
   const below = [];
   for (let j = chip.fromLayer - 1; j < index; j++) {
     const l = recipe.layers[j] as LayerRecipe;
-    below.push({ dispersion: l.dispersion, thicknessNm: (partNm[j] ?? l.targetNm) * l.chipRatio });
+    below.push({ dispersion: scaledDispersion(l.dispersion, factors[j] ?? 1, 0), thicknessNm: (partNm[j] ?? l.targetNm) * l.chipRatio });
   }
   return buildChipMonitor({
     incident: recipe.incident,
@@ -215,7 +226,7 @@ export function chipMonitorFor(recipe: ResolvedRecipe, index: number, partNm: re
     back: chip.back,
     substrateThicknessNm: chip.thicknessMm * 1e6,
     below,
-    growing: layer.dispersion,
+    growing: scaledDispersion(layer.dispersion, view.growingIndexFactor ?? 1, 0),
     wavelengthNm: layer.wavelengthNm,
     bandwidthNm: layer.bandwidthNm,
     angleDeg: layer.angleDeg,

@@ -66,7 +66,9 @@ export const MODE_SHORT = { 'turning-point': 'turn. pt', level: 'level', crystal
 export const REASON_SHORT = {
   'trigger-level': '✓ level',
   'turning-point': '✓ turn. pt',
+  'model-fit': '✓ model fit',
   'crystal-thickness': '✓ crystal',
+  'crystal-calibrated': '✓ crystal (cal.)',
   time: '✓ time',
   'thickness-ceiling': '! ceiling',
   'time-ceiling': '! time ceiling',
@@ -77,7 +79,9 @@ export const REASON_SHORT = {
 export const REASON_WORDS = {
   'trigger-level': 'trigger level',
   'turning-point': 'turning point',
+  'model-fit': 'model fit',
   'crystal-thickness': 'crystal',
+  'crystal-calibrated': 'crystal, calibrated by the optical fits',
   time: 'time',
   'thickness-ceiling': 'thickness ceiling',
   'time-ceiling': 'time ceiling',
