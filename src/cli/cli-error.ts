@@ -21,6 +21,13 @@ export function numberOption(name: string, value: string | undefined): number | 
   return n;
 }
 
+/** How optical layers are cut on the command line: the model fit unless --estimator plain asks for the plain rules. */
+export function estimatorOption(value: string | undefined, fallback: 'fit' | 'plain' = 'fit'): 'fit' | 'plain' {
+  const estimator = value ?? fallback;
+  if (estimator !== 'plain' && estimator !== 'fit') throw new CliError(`--estimator must be fit or plain, got "${estimator}"`);
+  return estimator;
+}
+
 /** Writes a file the user asked for (creating its folder), or says in one sentence why not. */
 export function writeOutputFile(file: string, text: string): void {
   try {

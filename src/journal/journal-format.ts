@@ -18,8 +18,13 @@ export interface JournalHeader {
   readonly runId: string;
   readonly startedAt: string;
   readonly recipe: string;
-  /** Free-form facts about the run: source (live, simulated, replay), seed, profile. */
+  /** Free-form facts about the run: source (live, simulated, replay), seed, profile, estimator. */
   readonly meta: Readonly<Record<string, unknown>>;
+}
+
+/** How the recorded run cut its optical layers (`meta.estimator`; journals from before it was recorded: the plain rules). */
+export function journalEstimator(header: JournalHeader): 'fit' | 'plain' {
+  return header.meta.estimator === 'fit' ? 'fit' : 'plain';
 }
 
 export type JournalRecord =

@@ -16,7 +16,7 @@
  */
 import { stackThicknessNm, type CrystalLayer } from '../model/crystal/index.ts';
 import { compensate } from '../model/design/compensate.ts';
-import { buildIndexTables, createLayerFit, layerSignalTable, refitChip, type LayerFit, type RefitLayer } from '../model/estimate/index.ts';
+import { buildIndexTables, createLayerFit, layerSignalTable, refitChip, type LayerFit, type RefitLayer, type RefitLayerResult } from '../model/estimate/index.ts';
 import { chipMonitorFor, planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
 import { DEFAULT_PRIORS } from '../model/plan/precision.ts';
 import type { CutMode, ResolvedRecipe } from '../model/plan/recipe.ts';
@@ -92,6 +92,13 @@ export const DEFAULT_CONTROLLER_OPTIONS: ControllerOptions = {
   indexSigma: 0.03,
   chipRefit: true,
 };
+
+/**
+ * Layers refitted together: the last few on the chip, those below held at their estimates. The
+ * refit's cost grows with the square of its layers; the readings of a layer tell mostly about
+ * itself and the few below it (common practice, no source: 8 keeps a refit within tens of ms).
+ */
+const REFIT_LAYERS = 8;
 
 /** Bins of a layer's readings kept for the chip refit: while it grew, and after the close. */
 const RECORD_BINS = 60;
@@ -214,11 +221,15 @@ export interface ControllerState {
    * index in one figure, the same for every layer of the material.
    */
   readonly materialRate: Readonly<Record<string, { readonly factor: number; readonly sigma: number }>>;
-  /** The current chip's finished layers watched on the crystal's clock, binned, for the chip refit. */
+  /** The current chip's last REFIT_LAYERS finished layers watched on the crystal's clock, binned, for the chip refit. */
   readonly chipRecords: readonly RefitLayer[];
-  /** The chip those records are of (−1 before any), and the material estimates when it began: the refit's priors. */
+  /** The chip those records are of (−1 before any). */
   readonly recordsChip: number;
-  readonly chipPriors: { readonly rate: ControllerState['materialRate']; readonly index: ControllerState['materialIndex'] };
+  /**
+   * The material estimates as each finished layer left them: the refit of a window of layers
+   * starts from those its first layer found, which owe nothing to the window's own readings.
+   */
+  readonly materialAfter: readonly { readonly rate: ControllerState['materialRate']; readonly index: ControllerState['materialIndex'] }[];
   readonly approachingSent: boolean;
   readonly rateAlerted: boolean;
   readonly crystalAlerted: boolean;
@@ -290,7 +301,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       materialRate: {},
       chipRecords: [],
       recordsChip: -1,
-      chipPriors: { rate: {}, index: {} },
+      materialAfter: [],
       approachingSent: false,
       rateAlerted: false,
       crystalAlerted: false,
@@ -545,7 +556,10 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const crystalNm = Number.isFinite(s.layerCrystalNm) ? s.layerCrystalNm : 0;
     const crystalBelow = [...s.crystalBelow, { thicknessNm: crystalNm, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio }];
     s = { ...s, indexFactors, opticalNm, materialIndex, materialRate, crystalBelow };
-    if (record) s = refitRecords({ ...s, chipRecords: [...s.chipRecords, record] });
+    if (record) s = refitRecords({ ...s, chipRecords: [...s.chipRecords, record].slice(-REFIT_LAYERS) });
+    const materialAfter = [...s.materialAfter];
+    materialAfter[s.index] = { rate: s.materialRate, index: s.materialIndex };
+    s = { ...s, materialAfter };
     const resolved = resolvedStack(s);
     const estimatedNm = resolved.partNm[s.index] ?? 0;
     events.push({
@@ -611,7 +625,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     // Not yet heard counts as alive, as for the silence guard (the first reading may come just after the opening).
     const crystalAlive = Number.isNaN(s.lastCrystalS) || s.nowS - s.lastCrystalS < opts.staleAfterS;
     // A new chip starts a new refit, its priors what the earlier chips showed.
-    if (layer.chip !== s.recordsChip) s = { ...s, chipRecords: [], recordsChip: layer.chip, chipPriors: { rate: s.materialRate, index: s.materialIndex } };
+    if (layer.chip !== s.recordsChip) s = { ...s, chipRecords: [], recordsChip: layer.chip };
     return {
       ...s,
       phase: 'depositing',
@@ -675,18 +689,22 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
    */
   function refitRecords(s: ControllerState): ControllerState {
     const stack = resolvedStack(s);
+    const first = (s.chipRecords[0] as RefitLayer).index;
+    const priors = s.materialAfter[first - 1] ?? { rate: {}, index: {} };
     const result = refitChip(recipe, s.chipRecords, {
       noise,
       fixedPartNm: stack.partNm,
       fixedIndexFactors: stack.indexFactors,
-      ratePriors: s.chipPriors.rate,
-      indexPriors: s.chipPriors.index,
+      ratePriors: priors.rate,
+      indexPriors: priors.index,
       defaultRateSigma: DEFAULT_PRIORS.rateSigmaFraction,
       defaultIndexSigma: opts.indexSigma > 0 ? opts.indexSigma : 1e-6,
       startSigmaNm: CLOCK_START_SIGMA_NM,
       rateSpread: RATE_RUN_SIGMA,
       gainSigma: DEFAULT_PRIORS.gainSigma,
       offsetSigma: DEFAULT_PRIORS.offsetSigma,
+      startRate: Object.fromEntries(Object.entries(s.materialRate).map(([name, r]) => [name, r.factor])),
+      startIndex: Object.fromEntries(Object.entries(s.materialIndex).map(([name, r]) => [name, r.factor])),
     });
     const achievedNm = [...s.achievedNm];
     const indexFactors = [...s.indexFactors];
@@ -695,7 +713,9 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       achievedNm[l.index] = l.partNm;
       indexFactors[l.index] = l.indexFactor;
     }
-    return { ...s, achievedNm, indexFactors, materialRate: { ...s.materialRate, ...result.rate }, materialIndex: { ...s.materialIndex, ...result.index } };
+    // The next refit starts where this one ended.
+    const chipRecords = s.chipRecords.map((r, j) => ({ ...r, start: (result.layers[j] as RefitLayerResult).parameters }));
+    return { ...s, achievedNm, indexFactors, chipRecords, materialRate: { ...s.materialRate, ...result.rate }, materialIndex: { ...s.materialIndex, ...result.index } };
   }
 
   /**
@@ -858,7 +878,7 @@ function withReading(
     materialRate: s.materialRate,
     chipRecords: s.chipRecords,
     recordsChip: s.recordsChip,
-    chipPriors: s.chipPriors,
+    materialAfter: s.materialAfter,
     approachingSent: s.approachingSent,
     rateAlerted: s.rateAlerted,
     crystalAlerted: s.crystalAlerted,

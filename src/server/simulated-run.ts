@@ -49,6 +49,7 @@ export function startSimulatedRun(options: SimulatedRunOptions): SimulatedRun {
   const runId = newRunId();
   const chamber = createVirtualChamber(recipe, options.profile, options.seed);
   const controller = createController(recipe, options.controller);
+  const estimator = controller.options.estimator;
   const hub = createRunHub({
     ...options.hub,
     recipe,
@@ -62,7 +63,7 @@ export function startSimulatedRun(options: SimulatedRunOptions): SimulatedRun {
       runId,
       startedAt: new Date().toISOString(),
       recipe: recipe.name,
-      meta: { source: 'simulator', seed: options.seed, profile: options.profileName ?? options.profile.name, speed: options.speed },
+      meta: { source: 'simulator', seed: options.seed, profile: options.profileName ?? options.profile.name, speed: options.speed, estimator },
     });
     // The recipe as run, so that a replay needs nothing else.
     journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);

@@ -8,6 +8,7 @@ import { describe, expect, it } from 'vitest';
 import { loadSimProfile } from '../../sim/index.ts';
 import { main } from '../../src/cli/main.ts';
 import { simulateRun, type SimulationReport } from '../../src/cli/commands/simulate.ts';
+import { journalEstimator } from '../../src/journal/journal-format.ts';
 import { readJournal } from '../../src/journal/journal-reader.ts';
 import { createController } from '../../src/pipeline/controller.ts';
 import { replayJournal } from '../../src/pipeline/replay.ts';
@@ -74,14 +75,19 @@ describe('fringe simulate', () => {
     const runDir = join(dir, readdirSync(dir)[0] as string);
     expect(JSON.parse(readFileSync(join(runDir, 'summary.json'), 'utf8'))).toMatchObject({ recipe: recipe.name, seed: 11 });
     const journal = readJournal(join(runDir, 'journal.ndjson'));
-    const replay = replayJournal(journal.records, createController(recipe));
+    // The model fit is the default, and the journal says so: a replay takes it from there.
+    expect(journalEstimator(journal.header)).toBe('fit');
+    const replay = replayJournal(journal.records, createController(recipe, { estimator: 'fit' }));
     expect(replay.firstDifference).toBeNull();
     expect(replay.cuts).toHaveLength(40);
     expect(replay.cuts.filter((c) => c.differs)).toEqual([]);
-    // And with a changed recipe the replay says where it would have cut instead.
+    expect(new Set(replay.cuts.map((c) => c.recorded?.reason))).toContain('model-fit');
+    // And with a changed recipe, or the plain rules, the replay says where it would have cut instead.
     const changed = { ...recipe, layers: recipe.layers.map((l) => ({ ...l, shutterDelayS: l.shutterDelayS + 1 })) };
-    const other = replayJournal(journal.records, createController(changed));
+    const other = replayJournal(journal.records, createController(changed, { estimator: 'fit' }));
     expect(other.cuts.some((c) => c.differs)).toBe(true);
+    const plain = replayJournal(journal.records, createController(recipe, { estimator: 'plain' }));
+    expect(plain.cuts.some((c) => c.differs)).toBe(true);
   });
 });
 

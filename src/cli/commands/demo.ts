@@ -11,7 +11,7 @@ import { loadRecipe } from '../../config/load-recipe.ts';
 import { generateToken, isLoopback } from '../../server/auth.ts';
 import { buildServer } from '../../server/build-server.ts';
 import { startSimulatedRun } from '../../server/simulated-run.ts';
-import { CliError, numberOption } from '../cli-error.ts';
+import { CliError, estimatorOption, numberOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 import { DEFAULT_PROFILE } from './simulate.ts';
 
@@ -27,6 +27,7 @@ with the controls. The run is kept in the runs folder; the server stays up after
   --recipe FILE         recipe to run (default: config/recipes/edge-longpass-visible.yaml)
   --profile FILE        simulator profile (default: config/sim/typical.yaml)
   --seed N              random seed (default 1)
+  --estimator fit|plain cut optical layers on the model fit (default) or the plain rules
   --speed X             run at X times real time (default 60)
   --port N              port to listen on (default 7300; 0 picks a free one)
   --host ADDRESS        address to bind (default 127.0.0.1); anything wider needs a viewer token
@@ -52,6 +53,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
       recipe: { type: 'string' },
       profile: { type: 'string' },
       seed: { type: 'string' },
+      estimator: { type: 'string' },
       speed: { type: 'string' },
       port: { type: 'string' },
       host: { type: 'string' },
@@ -82,7 +84,8 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   const exposed = !isLoopback(host);
   const viewerToken = exposed ? generateToken() : undefined;
   const stop = new AbortController();
-  const simulated = startSimulatedRun({ recipe, profile, profileName: profileFile, seed, speed, journalDir: runsDir, signal: stop.signal });
+  const estimator = estimatorOption(values.estimator);
+  const simulated = startSimulatedRun({ recipe, profile, profileName: profileFile, seed, speed, journalDir: runsDir, signal: stop.signal, controller: { estimator } });
   const app = buildServer({ hub: simulated.hub, runsDir }, { token, viewerToken, host });
 
   let address: string;

@@ -11,7 +11,8 @@ import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { createController } from '../../pipeline/controller.ts';
 import { replayJournal, replayJournalPaced, type CutComparison } from '../../pipeline/replay.ts';
 import { startJournalReplay } from '../../server/journal-run.ts';
-import { CliError } from '../cli-error.ts';
+import { journalEstimator } from '../../journal/journal-format.ts';
+import { CliError, estimatorOption } from '../cli-error.ts';
 import { readRecordedRecipe, readRecordedRun } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
 import type { CommandIo } from '../command-io.ts';
@@ -22,6 +23,7 @@ Feeds a recorded run (a run folder, or its journal.ndjson) through the controlle
 every cut with the recorded one. With the recipe as run, every decision must come out the same.
 
   --recipe FILE         replay with this recipe instead of the one recorded with the run
+  --estimator fit|plain replay with this estimator instead of the recorded one (the cuts then differ)
   --speed X|max         replay at X times the recorded pace, printing each cut as it comes (default max)
   --serve               watch the replay on the dashboard (at --speed, default 60; --port N, default 7300)
   --json                print the comparison as one object with a "layers" array
@@ -35,6 +37,7 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
     strict: true,
     options: {
       recipe: { type: 'string' },
+      estimator: { type: 'string' },
       json: { type: 'boolean' },
       speed: { type: 'string' },
       serve: { type: 'boolean' },
@@ -54,7 +57,7 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
     ? loadRecipe(values.recipe, loadMaterialLibrary(values.materials))
     : readRecordedRecipe(dir, 'give one with --recipe');
   if (values.serve) {
-    if (values.recipe) throw new CliError('--serve replays the run with its own recipe; drop --recipe');
+    if (values.recipe || values.estimator) throw new CliError('--serve replays the run as it was recorded; drop --recipe and --estimator');
     const folder = { id: basename(dir), dir, journalFile, summaryFile: join(dir, 'summary.json'), recipeFile: join(dir, 'recipe.json') };
     const speed = values.speed === undefined || values.speed === 'max' ? 60 : Number(values.speed);
     if (!(speed > 0 && Number.isFinite(speed))) throw new CliError(`--speed must be a positive number with --serve, got "${values.speed}"`);
@@ -71,7 +74,7 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
   const speedText = values.speed ?? 'max';
   const speed = speedText === 'max' ? Number.POSITIVE_INFINITY : Number(speedText);
   if (!(speed > 0)) throw new CliError(`--speed must be a positive number or "max", got "${speedText}"`);
-  const controller = createController(recipe);
+  const controller = createController(recipe, { estimator: estimatorOption(values.estimator, journalEstimator(journal.header)) });
   const result = Number.isFinite(speed)
     ? await replayJournalPaced(journal.records, controller, speed, (e) => {
         if (e.type === 'cut' && !values.json) io.out(`${e.timeS.toFixed(1).padStart(8)} s  layer ${e.layer} cut (${e.reason}), about ${e.estimatedNm.toFixed(2)} nm`);

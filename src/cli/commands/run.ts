@@ -9,6 +9,7 @@ import { combineLatest, filter, first, firstValueFrom, Subject, throwError, time
 import { loadChamber, openChamber } from '../../../drivers/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
+import { journalEstimator } from '../../journal/journal-format.ts';
 import { createJournalWriter } from '../../journal/journal-writer.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { ALERTS } from '../../pipeline/codes.ts';
@@ -18,7 +19,7 @@ import { createLiveRun } from '../../pipeline/live-run.ts';
 import { replayJournal } from '../../pipeline/replay.ts';
 import type { OperatorAction, ReadingSource } from '../../pipeline/types.ts';
 import { createRunHub } from '../../server/run-hub.ts';
-import { CliError } from '../cli-error.ts';
+import { CliError, estimatorOption } from '../cli-error.ts';
 import { readRecordedRecipe, readRecordedRun } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
 import type { CommandIo } from '../command-io.ts';
@@ -33,6 +34,7 @@ control, not a safety system: the manual shutter controls and interlocks stay in
   --chamber FILE        the chamber file: instruments, ports, line formats, shutters
   --runs DIR            where runs are kept (default: runs)
   --clock arrival|instrument   decide on the host's clock (default) or the readings' own
+  --estimator fit|plain  cut optical layers on the model fit (default) or the plain rules
   --resume RUN          continue the run in RUN (a run folder) after a crash
   --serve               serve the live dashboard on 127.0.0.1 (--port N, default 7300; --host wider warns)
   --materials FILE      material library (default: the shipped config/materials.yaml)
@@ -47,6 +49,7 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
       chamber: { type: 'string' },
       runs: { type: 'string' },
       clock: { type: 'string' },
+      estimator: { type: 'string' },
       resume: { type: 'string' },
       serve: { type: 'boolean' },
       port: { type: 'string' },
@@ -62,6 +65,7 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
   const runClock = values.clock ?? 'arrival';
   if (runClock !== 'arrival' && runClock !== 'instrument') throw new CliError(`--clock must be arrival or instrument, got "${runClock}"`);
 
+  let estimator = estimatorOption(values.estimator);
   let recipe: ResolvedRecipe;
   let resumeFrom: ControllerState | undefined;
   let runDir: string;
@@ -72,7 +76,13 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
     runDir = recorded.dir;
     recipe = readRecordedRecipe(runDir, 'it is not a run folder fringe can resume');
     const journal = recorded.journal;
-    resumeFrom = replayJournal(journal.records, createController(recipe)).state;
+    // The run goes on as it began: the recorded estimator (a different --estimator is refused).
+    const recordedEstimator = journalEstimator(journal.header);
+    if (values.estimator !== undefined && estimator !== recordedEstimator) {
+      throw new CliError(`the run in ${runDir} cuts with the ${recordedEstimator === 'fit' ? 'model fit' : 'plain rules'}; it resumes the same way (leave out --estimator)`);
+    }
+    estimator = recordedEstimator;
+    resumeFrom = replayJournal(journal.records, createController(recipe, { estimator })).state;
     if (resumeFrom.phase === 'finished' || resumeFrom.phase === 'aborted') throw new CliError(`the run in ${runDir} has already ${resumeFrom.phase === 'finished' ? 'finished' : 'been aborted'}`, 1);
     chamberFile ??= join(runDir, 'chamber.yaml');
     io.err(`resuming ${runDir} at layer ${resumeFrom.index + 1} (${resumeFrom.phase}), run time ${resumeFrom.nowS.toFixed(1)} s`);
@@ -93,7 +103,7 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
     runId: runDir.split(/[\\/]/).pop() ?? runDir,
     startedAt: new Date().toISOString(),
     recipe: recipe.name,
-    meta: { source: 'live', chamber: chamber.name, clock: runClock, ...(resumeFrom ? { resumedAtS: resumeFrom.nowS } : {}) },
+    meta: { source: 'live', chamber: chamber.name, clock: runClock, estimator, ...(resumeFrom ? { resumedAtS: resumeFrom.nowS } : {}) },
   });
   if (!resumeFrom) {
     journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
@@ -101,7 +111,7 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
   }
 
   const commands = new Subject<{ action: OperatorAction; alertId?: string }>();
-  const controller = createController(recipe);
+  const controller = createController(recipe, { estimator });
   const live = createLiveRun({
     controller,
     sources: [...drivers.sources.values()],

@@ -16,7 +16,7 @@ import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { createController } from '../../pipeline/controller.ts';
 import type { CutReason, RunEvent } from '../../pipeline/events.ts';
 import { createSteppedRun, runPaced } from '../../pipeline/run-stepped.ts';
-import { CliError, numberOption } from '../cli-error.ts';
+import { CliError, estimatorOption, numberOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 
 export const DEFAULT_PROFILE = fileURLToPath(new URL('../../../config/sim/typical.yaml', import.meta.url));
@@ -30,7 +30,7 @@ layer's true thickness and error and the true stack's spectrum against the desig
   --seed N              random seed; the same seed gives the same run (default 1)
   --speed X|max         run at X times real time, or as fast as possible (default max)
   --journal DIR         keep the run in DIR/<run id>/ (journal, summary)
-  --estimator fit|plain how optical layers are cut (default plain; fit: the model fit)
+  --estimator fit|plain cut optical layers on the model fit (default) or the plain rules
   --json                print one object with a "layers" array and a "spectrum" block
   --materials FILE      material library (default: the shipped config/materials.yaml)
 
@@ -94,8 +94,7 @@ export async function runSimulate(argv: string[], io: CommandIo): Promise<number
   const speed = speedText === 'max' ? Number.POSITIVE_INFINITY : (numberOption('speed', speedText) ?? Number.NaN);
   if (!(speed > 0)) throw new CliError(`--speed must be a positive number or "max", got "${speedText}"`);
 
-  const estimator = values.estimator ?? 'plain';
-  if (estimator !== 'plain' && estimator !== 'fit') throw new CliError(`--estimator must be fit or plain, got "${estimator}"`);
+  const estimator = estimatorOption(values.estimator);
   const recipe = loadRecipe(positionals[0] as string, loadMaterialLibrary(values.materials));
   const profileFile = values.profile ?? DEFAULT_PROFILE;
   const profile = loadSimProfile(profileFile);
@@ -149,13 +148,15 @@ export interface SimulateOptions {
   io?: CommandIo;
   /** Whether to draw a progress bar (default: stderr is a terminal). */
   progress?: boolean;
+  /** How optical layers are cut (default fit). */
   estimator?: 'plain' | 'fit';
 }
 
 /** One whole simulated run; pure apart from the optional journal and progress output. */
 export async function simulateRun(recipe: ResolvedRecipe, options: SimulateOptions): Promise<SimulationReport> {
   const chamber = createVirtualChamber(recipe, options.profile, options.seed);
-  const controller = createController(recipe, { estimator: options.estimator ?? 'plain' });
+  const estimator = options.estimator ?? 'fit';
+  const controller = createController(recipe, { estimator });
   const events: RunEvent[] = [];
   let journal: JournalWriter | undefined;
   if (options.journalDir !== undefined) {
@@ -164,7 +165,7 @@ export async function simulateRun(recipe: ResolvedRecipe, options: SimulateOptio
       runId,
       startedAt: new Date().toISOString(),
       recipe: recipe.name,
-      meta: { source: 'simulator', seed: options.seed, profile: options.profileName },
+      meta: { source: 'simulator', seed: options.seed, profile: options.profileName, estimator },
     });
     // The recipe as run, resolved against the library of the day, so that a replay needs nothing else.
     journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);

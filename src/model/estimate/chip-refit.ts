@@ -37,6 +37,8 @@ export interface RefitLayer {
   readonly weights: Float64Array;
   /** Clock at which the shutter closed. */
   readonly closeClock: number;
+  /** Where to start this layer's u₀, δ, g, o (a previous refit's; default the priors' means). */
+  readonly start?: readonly [number, number, number, number];
 }
 
 export interface MaterialFactor {
@@ -60,6 +62,9 @@ export interface ChipRefitOptions {
   gainSigma: number;
   offsetSigma: number;
   maxIterations?: number;
+  /** Where to start ρ and κ per material (default the priors' means). */
+  startRate?: Readonly<Record<string, number>>;
+  startIndex?: Readonly<Record<string, number>>;
 }
 
 export interface RefitLayerResult {
@@ -69,6 +74,8 @@ export interface RefitLayerResult {
   readonly indexFactor: number;
   readonly opticalNm: number;
   readonly opticalSigmaNm: number;
+  /** The layer's fitted u₀, δ, g, o (to start the next refit from). */
+  readonly parameters: readonly [number, number, number, number];
 }
 
 export interface ChipRefitResult {
@@ -182,6 +189,13 @@ export function refitChip(recipe: ResolvedRecipe, layers: readonly RefitLayer[],
   }
 
   const theta = Float64Array.from(priorMean);
+  materials.forEach((name, m) => {
+    theta[rateAt(m)] = options.startRate?.[name] ?? (theta[rateAt(m)] as number);
+    theta[indexAt(m)] = options.startIndex?.[name] ?? (theta[indexAt(m)] as number);
+  });
+  layers.forEach((l, j) => {
+    if (l.start) for (let k = 0; k < PER_LAYER; k++) theta[layerAt(j, k)] = l.start[k] as number;
+  });
   let signal = new Float64Array(N);
   signals(theta, 0, signal);
   let cost = costOf(theta, signal);
@@ -194,7 +208,9 @@ export function refitChip(recipe: ResolvedRecipe, layers: readonly RefitLayer[],
   const shifted = new Float64Array(N);
   const jac = new Float64Array(P * N);
 
-  for (; iterations < maxIterations; iterations++) {
+  let converged = false;
+  while (!converged && iterations < maxIterations) {
+    iterations++;
     jac.fill(0);
     const fdParams: number[] = [];
     for (let m = 0; m < M; m++) fdParams.push(rateAt(m), indexAt(m));
@@ -257,7 +273,8 @@ export function refitChip(recipe: ResolvedRecipe, layers: readonly RefitLayer[],
         cost = trialCost;
         lambda = Math.max(lambda / 10, 1e-9);
         improved = true;
-        if (gain < 1e-6 * Math.max(1, cost)) iterations = maxIterations;
+        // Settled when a step gains less than a millionth of the cost (χ² ≈ the readings).
+        converged = gain < 1e-6 * Math.max(1, cost);
         break;
       }
       lambda *= 10;
@@ -289,6 +306,7 @@ export function refitChip(recipe: ResolvedRecipe, layers: readonly RefitLayer[],
       indexFactor: stack.indexFactors[l.index] as number,
       opticalNm: u / (chipRatio[j] as number),
       opticalSigmaNm: Math.sqrt(Math.max(0, variance)) / (chipRatio[j] as number),
+      parameters: [theta[layerAt(j, U0)] as number, dl, theta[layerAt(j, GAIN)] as number, theta[layerAt(j, OFFSET)] as number],
     };
   });
   const rate: Record<string, MaterialFactor> = {};
