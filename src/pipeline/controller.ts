@@ -14,6 +14,7 @@
  * Guard rails force a cut at a thickness or time ceiling; a silent monitor hands the layer to the
  * crystal, a silent crystal to the clock, each with an alert.
  */
+import { scaledDispersion } from '../model/optics/dispersion.ts';
 import { stackThicknessNm, type CrystalLayer } from '../model/crystal/index.ts';
 import { compensate } from '../model/design/compensate.ts';
 import { buildIndexTables, createLayerFit, layerSignalTable, refitChip, type LayerFit, type RefitLayer, type RefitLayerResult } from '../model/estimate/index.ts';
@@ -594,17 +595,23 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
   function compensateRest(s: ControllerState, events: RunEvent[]): ControllerState {
     const band = recipe.design.band as { fromNm: number; toNm: number };
     const fixed = s.index + 1;
-    // A finished layer enters at its optical thickness in design-index nanometres (d·κ).
+    // The stack as deposited: the finished layers at their estimates (physical, in their
+    // estimated media), the later ones in their material's estimated medium at the physical
+    // thickness their cut targets (optical, in design-index nm) give, u/κ.
     const stack = resolvedStack(s);
-    const current = s.targetsNm.map((t, i) => (i < fixed ? (stack.partNm[i] ?? t) * (stack.indexFactors[i] ?? 1) : t));
-    const result = compensate(recipe.design.stack, current, fixed, {
+    const factors = recipe.layers.map((l, i) => (i < fixed ? (stack.indexFactors[i] ?? 1) : (s.materialIndex[l.materialName]?.factor ?? 1)));
+    const current = s.targetsNm.map((t, i) => (i < fixed ? (stack.partNm[i] ?? t) : t / (factors[i] as number)));
+    const design = recipe.design.stack;
+    const deposited = { ...design, layers: design.layers.map((l, i) => ({ ...l, dispersion: scaledDispersion(l.dispersion, factors[i] as number, 0) })) };
+    const result = compensate(design, current, fixed, {
+      deposited,
       fromNm: band.fromNm,
       toNm: band.toNm,
       quantity: compensation?.quantity ?? 'T',
       boundsFraction: (compensation?.boundsPercent ?? 10) / 100,
       stepNm: compensation?.stepNm ?? 5,
     });
-    const targetsNm = Array.from(result.thicknessNm, (t, i) => (i < fixed ? (s.targetsNm[i] as number) : t));
+    const targetsNm = Array.from(result.thicknessNm, (t, i) => (i < fixed ? (s.targetsNm[i] as number) : t * (factors[i] as number)));
     events.push({
       type: 'compensated',
       timeS: s.nowS,

@@ -25,7 +25,10 @@ export interface StudyRunResult {
   seed: number;
   strategy: string;
   complete: boolean;
-  /** (true − target) / target × 100, per layer: physical thickness on the parts. */
+  /**
+   * (true − target) / target × 100, per layer: physical thickness on the parts, against the
+   * target the layer was cut for (the design's; with compensation, as it moved it).
+   */
   errorPercent: number[];
   /**
    * The same for the optical thickness n·d at the layer's monitor wavelength (true n and d
@@ -56,11 +59,12 @@ export function runOne(recipe: ResolvedRecipe, profile: SimProfile, strategy: st
     },
   });
   const truth = chamber.truth();
-  const errorPercent = recipe.layers.map((l, i) => (100 * ((truth.layers[i]?.partNm ?? 0) - l.targetNm)) / l.targetNm);
+  const targets = recipe.layers.map((l, i) => state.targetsNm[i] ?? l.targetNm);
+  const errorPercent = targets.map((target, i) => (100 * ((truth.layers[i]?.partNm ?? 0) - target)) / target);
   const opticalErrorPercent = recipe.layers.map((l, i) => {
     const t = truth.layers[i];
     const nDesign = indexAt({ n: 0, k: 0 }, l.dispersion, t?.wavelengthNm ?? l.wavelengthNm).n;
-    return t ? 100 * ((t.nTrue * t.partNm) / (nDesign * l.targetNm) - 1) : Number.NaN;
+    return t ? 100 * ((t.nTrue * t.partNm) / (nDesign * (targets[i] as number)) - 1) : Number.NaN;
   });
   let deviation: { maxAbsT: number; meanAbsT: number; maxAbsR: number; meanAbsR: number; deposited: { T: ArrayLike<number> } } = {
     maxAbsT: Number.NaN,

@@ -20,6 +20,12 @@ export interface CompensationOptions {
   /** Weight of each grid wavelength (default 1). */
   weight?: (wavelengthNm: number) => number;
   maxIterations?: number;
+  /**
+   * The stack as the chamber deposits it, when its media are not the design's (the indices the
+   * fits estimated): the spectrum is computed with these media, the target stays the design's,
+   * and the thicknesses are physical ones in these media. Default: the design's media.
+   */
+  deposited?: StackSpec;
 }
 
 export interface CompensationResult {
@@ -40,19 +46,21 @@ export function compensate(design: StackSpec, current: ArrayLike<number>, fixed:
   const step = options.stepNm ?? 5;
   const count = Math.floor((options.toNm - options.fromNm) / step + 1e-9) + 1;
   const grid = Float64Array.from({ length: count }, (_, i) => options.fromNm + i * step);
-  const model = buildOpticalModel(design, grid, 0);
+  const targetModel = buildOpticalModel(design, grid, 0);
+  const model = options.deposited ? buildOpticalModel(options.deposited, grid, 0) : targetModel;
+  if (model.thicknessNm.length !== targetModel.thicknessNm.length) throw new RangeError('compensation: the deposited stack must have the design\'s layers');
   const weights = Float64Array.from(grid, (w) => Math.sqrt(options.weight?.(w) ?? 1));
   const out = { R: new Float64Array(count), T: new Float64Array(count), A: new Float64Array(count) };
   const pick = (): Float64Array => (options.quantity === 'R' ? out.R : out.T);
-  spectrum(out, model, 'mean');
+  spectrum(out, targetModel, 'mean');
   const target = Float64Array.from(pick());
 
   const n = model.thicknessNm.length;
   const free = Math.max(0, n - fixed);
   const x = Float64Array.from(current);
   const bounds = options.boundsFraction ?? 0.1;
-  const lo = Float64Array.from(model.thicknessNm, (d) => d * (1 - bounds));
-  const hi = Float64Array.from(model.thicknessNm, (d) => d * (1 + bounds));
+  const lo = Float64Array.from(targetModel.thicknessNm, (d) => d * (1 - bounds));
+  const hi = Float64Array.from(targetModel.thicknessNm, (d) => d * (1 + bounds));
 
   const residuals = (thickness: Float64Array, into: Float64Array): number => {
     spectrum(out, model, 'mean', thickness);
