@@ -767,16 +767,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
 
   /** The fit's clock at run time t: crystal part thickness over the planned rate, or elapsed time. */
   function fitClock(s: ControllerState, timeS: number): number {
-    const layer = layerRecipe(s);
-    if (s.fit?.clock !== 'crystal') return timeS - s.openedAtS;
-    const c = s.crystal;
-    // Before the layer's first crystal reading: elapsed time, the same clock at the planned rate.
-    if (!Number.isFinite(c.partNm)) return timeS - s.openedAtS;
-    const rate = Number.isFinite(c.rateNmPerS) ? c.rateNmPerS : layer.rateNmPerS;
-    // Between crystal readings the thickness moves on at the crystal's rate (not after the close).
-    const closeS = Number.isFinite(s.cutAtS) ? s.cutAtS + layer.shutterDelayS : Number.POSITIVE_INFINITY;
-    const ahead = Math.max(0, Math.min(timeS, closeS) - c.lastS);
-    return (c.partNm + rate * ahead) / layer.rateNmPerS;
+    return fitClockAt(recipe, s, timeS);
   }
 
   function operator(s: ControllerState, command: OperatorCommand, events: RunEvent[]): StepResult {
@@ -934,6 +925,33 @@ export function visibleTurns(plan: LayerPlan | undefined, confirm: number): { tr
   // The first visible move sets the initial trend; count turns from it.
   const first = points.find((p) => Math.abs(p - plan.startSignal) >= 2 * confirm) ?? plan.cutSignal;
   return { trend: first >= plan.startSignal ? 1 : -1, turnsNeeded };
+}
+
+/** The fit's clock at run time t: the crystal's part thickness over the planned rate, or elapsed time. */
+function fitClockAt(recipe: ResolvedRecipe, s: ControllerState, timeS: number): number {
+  const layer = recipe.layers[s.index] as ResolvedRecipe['layers'][number];
+  if (s.fit?.clock !== 'crystal') return timeS - s.openedAtS;
+  const c = s.crystal;
+  // Before the layer's first crystal reading: elapsed time, the same clock at the planned rate.
+  if (!Number.isFinite(c.partNm)) return timeS - s.openedAtS;
+  const rate = Number.isFinite(c.rateNmPerS) ? c.rateNmPerS : layer.rateNmPerS;
+  // Between crystal readings the thickness moves on at the crystal's rate (not after the close).
+  const closeS = Number.isFinite(s.cutAtS) ? s.cutAtS + layer.shutterDelayS : Number.POSITIVE_INFINITY;
+  const ahead = Math.max(0, Math.min(timeS, closeS) - c.lastS);
+  return (c.partNm + rate * ahead) / layer.rateNmPerS;
+}
+
+/**
+ * The model fit's view of the layer in progress at run time t, for display: its thickness on the
+ * parts at the design index (what the cut compares with the target) and its rms, nm; null when
+ * no fit runs (the plain rules, a layer the fit does not watch, a silent crystal).
+ */
+export function liveFitEstimate(recipe: ResolvedRecipe, s: ControllerState, timeS: number): { thicknessNm: number; sigmaNm: number } | null {
+  if (!s.fit || (s.phase !== 'depositing' && s.phase !== 'closing')) return null;
+  const layer = recipe.layers[s.index] as ResolvedRecipe['layers'][number];
+  const e = s.fit.fit.estimate(fitClockAt(recipe, s, timeS));
+  if (!Number.isFinite(e.thicknessNm) || !Number.isFinite(e.sigmaNm) || e.readings < 8) return null;
+  return { thicknessNm: e.thicknessNm / layer.chipRatio, sigmaNm: e.sigmaNm / layer.chipRatio };
 }
 
 /** The recipe with other part targets (compensated), for the re-plan. */

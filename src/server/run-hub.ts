@@ -19,7 +19,7 @@ import { crystalLifeUsed } from '../model/crystal/index.ts';
 import { planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
 import type { CutMode, LayerRecipe, ResolvedRecipe } from '../model/plan/recipe.ts';
 import type { Severity } from '../pipeline/codes.ts';
-import type { ControllerState } from '../pipeline/controller.ts';
+import { liveFitEstimate, type ControllerState } from '../pipeline/controller.ts';
 import type { CutReason, RunEvent } from '../pipeline/events.ts';
 import type { OperatorAction, OperatorCommand, PipelineInput, Reading } from '../pipeline/types.ts';
 import { BoundedHistory } from './bounded-history.ts';
@@ -310,6 +310,7 @@ export function createRunHub(options: RunHubOptions): RunHub {
         targetNm: null,
         thicknessNm: null,
         plusMinusNm: null,
+        estimateSource: null,
         layerElapsedS: null,
         timeToCutS: null,
         approaching: false,
@@ -318,7 +319,9 @@ export function createRunHub(options: RunHubOptions): RunHub {
     const layer = layerRecipe(s) as LayerRecipe;
     const plan = layerPlan(s);
     const nowS = Math.max(s.nowS, run?.nowS ?? s.nowS);
-    const thickness = partThicknessNm(s, layer, nowS);
+    const fitted = s.phase === 'depositing' || s.phase === 'closing' ? liveFitEstimate(recipe, s, nowS) : null;
+    const crystalFresh = Number.isFinite(s.crystal.partNm) && nowS - s.crystal.lastS < CRYSTAL_STALE_S;
+    const thickness = fitted ? fitted.thicknessNm : partThicknessNm(s, layer, nowS);
     let timeToCutS: number | null = null;
     if (s.phase === 'depositing') {
       const rate = Number.isFinite(s.crystal.rateNmPerS) && s.crystal.rateNmPerS > 0 ? s.crystal.rateNmPerS : layer.rateNmPerS;
@@ -334,7 +337,8 @@ export function createRunHub(options: RunHubOptions): RunHub {
       cut: s.mode,
       targetNm: layer.targetNm,
       thicknessNm: finite(ended ? (s.achievedNm[s.index] ?? thickness) : thickness),
-      plusMinusNm: finite(plan?.precisionNm ?? Number.NaN),
+      plusMinusNm: finite(fitted && !ended ? fitted.sigmaNm : (plan?.precisionNm ?? Number.NaN)),
+      estimateSource: fitted && !ended ? 'fit' : crystalFresh ? 'crystal' : 'clock',
       layerElapsedS: finite(nowS - s.openedAtS),
       timeToCutS: finite(timeToCutS ?? Number.NaN),
       approaching: approachingLayer === layer.number && s.phase === 'depositing',

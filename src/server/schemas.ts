@@ -28,6 +28,7 @@ export const statusSchema = {
     targetNm: nullableNumber,
     thicknessNm: nullableNumber,
     plusMinusNm: nullableNumber,
+    estimateSource: nullableString,
     layerElapsedS: nullableNumber,
     timeToCutS: nullableNumber,
     approaching: { type: 'boolean' },

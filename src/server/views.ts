@@ -39,10 +39,15 @@ export interface RunStatus {
   readonly cut: CutMode | null;
   /** Design thickness of the current layer on the parts, nm. */
   readonly targetNm: number | null;
-  /** Estimated thickness of the current layer on the parts so far, nm (crystal, else clock). */
+  /**
+   * Estimated thickness of the current layer on the parts so far, nm: the model fit's (at the
+   * design index, as the cut compares it with the target) while it runs, else the crystal's,
+   * else the clock's; `estimateSource` says which.
+   */
   readonly thicknessNm: number | null;
-  /** The plan's expected rms precision of this layer's cut, nm: the ± shown beside the estimate. */
+  /** The ± beside it, nm: the fit's rms while it runs, else the plan's expected rms precision of the cut. */
   readonly plusMinusNm: number | null;
+  readonly estimateSource: 'fit' | 'crystal' | 'clock' | null;
   /** Run time since the layer's shutter opened, s. */
   readonly layerElapsedS: number | null;
   /** Expected run time to the cut command, s (0 while the shutter closes; null when not depositing). */

@@ -4,6 +4,7 @@
 import { describe, expect, it } from 'vitest';
 import { BoundedHistory } from '../../src/server/bounded-history.ts';
 import { Decimator } from '../../src/server/decimator.ts';
+import { liveFitEstimate } from '../../src/pipeline/controller.ts';
 import { createRunHub } from '../../src/server/run-hub.ts';
 import type { HubMessage, RunSnapshot } from '../../src/server/views.ts';
 import { ar4, manualRun, settle, typical, withOpticalRate } from './support.ts';
@@ -142,6 +143,35 @@ describe('the run hub', () => {
     // JSON has no NaN: every number outside the log (raw events) is finite.
     const views = Object.fromEntries(Object.entries(s).filter(([key]) => key !== 'log'));
     for (const [path, n] of numbers(views)) expect(Number.isFinite(n), path).toBe(true);
+  });
+
+  it('with the model fit, the readout is the fit’s thickness and rms; with the plain rules, the crystal’s and the plan’s', async () => {
+    // 150 s into the run a layer is growing under the fit (cut by it, or watched by it on the crystal).
+    const fitted = manualRun(ar4, { estimator: 'fit' });
+    fitted.run.runUntil(150);
+    await settle();
+    const s = fitted.hub.snapshot().status;
+    const state = fitted.run.state;
+    expect(state.fit).not.toBeNull();
+    expect(s.estimateSource).toBe('fit');
+    const est = state.fit?.fit.estimate(0);
+    expect(est?.readings).toBeGreaterThan(8);
+    // The readout is the fit's thickness now and its own rms, in part nm.
+    const layer = ar4.layers[state.index];
+    const live = liveFitEstimate(ar4, state, Math.max(state.nowS, fitted.run.nowS));
+    expect(s.thicknessNm).toBeCloseTo(live?.thicknessNm ?? Number.NaN, 3);
+    expect(s.plusMinusNm).toBeCloseTo(live?.sigmaNm ?? Number.NaN, 3);
+    expect(s.plusMinusNm).toBeGreaterThan(0);
+    expect(s.plusMinusNm).toBeLessThan(0.05 * (layer?.targetNm ?? 0));
+    // The fit's thickness and the crystal's agree to the index and rate differences (a few per cent).
+    expect(Math.abs((s.thicknessNm ?? Number.NaN) / state.crystal.partNm - 1)).toBeLessThan(0.05);
+    const plain = manualRun(ar4, { estimator: 'plain' });
+    plain.run.runUntil(150);
+    await settle();
+    const p = plain.hub.snapshot().status;
+    expect(p.estimateSource).toBe('crystal');
+    const plan = plain.run.state.plan.layers[plain.run.state.index - (plain.run.state.plan.fromLayer - 1)];
+    expect(p.plusMinusNm).toBeCloseTo(plan?.precisionNm ?? Number.NaN, 3);
   });
 
   it('forwards every event in order, decimated readings, status changes and one snapshot per burst', async () => {

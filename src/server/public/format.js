@@ -89,6 +89,14 @@ export const REASON_WORDS = {
   abort: 'abort',
 };
 
+/** Where the readout's thickness comes from, and what its ± means. */
+export const SOURCE_WORDS = { fit: 'model fit', crystal: 'crystal', clock: 'clock' };
+export const SOURCE_TITLES = {
+  fit: "the model fit of the layer's optical signal: its thickness at the design index, as the cut compares it, and its rms",
+  crystal: "the crystal's thickness; ± the plan's expected rms precision of this layer's cut",
+  clock: "elapsed time at the planned rate (no crystal); ± the plan's expected rms precision of this layer's cut",
+};
+
 export const SEVERITY_WORDS = { info: 'Note', warning: 'Warning', critical: 'Critical' };
 export const SEVERITY_MARKS = { info: '●', warning: '▲', critical: '■' };
 
