@@ -580,7 +580,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     if (compensation && recipe.design.band && s.index + 1 < recipe.layers.length) next = compensateRest(next, events);
     if (opts.replan || compensation) {
       const stack = resolvedStack(next);
-      const plan = planRun(withTargets(recipe, next.targetsNm), { achievedNm: stack.partNm, achievedIndexFactors: stack.indexFactors, suggest: 'none' });
+      const plan = planRun(withTargets(recipe, next.targetsNm), { achievedNm: stack.partNm, achievedIndexFactors: stack.indexFactors, suggest: 'none', stackPrecision: false });
       events.push({ type: 'replanned', timeS: s.nowS, fromLayer: plan.fromLayer, triggerSignals: plan.layers.map((l) => l.triggerSignal) });
       next = { ...next, plan };
     }

@@ -28,10 +28,13 @@ export interface LayerStatistics {
   rmsPercent: number;
   worstPercent: number;
   meanPercent: number;
-  /** RMS error of the optical thickness n·d at the monitor wavelength, %. */
+  /** RMS and worst error of the optical thickness n·d at the monitor wavelength, %. */
   opticalRmsPercent: number;
+  opticalWorstPercent: number;
   /** The plan's expected precision for the layer, % (the optical fit's bound, or the crystal's). */
   plannedPercent: number;
+  /** The same with the layers below as uncertain as their own bounds (the plan's stack figure), %. */
+  plannedStackPercent: number;
 }
 
 export interface StrategyStatistics {
@@ -42,6 +45,8 @@ export interface StrategyStatistics {
   rmsPercent: number;
   worstPercent: number;
   opticalRmsPercent: number;
+  /** The same over the layers of each cut mode (the plan's): physical and optical RMS, %. */
+  byCut: Record<string, { layers: number; rmsPercent: number; opticalRmsPercent: number }>;
   spectrum: { meanMaxAbsT: number; worstMaxAbsT: number; meanMeanAbsT: number };
 }
 
@@ -107,6 +112,7 @@ function summarise(
     const optical = runs.map((r) => r.opticalErrorPercent[i] as number);
     return {
       opticalRmsPercent: rms(optical),
+      opticalWorstPercent: Math.max(...optical.map(Math.abs)),
       number: layer.number,
       material: layer.materialName,
       cut: planLayers[i]?.cut ?? 'time',
@@ -114,6 +120,7 @@ function summarise(
       worstPercent: Math.max(...errors.map(Math.abs)),
       meanPercent: errors.reduce((s, e) => s + e, 0) / Math.max(1, errors.length),
       plannedPercent: planLayers[i]?.precisionPercent ?? Number.NaN,
+      plannedStackPercent: planLayers[i]?.stackPrecisionPercent ?? Number.NaN,
     };
   });
   const all = runs.flatMap((r) => r.errorPercent);
@@ -126,6 +133,19 @@ function summarise(
     rmsPercent: rms(all),
     worstPercent: Math.max(...all.map(Math.abs)),
     opticalRmsPercent: rms(runs.flatMap((r) => r.opticalErrorPercent)),
+    byCut: Object.fromEntries(
+      [...new Set(layers.map((l) => l.cut))].map((cut) => {
+        const indices = layers.flatMap((l, i) => (l.cut === cut ? [i] : []));
+        return [
+          cut,
+          {
+            layers: indices.length,
+            rmsPercent: rms(runs.flatMap((r) => indices.map((i) => r.errorPercent[i] as number))),
+            opticalRmsPercent: rms(runs.flatMap((r) => indices.map((i) => r.opticalErrorPercent[i] as number))),
+          },
+        ];
+      }),
+    ),
     spectrum: {
       meanMaxAbsT: maxT.reduce((s, x) => s + x, 0) / Math.max(1, maxT.length),
       worstMaxAbsT: Math.max(...maxT),

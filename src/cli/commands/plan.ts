@@ -80,7 +80,7 @@ function formatPlan(plan: RunPlan): string {
   const rows = [
     `${plan.recipe}: layers ${plan.fromLayer}–${plan.fromLayer + plan.layers.length - 1}, ${formatDuration(plan.durationS)} planned; noise ${(plan.noise * 100).toFixed(3)} % at ${plan.sampleRateHz} Hz`,
     '',
-    ' #  material  target nm  cut      λ nm   chip     start %   cut %  trigger %  TPs  swing %  slope %/nm  ±nm fit  ±nm rule  best λ (±%)    crystal Hz   time',
+    ' #  material  target nm  cut      λ nm   chip     start %   cut %  trigger %  TPs  swing %  slope %/nm  ±nm fit  ±nm stack  ±nm rule  best λ (±%)    crystal Hz   time',
   ];
   for (const l of plan.layers) {
     const suggestion = l.suggestion ? `${l.suggestion.wavelengthNm} (${l.suggestion.precisionPercent.toFixed(2)})` : '—';
@@ -99,6 +99,7 @@ function formatPlan(plan: RunPlan): string {
         pct(l.swing).padStart(8),
         (l.slopePerNm * 100).toFixed(3).padStart(11),
         l.precisionNm.toFixed(3).padStart(8),
+        l.stackPrecisionNm.toFixed(3).padStart(10),
         l.plainRulePrecisionNm.toFixed(3).padStart(9),
         suggestion.padStart(13),
         l.crystal.cutFrequencyHz.toFixed(1).padStart(13),

@@ -93,39 +93,42 @@ export async function runStudyCommand(argv: string[], io: CommandIo): Promise<nu
 
 function formatStudy(r: StudyReport): string {
   const rows = [`${r.recipe}: ${r.runs} runs per strategy (the same seeds for each)`, ''];
-  const header = [' #  material cut    plan ±%', ...r.strategies.map((s) => `${s.strategy.padStart(10)} rms% worst% n·d rms%`)].join(' ');
+  const header = [' #  material cut    plan ±% stack ±%', ...r.strategies.map((s) => `${s.strategy.padStart(10)} rms% worst% n·d rms% n·d worst%`)].join(' ');
   rows.push(header);
   const first = r.strategies[0];
   if (first) {
     first.layers.forEach((layer, i) => {
       const cells = r.strategies.map((s) => {
         const l = s.layers[i];
-        return `${(l?.rmsPercent ?? Number.NaN).toFixed(3).padStart(15)} ${(l?.worstPercent ?? Number.NaN).toFixed(2).padStart(6)} ${(l?.opticalRmsPercent ?? Number.NaN).toFixed(3).padStart(8)}`;
+        return `${(l?.rmsPercent ?? Number.NaN).toFixed(3).padStart(15)} ${(l?.worstPercent ?? Number.NaN).toFixed(2).padStart(6)} ${(l?.opticalRmsPercent ?? Number.NaN).toFixed(3).padStart(8)} ${(l?.opticalWorstPercent ?? Number.NaN).toFixed(2).padStart(10)}`;
       });
-      rows.push(`${String(layer.number).padStart(2)}  ${layer.material.padEnd(8)} ${layer.cut.slice(0, 6).padEnd(6)} ${layer.plannedPercent.toFixed(3).padStart(7)} ${cells.join(' ')}`);
+      rows.push(`${String(layer.number).padStart(2)}  ${layer.material.padEnd(8)} ${layer.cut.slice(0, 6).padEnd(6)} ${layer.plannedPercent.toFixed(3).padStart(7)} ${layer.plannedStackPercent.toFixed(3).padStart(8)} ${cells.join(' ')}`);
     });
   }
   rows.push('');
   for (const s of r.strategies) {
     rows.push(
-      `${s.strategy}: rms ${s.rmsPercent.toFixed(3)} %, worst ${s.worstPercent.toFixed(2)} %, optical thickness rms ${s.opticalRmsPercent.toFixed(3)} %; spectrum max |ΔT| mean ${(100 * s.spectrum.meanMaxAbsT).toFixed(2)} pp, worst ${(100 * s.spectrum.worstMaxAbsT).toFixed(2)} pp, mean |ΔT| ${(100 * s.spectrum.meanMeanAbsT).toFixed(3)} pp${s.incomplete ? `; ${s.incomplete} runs incomplete` : ''}`,
+      `${s.strategy}: ${Object.entries(s.byCut).map(([cut, c]) => `${cut} (${c.layers}) rms ${c.rmsPercent.toFixed(3)} %, n·d ${c.opticalRmsPercent.toFixed(3)} %`).join('; ')}\n  all: rms ${s.rmsPercent.toFixed(3)} %, worst ${s.worstPercent.toFixed(2)} %, optical thickness rms ${s.opticalRmsPercent.toFixed(3)} %; spectrum max |ΔT| mean ${(100 * s.spectrum.meanMaxAbsT).toFixed(2)} pp, worst ${(100 * s.spectrum.worstMaxAbsT).toFixed(2)} pp, mean |ΔT| ${(100 * s.spectrum.meanMeanAbsT).toFixed(3)} pp${s.incomplete ? `; ${s.incomplete} runs incomplete` : ''}`,
     );
   }
   return rows.join('\n');
 }
 
-/** Per layer, each strategy's RMS and worst error against the plan's precision: the error distributions' scale and tail. */
+/** Per layer, each strategy's RMS and worst optical-thickness error against the plan's precision: the error distributions' scale and tail. */
 function plotStudy(r: StudyReport): string {
   const series = r.strategies.flatMap((s) => [
-    { label: `${s.strategy}: RMS error`, x: s.layers.map((l) => l.number), y: s.layers.map((l) => l.rmsPercent) },
-    { label: `${s.strategy}: worst error`, x: s.layers.map((l) => l.number), y: s.layers.map((l) => l.worstPercent) },
+    { label: `${s.strategy}: RMS n·d error`, x: s.layers.map((l) => l.number), y: s.layers.map((l) => l.opticalRmsPercent) },
+    { label: `${s.strategy}: worst n·d error`, x: s.layers.map((l) => l.number), y: s.layers.map((l) => l.opticalWorstPercent) },
   ]);
   const first = r.strategies[0];
-  if (first) series.push({ label: 'plan: expected precision', x: first.layers.map((l) => l.number), y: first.layers.map((l) => l.plannedPercent) });
+  if (first) {
+    series.push({ label: 'plan: expected precision', x: first.layers.map((l) => l.number), y: first.layers.map((l) => l.plannedPercent) });
+    series.push({ label: 'plan: with the layers below', x: first.layers.map((l) => l.number), y: first.layers.map((l) => l.plannedStackPercent) });
+  }
   return renderLineChart(series, {
     title: `${r.recipe}: thickness error per layer, ${r.runs} runs per strategy`,
     xLabel: 'Layer',
-    yLabel: 'Thickness error (% of target)',
+    yLabel: 'Optical thickness error n·d (% of target)',
   });
 }
 

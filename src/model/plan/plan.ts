@@ -17,6 +17,7 @@ import {
   type FitPriors,
 } from './precision.ts';
 import type { CutMode, LayerRecipe, ResolvedRecipe } from './recipe.ts';
+import { belowStackPrecisionNm, NEAREST, type BelowLayer } from './stack-precision.ts';
 import { searchWavelengths, wholeRunWavelengths, type LayerSearch } from './wavelength-search.ts';
 
 export interface PlanOptions {
@@ -40,6 +41,8 @@ export interface PlanOptions {
   achievedNm?: readonly number[];
   /** n_true / n_design of those layers, as estimated (default 1 each): the chips carry them. */
   achievedIndexFactors?: readonly number[];
+  /** Work out stackPrecisionNm (default true; a re-plan in the run needs none: stackPrecisionNm = precisionNm). */
+  stackPrecision?: boolean;
 }
 
 export type PlanWarningCode =
@@ -90,6 +93,13 @@ export interface LayerPlan {
   /** Expected rms thickness error of the cut on the parts, nm: the bound of the model fit (optical), or of the crystal or clock. */
   precisionNm: number;
   precisionPercent: number;
+  /**
+   * The same with the layers below it on the chip each as uncertain as its own noise bound (the
+   * nearest six; finished layers as estimated): √(precision² + σ_below²), stack-precision.ts.
+   * For a layer on a steep curve the chip below, not the noise, sets the limit.
+   */
+  stackPrecisionNm: number;
+  stackPrecisionPercent: number;
   /** Same for the plain rule of the cut mode (crossing, or turn confirmed by 1σ), nm on the parts. */
   plainRulePrecisionNm: number;
   crystal: {
@@ -188,6 +198,7 @@ export function planRun(recipe: ResolvedRecipe, options: PlanOptions = {}): RunP
     );
     fStart = fCut;
   }
+  if (options.stackPrecision ?? true) addStackPrecision(recipe, layers, partNm, fromLayer, { noise, sampleRateHz, priors });
   return {
     recipe: recipe.name,
     fromLayer,
@@ -232,6 +243,43 @@ export function chipMonitorFor(recipe: ResolvedRecipe, index: number, partNm: re
     angleDeg: layer.angleDeg,
     signal: layer.signal,
   });
+}
+
+/** Fills each planned layer's stackPrecisionNm from the noise bounds of the planned layers below it on its chip. */
+function addStackPrecision(
+  recipe: ResolvedRecipe,
+  layers: LayerPlan[],
+  partNm: readonly number[],
+  fromLayer: number,
+  ctx: { noise: number; sampleRateHz: number; priors: FitPriors },
+): void {
+  const sigmaChipNm = new Map<number, number>();
+  for (const plan of layers) {
+    const i = plan.number - 1;
+    const layer = recipe.layers[i] as LayerRecipe;
+    const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
+    let total = plan.precisionNm;
+    if (plan.cut === 'level' || plan.cut === 'turning-point') {
+      const below: BelowLayer[] = [];
+      for (let k = Math.max(chip.fromLayer - 1, i - NEAREST, fromLayer - 1); k < i; k++) {
+        const sigma = sigmaChipNm.get(k) ?? 0;
+        if (!(sigma > 0)) continue;
+        const lower = recipe.layers[k] as LayerRecipe;
+        const deltaChipNm = 0.5;
+        const perturbed = partNm.slice();
+        perturbed[k] = (partNm[k] as number) + deltaChipNm / lower.chipRatio;
+        below.push({ monitor: chipMonitorFor(recipe, i, perturbed), deltaNm: deltaChipNm, sigmaNm: sigma });
+      }
+      const belowNm = below.length === 0 ? 0 : belowStackPrecisionNm(chipMonitorFor(recipe, i, partNm), below, plan.chipTargetNm, layer.rateNmPerS * layer.chipRatio, ctx.sampleRateHz, ctx.noise, ctx.priors) / layer.chipRatio;
+      if (Number.isFinite(belowNm)) total = Math.hypot(plan.precisionNm, belowNm);
+    }
+    plan.stackPrecisionNm = total;
+    plan.stackPrecisionPercent = (100 * total) / layer.targetNm;
+    // A layer below counts with its own noise bound, not its stack figure: the chip refit fits
+    // each layer below from the readings of the layers above it too, so that their errors do
+    // not compound (compounding them overstated the edge filter's first chip up to tenfold).
+    sigmaChipNm.set(i, plan.precisionNm * layer.chipRatio);
+  }
 }
 
 function crystalLayer(layer: LayerRecipe, partNm: number): CrystalLayer {
@@ -367,6 +415,9 @@ function describeLayer(
     curvaturePerNm2,
     precisionNm,
     precisionPercent: (100 * precisionNm) / layer.targetNm,
+    // Filled in once every layer is planned (addStackPrecision).
+    stackPrecisionNm: precisionNm,
+    stackPrecisionPercent: (100 * precisionNm) / layer.targetNm,
     plainRulePrecisionNm: plainChip / ratio,
     crystal: ctx.crystal,
     warnings,
