@@ -17,7 +17,7 @@ import {
   type FitPriors,
 } from './precision.ts';
 import type { CutMode, LayerRecipe, ResolvedRecipe } from './recipe.ts';
-import { belowStackPrecisionNm, NEAREST, type BelowLayer } from './stack-precision.ts';
+import { DEFAULT_INDEX_SIGMA, INDEX_RUN_SIGMA, layerPrecision, NEAREST, type BelowLayer } from './stack-precision.ts';
 import { searchWavelengths, wholeRunWavelengths, type LayerSearch } from './wavelength-search.ts';
 
 export interface PlanOptions {
@@ -245,7 +245,11 @@ export function chipMonitorFor(recipe: ResolvedRecipe, index: number, partNm: re
   });
 }
 
-/** Fills each planned layer's stackPrecisionNm from the noise bounds of the planned layers below it on its chip. */
+/**
+ * Fills each planned layer's stackPrecisionNm: the fit's bound with the layer's index unknown
+ * (its prior what the material's earlier layers left) and what the planned layers below it on
+ * its chip bring, each counted with its own noise bound.
+ */
 function addStackPrecision(
   recipe: ResolvedRecipe,
   layers: LayerPlan[],
@@ -254,6 +258,7 @@ function addStackPrecision(
   ctx: { noise: number; sampleRateHz: number; priors: FitPriors },
 ): void {
   const sigmaChipNm = new Map<number, number>();
+  const indexSigma = new Map<string, number>();
   for (const plan of layers) {
     const i = plan.number - 1;
     const layer = recipe.layers[i] as LayerRecipe;
@@ -270,8 +275,17 @@ function addStackPrecision(
         perturbed[k] = (partNm[k] as number) + deltaChipNm / lower.chipRatio;
         below.push({ monitor: chipMonitorFor(recipe, i, perturbed), deltaNm: deltaChipNm, sigmaNm: sigma });
       }
-      const belowNm = below.length === 0 ? 0 : belowStackPrecisionNm(chipMonitorFor(recipe, i, partNm), below, plan.chipTargetNm, layer.rateNmPerS * layer.chipRatio, ctx.sampleRateHz, ctx.noise, ctx.priors) / layer.chipRatio;
-      if (Number.isFinite(belowNm)) total = Math.hypot(plan.precisionNm, belowNm);
+      const known = indexSigma.get(layer.materialName);
+      const delta = 0.01;
+      const index = {
+        plus: chipMonitorFor(recipe, i, partNm, { growingIndexFactor: 1 + delta }),
+        minus: chipMonitorFor(recipe, i, partNm, { growingIndexFactor: 1 - delta }),
+        delta,
+        sigma: known === undefined ? DEFAULT_INDEX_SIGMA : Math.hypot(known, INDEX_RUN_SIGMA),
+      };
+      const p = layerPrecision(chipMonitorFor(recipe, i, partNm), index, below, plan.chipTargetNm, layer.rateNmPerS * layer.chipRatio, ctx.sampleRateHz, ctx.noise, ctx.priors);
+      indexSigma.set(layer.materialName, p.indexSigma);
+      if (Number.isFinite(p.cutNm) && Number.isFinite(p.belowNm)) total = Math.max(plan.precisionNm, Math.hypot(p.cutNm, p.belowNm) / layer.chipRatio);
     }
     plan.stackPrecisionNm = total;
     plan.stackPrecisionPercent = (100 * total) / layer.targetNm;
