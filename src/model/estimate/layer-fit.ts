@@ -680,7 +680,8 @@ export function createLayerFit(options: LayerFitOptions): LayerFit {
           const sd = Math.sqrt(cov[p * M + p] as number);
           if (sd > 0) largest = Math.max(largest, Math.abs(lastStep[p] as number) / sd);
         }
-        if (largest < 1e-9) break;
+        // Settled: the last step moved every parameter by under a millionth of its rms.
+        if (largest < 1e-6) break;
       }
       const sd = (p: number): number => (p < P && (cov[p * M + p] as number) > 0 ? Math.sqrt(cov[p * M + p] as number) : 0);
       return {
