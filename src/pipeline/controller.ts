@@ -537,8 +537,8 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       const partNm = s.achievedNm[s.index] ?? 0;
       if (Number.isFinite(final.thicknessNm) && final.indexFactor > 0 && final.thicknessNm > 0) {
         if (fitCut && s.fit.clock === 'crystal' && final.rateSigma > 0) {
-          const planned = layer.rateNmPerS * layer.chipRatio;
-          materialRate = { ...materialRate, [layer.materialName]: { factor: final.rateNmPerS / planned, sigma: final.rateSigma / planned } };
+          const plannedRate = layer.rateNmPerS * layer.chipRatio;
+          materialRate = { ...materialRate, [layer.materialName]: { factor: final.rateNmPerS / plannedRate, sigma: final.rateSigma / plannedRate } };
         }
         if (fitCut) {
           // The fit's u is the optical thickness at the design index: physically u/κ at index κ·n.

@@ -38,7 +38,8 @@ if (!haveChromium && inCi) {
     beforeAll(async () => {
       const runsDir = tempDir('e2e');
       // The four-layer AR coating at 30× real time: a cut every few seconds, the run over in ~20 s.
-      sim = startSimulatedRun({ recipe: ar4, profile: typical, seed: 1, speed: 30, journalDir: runsDir, signal: stop.signal });
+      // The model fit cuts, as in `fringe demo`.
+      sim = startSimulatedRun({ recipe: ar4, profile: typical, seed: 1, speed: 30, journalDir: runsDir, signal: stop.signal, controller: { estimator: 'fit' } });
       app = buildServer({ hub: sim.hub, runsDir }, { token: TOKEN, host: '127.0.0.1' });
       url = await app.listen({ port: 0, host: '127.0.0.1' });
       browser = await chromium.launch({ executablePath: CHROMIUM, args: ['--headless', '--no-sandbox', '--disable-gpu', '--disable-background-networking'] });
@@ -66,6 +67,10 @@ if (!haveChromium && inCi) {
       await expect.poll(() => page.textContent('#st-word'), { timeout: 5000 }).toBe('Depositing');
       expect(await page.textContent('#st-layer')).toMatch(/^\d of 4$/);
       expect(await page.textContent('.safety')).toContain('not a safety system');
+
+      // The readout is the model fit's thickness and rms.
+      await expect.poll(() => page.textContent('#ro-src'), { timeout: 5000 }).toBe('by the model fit');
+      expect(await page.textContent('#ro-pm')).toMatch(/^± \d+\.\d+ nm$/);
 
       // The trace advances.
       await expect.poll(() => points(page), { timeout: 5000 }).toBeGreaterThan(3);

@@ -147,8 +147,10 @@ function renderStatus() {
   setText('run-clock', fmt.clock(s.nowS));
   // The readout beside the trace.
   setText('ro-thickness', s.thicknessNm === null ? '–' : s.thicknessNm.toFixed(2));
-  setText('ro-pm', s.plusMinusNm === null ? '± –' : `± ${fmt.nm(s.plusMinusNm)}${s.estimateSource ? ` · ${fmt.SOURCE_WORDS[s.estimateSource]}` : ''}`);
+  setText('ro-pm', s.plusMinusNm === null ? '± –' : `± ${fmt.nm(s.plusMinusNm)}`);
+  setText('ro-src', s.estimateSource ? `by the ${fmt.SOURCE_WORDS[s.estimateSource]}` : '');
   $('ro-pm').title = fmt.SOURCE_TITLES[s.estimateSource] ?? fmt.SOURCE_TITLES.crystal;
+  $('ro-src').title = $('ro-pm').title;
   setText('ro-target', s.targetNm === null ? '–' : fmt.nm(s.targetNm));
   setText('ro-elapsed', s.layerElapsedS === null ? '–' : fmt.clock(s.layerElapsedS));
   setText('stack-sub', s.layer === null ? `${s.layers} layers` : `layer ${s.layer} of ${s.layers}`);
