@@ -19,8 +19,9 @@ const DEFAULT_PROFILE = fileURLToPath(new URL('../../../config/sim/typical.yaml'
 export const studyUsage = `Usage: fringe study RECIPE [options]
 
 Runs the recipe many times on the virtual chamber, the same seeds for every strategy, and
-reports per layer the RMS and worst thickness error (% of target) beside the plan's precision,
-and the final spectrum's deviation from the design.
+reports per layer the RMS and worst thickness error (% of target; physical, and optical n·d,
+which is what the monitor controls) beside the plan's precision and its stack figure, the same
+by cut mode, and the final spectrum's deviation from the design.
 
   --profile FILE        simulator profile (default: config/sim/typical.yaml)
   --runs N              runs per strategy (default 50)
@@ -28,7 +29,8 @@ and the final spectrum's deviation from the design.
   --seed N              first seed (default 1)
   --workers N           worker threads (default: the machine's cores)
   --json                print the whole study as one object
-  --plot FILE.svg       draw each strategy's RMS error per layer against the plan's precision
+  --plot FILE.svg       draw each strategy's RMS and worst n·d error per layer against the plan's
+                        figures, and FILE-spectra.svg the spread of the final spectra
   --materials FILE      material library (default: the shipped config/materials.yaml)
 `;
 
