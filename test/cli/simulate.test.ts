@@ -102,3 +102,33 @@ describe('commands that read a recorded run', () => {
     }
   });
 });
+
+describe('--estimator', () => {
+  it('is refused in one sentence unless fit or plain; a run keeps its own through replay and resume', async () => {
+    for (const argv of [
+      ['simulate', ar4, '--estimator', 'guess'],
+      ['demo', '--estimator', 'guess'],
+      ['run', '--chamber', 'x.yaml', ar4, '--estimator', 'guess'],
+    ]) {
+      const r = await run(...argv);
+      expect(r.code, argv.join(' ')).toBe(2);
+      expect(r.err, argv.join(' ')).toMatch(/--estimator must be fit or plain, got "guess"/);
+      expect(r.err.trim().split('\n')).toHaveLength(1);
+    }
+    // A run recorded with the plain rules replays with them (and says nothing differs), and with
+    // the fit it differs; resuming it with the fit is refused.
+    const dir = mkdtempSync(join(tmpdir(), 'fringe-estimator-'));
+    const recorded = await run('simulate', ar4, '--estimator', 'plain', '--journal', dir, '--seed', '2');
+    expect(recorded.code, recorded.err).toBe(0);
+    const runDir = join(dir, readdirSync(dir)[0] as string);
+    expect(journalEstimator(readJournal(join(runDir, 'journal.ndjson')).header)).toBe('plain');
+    const same = await run('replay', runDir, '--json');
+    expect(same.code, same.err).toBe(0);
+    expect((JSON.parse(same.out) as { layers: { differs: boolean }[] }).layers.some((l) => l.differs)).toBe(false);
+    const other = await run('replay', runDir, '--json', '--estimator', 'fit');
+    expect((JSON.parse(other.out) as { layers: { differs: boolean }[] }).layers.some((l) => l.differs)).toBe(true);
+    const resumed = await run('run', '--resume', runDir, '--estimator', 'fit');
+    expect(resumed.code).toBe(2);
+    expect(resumed.err).toMatch(/cuts with the plain rules; it resumes the same way/);
+  });
+});
