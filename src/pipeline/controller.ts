@@ -19,6 +19,7 @@ import { stackThicknessNm, type CrystalLayer } from '../model/crystal/index.ts';
 import { compensate } from '../model/design/compensate.ts';
 import { buildIndexTables, createLayerFit, layerSignalTable, refitChip, type LayerFit, type RefitLayer, type RefitLayerResult } from '../model/estimate/index.ts';
 import { chipMonitorFor, planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
+import { DEFAULT_INDEX_SIGMA, INDEX_RUN_SIGMA } from '../model/plan/stack-precision.ts';
 import { DEFAULT_PRIORS } from '../model/plan/precision.ts';
 import type { CutMode, ResolvedRecipe } from '../model/plan/recipe.ts';
 import { ALERTS, type AlertCode } from './codes.ts';
@@ -63,7 +64,8 @@ export interface ControllerOptions {
   /**
    * How optical layers are cut: `plain` (the rules above) or `fit` (the model fit of the whole
    * layer's signal, src/model/estimate, on the crystal's thickness as its clock, cutting when the
-   * fitted thickness plus the shutter delay's growth reaches the target). Default `plain`.
+   * fitted thickness plus the shutter delay's growth reaches the target). Default `plain` here,
+   * the reducer's baseline; the command line's default is `fit`.
    */
   estimator: 'plain' | 'fit';
   /**
@@ -90,7 +92,7 @@ export const DEFAULT_CONTROLLER_OPTIONS: ControllerOptions = {
   settleS: 1,
   replan: true,
   estimator: 'plain',
-  indexSigma: 0.03,
+  indexSigma: DEFAULT_INDEX_SIGMA,
   chipRefit: true,
 };
 
@@ -144,12 +146,10 @@ function binnedRecord(fit: LayerFit, index: number, closeClock: number): RefitLa
 /** Half-width of the index difference behind the fit's index tables (signal-table.ts). */
 const INDEX_DELTA = 0.01;
 /**
- * How far a material's index may move between its layers in one run, rms: a material's earlier
- * layers set the prior of its next one (a film's index holds within a run far better than from
- * run to run; common practice, no source).
+ * How far a material's rate scale on the crystal's clock may move between its layers in one run,
+ * rms (tooling and vapour distribution hold within a run as the index does, INDEX_RUN_SIGMA;
+ * common practice, no source).
  */
-const INDEX_RUN_SIGMA = 0.002;
-/** The same for a material's rate scale on the crystal's clock (tooling and distribution hold as well; common practice, no source). */
 const RATE_RUN_SIGMA = 0.003;
 /** A material's rate on the crystal's clock known this well (fraction, rms) stands for the thickness of each of its layers (resolvedStack). */
 const CALIBRATED_RATE_SIGMA = 0.005;
