@@ -465,7 +465,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         // The fit's clock runs at the crystal rate over the planned one (1 on the time clock);
         // cut at the reading nearest the right instant: up to half a reading interval early.
         const clockRate = s.fit.clock === 'crystal' ? rate / layer.rateNmPerS : 1;
-        const cutClock = s.fit.fit.cutTimeS(plan.chipTargetNm, layer.shutterDelayS * clockRate);
+        const cutClock = s.fit.fit.cutTimeS(plan.chipTargetNm + fitOvershootNm(s.mode, layer.overshootFraction, plan), layer.shutterDelayS * clockRate);
         const halfStep = (0.5 * clockRate) / recipe.monitor.sampleRateHz;
         if (armed && fitClock(s, s.nowS) + halfStep >= cutClock) {
           const est = s.fit.fit.estimate(cutClock + layer.shutterDelayS * clockRate);
@@ -925,6 +925,17 @@ export function visibleTurns(plan: LayerPlan | undefined, confirm: number): { tr
   // The first visible move sets the initial trend; count turns from it.
   const first = points.find((p) => Math.abs(p - plan.startSignal) >= 2 * confirm) ?? plan.cutSignal;
   return { trend: first >= plan.startSignal ? 1 : -1, turnsNeeded };
+}
+
+/**
+ * A turning-point layer's set overshoot, for the fit: the recipe gives it as the fraction of the
+ * swing by which the signal has come back past the extremum, the plain rule's measure; in
+ * thickness that is √(2·f·swing/|S″|) past the turning point (S ≈ S_tp + ½S″Δd², as the plain
+ * rule's precision in precision.ts). Chip nm; 0 for other layers or no overshoot.
+ */
+function fitOvershootNm(mode: CutMode, fraction: number, plan: LayerPlan): number {
+  if (mode !== 'turning-point' || !(fraction > 0) || !(Math.abs(plan.curvaturePerNm2) > 0)) return 0;
+  return Math.sqrt((2 * fraction * plan.swing) / Math.abs(plan.curvaturePerNm2));
 }
 
 /** The fit's clock at run time t: the crystal's part thickness over the planned rate, or elapsed time. */

@@ -275,6 +275,22 @@ describe('the model-fit estimator', () => {
     expect(Math.abs(refitted[22] as number)).toBeLessThan(0.3);
   });
 
+  it('a set overshoot on a turning point: the fit cuts that far past it, √(2·f·swing/|S″|)', () => {
+    // 2 % of the swing on every mirror layer; a turning point is flat, so in thickness that is
+    // 13–16 nm past it. Each layer's swing and curvature are its re-plan's, on the chip as cut.
+    const over = { ...mirror, layers: mirror.layers.map((l) => ({ ...l, overshootFraction: 0.02 })) };
+    const run = runIdeal(over, createController(over, { estimator: 'fit' }), { noise: 0.001, seed: 4 });
+    for (const i of [0, 1, 2, 3]) {
+      const p = planRun(over, { suggest: 'none', achievedNm: run.trueNm.slice(0, i) }).layers[0]!;
+      const layer = over.layers[i]!;
+      expect(p.cut, `layer ${i + 1}`).toBe('turning-point');
+      const past = Math.sqrt((2 * 0.02 * p.swing) / Math.abs(p.curvaturePerNm2)) / layer.chipRatio;
+      expect(past, `layer ${i + 1}`).toBeGreaterThan(10);
+      const step = layer.rateNmPerS / over.monitor.sampleRateHz;
+      expect(Math.abs((run.trueNm[i] as number) - (layer.targetNm + past)), `layer ${i + 1}`).toBeLessThan(4 * p.precisionNm + step);
+    }
+  });
+
   it('keeps the plain rule when the crystal, its clock, goes quiet', () => {
     const run = runIdeal(edge, createController(edge, { estimator: 'fit', replan: false }), { crystalSilentS: [150, 1e9], maxS: 400 });
     const second = ofType(run.events, 'cut')[1];
