@@ -18,8 +18,8 @@
  * u and κ with g and o to first order (the depth of the swing is also a gain): the priors fix what
  * the data cannot tell (the controller's priors of κ and r come from the material's earlier layers).
  *
- * Rate ramp after the opening: d₀ is free, so a ramp with time constant τ is absorbed as
- * d₀ ≈ −r·τ once t ≫ τ; `rampS` drops the readings of the first seconds where the ramp bends the
+ * Rate ramp after the opening: u₀ is free, so a ramp with time constant τ is absorbed as
+ * u₀ ≈ −r·τ once t ≫ τ; `rampS` drops the readings of the first seconds where the ramp bends the
  * line (after 5τ the line is within r·τ·e⁻⁵ of the truth).
  *
  * Robustness: iteratively reweighted least squares with Huber weights (Huber, *Ann. Math. Stat.*
@@ -118,8 +118,9 @@ export interface LayerFit {
   readings(): { times: Float64Array; values: Float64Array; spikes: Uint8Array };
   /**
    * After the cut: the thickness stops growing at `closeTimeS`; refits to convergence with every
-   * reading incl. those after the close. `thicknessNm` is u (physical: u/κ); gain and offset as
-   * fitted, with their rms, to carry over to the next layer.
+   * reading incl. those after the close. `thicknessNm` is u (physical: u/κ); rate, index, gain and
+   * offset as fitted, with their rms (the controller carries the rate and index to the material's
+   * next layer).
    */
   finalThickness(closeTimeS: number): FinalEstimate;
 }
