@@ -24,7 +24,7 @@
  * - Thickness: on the parts ∫rate (see `source-rate.ts`), on the chip × chipRatio × (1 + chip
  *   error), on the crystal ÷ (toolingFactor × (1 + tooling error)); exact to rounding.
  * - Optical reading at t: g(t)·S(t) + o(t) + ε (+ a spike), g = 1 + gain drift·t, o = offset
- *   drift·t, ε white Gaussian; S is `buildChipMonitor` on the true chip stack at the layer's
+ *   drift·t, ε white Gaussian; S is the chip monitor (`layerMonitor`) on the true chip stack at the layer's
  *   monitor wavelength, pass band, angle and signal. The monitor follows the layer that opened
  *   last (a new chip starts bare when its first layer opens) and keeps that layer's settings
  *   until the next one opens; before the first open it shows layer 1's chip at layer 1's settings.
@@ -36,7 +36,8 @@
 import { deepFreeze } from '../src/config/read-config.ts';
 import { stackFrequencyHz, crystalLifeUsed, type CrystalLayer } from '../src/model/crystal/index.ts';
 import { indexAt, scaledDispersion, type Dispersion } from '../src/model/optics/dispersion.ts';
-import { buildChipMonitor, type ChipMonitor } from '../src/model/plan/chip-monitor.ts';
+import type { ChipMonitor } from '../src/model/plan/chip-monitor.ts';
+import { layerMonitor } from '../src/model/plan/plan.ts';
 import type { LayerRecipe, ResolvedRecipe } from '../src/model/plan/recipe.ts';
 import type { StackSpec } from '../src/model/optics/optical-model.ts';
 import type { Reading, ShutterAck, ShutterCommand } from '../src/pipeline/types.ts';
@@ -308,23 +309,7 @@ export function createVirtualChamber(recipe: ResolvedRecipe, profile: SimProfile
   const firstLayer = recipe.layers[0] as LayerRecipe;
   let monitorLayer: LayerState | null = null;
   let monitorSlices = 0;
-  let monitor: ChipMonitor = buildMonitor(firstLayer, [], (materials.get(firstLayer.materialName) as MaterialState).dispersion);
-
-  function buildMonitor(settings: LayerRecipe, below: { dispersion: Dispersion; thicknessNm: number }[], growingDispersion: Dispersion): ChipMonitor {
-    const chip = recipe.chips[settings.chip] as ResolvedRecipe['chips'][number];
-    return buildChipMonitor({
-      incident: recipe.incident,
-      substrate: chip.substrate,
-      back: chip.back,
-      substrateThicknessNm: chip.thicknessMm * 1e6,
-      below,
-      growing: growingDispersion,
-      wavelengthNm: settings.wavelengthNm,
-      bandwidthNm: settings.bandwidthNm,
-      angleDeg: settings.angleDeg,
-      signal: settings.signal,
-    });
-  }
+  let monitor: ChipMonitor = layerMonitor(recipe, firstLayer, [], (materials.get(firstLayer.materialName) as MaterialState).dispersion);
 
   function chipNmOf(layer: LayerState): number {
     return layer.partNm * layer.source.chipFactor;
@@ -370,7 +355,7 @@ export function createVirtualChamber(recipe: ResolvedRecipe, profile: SimProfile
     for (let j = 0; j < full; j++) below.push({ dispersion: sliceDispersion(layer, j), thicknessNm: layer.sliceNm });
     monitorLayer = layer;
     monitorSlices = full;
-    monitor = buildMonitor(layer.recipe, below, sliceDispersion(layer, full));
+    monitor = layerMonitor(recipe, layer.recipe, below, sliceDispersion(layer, full));
   }
 
   /** The growing slice's thickness on the chip, rebuilding the monitor when a slice completed. */

@@ -224,8 +224,6 @@ export interface ControllerState {
   readonly materialRate: Readonly<Record<string, { readonly factor: number; readonly sigma: number }>>;
   /** The current chip's last REFIT_LAYERS finished layers watched on the crystal's clock, binned, for the chip refit. */
   readonly chipRecords: readonly RefitLayer[];
-  /** The chip those records are of (−1 before any). */
-  readonly recordsChip: number;
   /**
    * The material estimates as each finished layer left them: the refit of a window of layers
    * starts from those its first layer found, which owe nothing to the window's own readings.
@@ -301,7 +299,6 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       materialIndex: {},
       materialRate: {},
       chipRecords: [],
-      recordsChip: -1,
       materialAfter: [],
       approachingSent: false,
       rateAlerted: false,
@@ -353,7 +350,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
 
   function onOptical(s: ControllerState, r: Reading): ControllerState {
     if (s.fit && (s.phase === 'depositing' || s.phase === 'closing')) {
-      s.fit.fit.add(fitClock(s, r.timeS), r.value);
+      s.fit.fit.add(fitClockAt(recipe, s, r.timeS), r.value);
       s.fit.fit.update();
     }
     if (s.phase !== 'depositing') return withReading(s, r.timeS, r.timeS, s.lastCrystalS, s.optical, s.crystal, s.layerCrystalNm);
@@ -467,7 +464,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         const clockRate = s.fit.clock === 'crystal' ? rate / layer.rateNmPerS : 1;
         const cutClock = s.fit.fit.cutTimeS(plan.chipTargetNm + fitOvershootNm(s.mode, layer.overshootFraction, plan), layer.shutterDelayS * clockRate);
         const halfStep = (0.5 * clockRate) / recipe.monitor.sampleRateHz;
-        if (armed && fitClock(s, s.nowS) + halfStep >= cutClock) {
+        if (armed && fitClockAt(recipe, s, s.nowS) + halfStep >= cutClock) {
           const est = s.fit.fit.estimate(cutClock + layer.shutterDelayS * clockRate);
           return cut(s, events, 'model-fit', est.thicknessNm / est.indexFactor / layer.chipRatio, delayNm);
         }
@@ -531,7 +528,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const watched = s.mode === planned && (planned === 'crystal' || planned === 'time');
     if (s.fit && !skipped && Number.isFinite(s.cutAtS) && (fitCut || watched)) {
       // Refit with every reading, those after the shutter closed included (u constant then).
-      const closeClock = fitClock(s, s.cutAtS + layer.shutterDelayS);
+      const closeClock = fitClockAt(recipe, s, s.cutAtS + layer.shutterDelayS);
       const final = s.fit.fit.finalThickness(closeClock);
       if (s.fit.clock === 'crystal' && opts.chipRefit) record = binnedRecord(s.fit.fit, s.index, closeClock);
       const partNm = s.achievedNm[s.index] ?? 0;
@@ -632,7 +629,8 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     // Not yet heard counts as alive, as for the silence guard (the first reading may come just after the opening).
     const crystalAlive = Number.isNaN(s.lastCrystalS) || s.nowS - s.lastCrystalS < opts.staleAfterS;
     // A new chip starts a new refit, its priors what the earlier chips showed.
-    if (layer.chip !== s.recordsChip) s = { ...s, chipRecords: [], recordsChip: layer.chip };
+    const recorded = s.chipRecords[0];
+    if (recorded && (recipe.layers[recorded.index] as ResolvedRecipe['layers'][number]).chip !== layer.chip) s = { ...s, chipRecords: [] };
     return {
       ...s,
       phase: 'depositing',
@@ -765,11 +763,6 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     return { partNm, indexFactors };
   }
 
-  /** The fit's clock at run time t: crystal part thickness over the planned rate, or elapsed time. */
-  function fitClock(s: ControllerState, timeS: number): number {
-    return fitClockAt(recipe, s, timeS);
-  }
-
   function operator(s: ControllerState, command: OperatorCommand, events: RunEvent[]): StepResult {
     const timeS = Math.max(s.nowS, command.timeS);
     let next: ControllerState = { ...s, nowS: timeS };
@@ -875,7 +868,6 @@ function withReading(
     materialIndex: s.materialIndex,
     materialRate: s.materialRate,
     chipRecords: s.chipRecords,
-    recordsChip: s.recordsChip,
     materialAfter: s.materialAfter,
     approachingSent: s.approachingSent,
     rateAlerted: s.rateAlerted,

@@ -153,11 +153,12 @@ export function createRunHub(options: RunHubOptions): RunHub {
   const layerPlan = (s: ControllerState): LayerPlan | undefined => s.plan.layers[s.index - (s.plan.fromLayer - 1)];
   const started = (s: ControllerState | undefined): s is ControllerState => s !== undefined && s.phase !== 'ready';
 
-  /** The current layer's part thickness at `timeS`, nm, as the controller reckons it. */
+  const crystalFresh = (s: ControllerState, timeS: number): boolean => Number.isFinite(s.crystal.partNm) && timeS - s.crystal.lastS < CRYSTAL_STALE_S;
+
+  /** The current layer's part thickness at `timeS`, nm, as the crystal (else the clock) reckons it. */
   function partThicknessNm(s: ControllerState, layer: LayerRecipe, timeS: number): number {
     const c = s.crystal;
-    const crystalFresh = Number.isFinite(c.partNm) && timeS - c.lastS < CRYSTAL_STALE_S;
-    if (crystalFresh) {
+    if (crystalFresh(s, timeS)) {
       const growing = s.phase === 'depositing' || s.phase === 'closing';
       const rate = Number.isFinite(c.rateNmPerS) ? c.rateNmPerS : layer.rateNmPerS;
       return c.partNm + (growing ? rate * Math.max(0, timeS - c.lastS) : 0);
@@ -320,7 +321,6 @@ export function createRunHub(options: RunHubOptions): RunHub {
     const plan = layerPlan(s);
     const nowS = Math.max(s.nowS, run?.nowS ?? s.nowS);
     const fitted = s.phase === 'depositing' || s.phase === 'closing' ? liveFitEstimate(recipe, s, nowS) : null;
-    const crystalFresh = Number.isFinite(s.crystal.partNm) && nowS - s.crystal.lastS < CRYSTAL_STALE_S;
     const thickness = fitted ? fitted.thicknessNm : partThicknessNm(s, layer, nowS);
     let timeToCutS: number | null = null;
     if (s.phase === 'depositing') {
@@ -338,7 +338,7 @@ export function createRunHub(options: RunHubOptions): RunHub {
       targetNm: layer.targetNm,
       thicknessNm: finite(ended ? (s.achievedNm[s.index] ?? thickness) : thickness),
       plusMinusNm: finite(fitted && !ended ? fitted.sigmaNm : (plan?.precisionNm ?? Number.NaN)),
-      estimateSource: fitted && !ended ? 'fit' : crystalFresh ? 'crystal' : 'clock',
+      estimateSource: fitted && !ended ? 'fit' : crystalFresh(s, nowS) ? 'crystal' : 'clock',
       layerElapsedS: finite(nowS - s.openedAtS),
       timeToCutS: finite(timeToCutS ?? Number.NaN),
       approaching: approachingLayer === layer.number && s.phase === 'depositing',

@@ -45,6 +45,11 @@ export function buildSignalTable(source: SignalSource, fromNm: number, toNm: num
 function tabulate(source: SignalSource, fromNm: number, stepNm: number, count: number): SignalTable {
   const padded = new Float64Array(count + 4);
   for (let i = 0; i < count + 4; i++) padded[i] = source.signalAt(fromNm + (i - 2) * stepNm);
+  return fromPadded(source, padded, fromNm, stepNm, count);
+}
+
+/** A table from its node values with two more on each side (for the end slopes). */
+function fromPadded(source: SignalSource, padded: Float64Array, fromNm: number, stepNm: number, count: number): SignalTable {
   const values = padded.slice(2, count + 2);
   const slopes = new Float64Array(count);
   const inv12h = 1 / (12 * stepNm);
@@ -84,10 +89,18 @@ export function buildIndexTables(table: SignalTable, plus: SignalSource, minus: 
   const second: SignalSource = {
     signalAt: (u) => (plus.signalAt(u / (1 + delta)) - 2 * centre.signalAt(u) + minus.signalAt(u / (1 - delta))) / (delta * delta),
   };
-  return {
-    first: tabulate(first, table.fromNm, table.stepNm, table.count),
-    second: tabulate(second, table.fromNm, table.stepNm, table.count),
-  };
+  // Both tables from one pass over the nodes: F(u, 1 ± δ) once each, the centre once.
+  const { fromNm, stepNm, count } = table;
+  const firstPadded = new Float64Array(count + 4);
+  const secondPadded = new Float64Array(count + 4);
+  for (let i = 0; i < count + 4; i++) {
+    const u = fromNm + (i - 2) * stepNm;
+    const p = plus.signalAt(u / (1 + delta));
+    const m = minus.signalAt(u / (1 - delta));
+    firstPadded[i] = (p - m) / (2 * delta);
+    secondPadded[i] = (p - 2 * centre.signalAt(u) + m) / (delta * delta);
+  }
+  return { first: fromPadded(first, firstPadded, fromNm, stepNm, count), second: fromPadded(second, secondPadded, fromNm, stepNm, count) };
 }
 
 /**

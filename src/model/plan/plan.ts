@@ -6,9 +6,9 @@
  * the layer's thickness on its chip (part thickness × chipRatio); the crystal's is on the
  * crystal (part thickness / tooling factor).
  */
-import { indexAt, scaledDispersion } from '../optics/dispersion.ts';
+import { indexAt, scaledDispersion, type Dispersion } from '../optics/dispersion.ts';
 import { crystalLifeUsed, stackFrequencyHz, type CrystalLayer } from '../crystal/index.ts';
-import { buildChipMonitor, findTurningPoints, type ChipMonitor, type TurningPoint } from './chip-monitor.ts';
+import { buildChipMonitor, findTurningPoints, type ChipMonitor, type ChipMonitorSpec, type TurningPoint } from './chip-monitor.ts';
 import {
   DEFAULT_PRIORS,
   fitPrecisionBound,
@@ -163,11 +163,14 @@ export function planRun(recipe: ResolvedRecipe, options: PlanOptions = {}): RunP
   let fStart = stackFrequencyHz(f0, crystalBelow);
 
   const layers: LayerPlan[] = [];
+  const monitors: ChipMonitor[] = [];
+  const indexFactors = options.achievedIndexFactors ?? [];
   const scratch = new Float64Array(16);
   for (const layer of planned) {
     const i = layer.number - 1;
     const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
-    const monitor = chipMonitorFor(recipe, i, partNm, { indexFactors: options.achievedIndexFactors ?? [] });
+    const monitor = chipMonitorFor(recipe, i, partNm, { indexFactors });
+    monitors.push(monitor);
     const target = chipNm[i] as number;
     const intervals = Math.max(2, Math.ceil(target / curveStep));
     const step = target / intervals;
@@ -198,7 +201,7 @@ export function planRun(recipe: ResolvedRecipe, options: PlanOptions = {}): RunP
     );
     fStart = fCut;
   }
-  if (options.stackPrecision ?? true) addStackPrecision(recipe, layers, partNm, fromLayer, { noise, sampleRateHz, priors });
+  if (options.stackPrecision ?? true) addStackPrecision(recipe, layers, monitors, partNm, indexFactors, fromLayer, { noise, sampleRateHz, priors });
   return {
     recipe: recipe.name,
     fromLayer,
@@ -231,13 +234,23 @@ export function chipMonitorFor(recipe: ResolvedRecipe, index: number, partNm: re
     const l = recipe.layers[j] as LayerRecipe;
     below.push({ dispersion: scaledDispersion(l.dispersion, factors[j] ?? 1, 0), thicknessNm: (partNm[j] ?? l.targetNm) * l.chipRatio });
   }
+  return layerMonitor(recipe, layer, below, scaledDispersion(layer.dispersion, view.growingIndexFactor ?? 1, 0));
+}
+
+/**
+ * The optical monitor of `layer` as its settings give it (wavelength, band, angle, signal), on its
+ * chip over the layers `below` (chip thicknesses), the layer growing in `growing`: the one place
+ * a layer's settings become a chip monitor, for the plan and for the virtual chamber's truth.
+ */
+export function layerMonitor(recipe: ResolvedRecipe, layer: LayerRecipe, below: ChipMonitorSpec['below'], growing: Dispersion): ChipMonitor {
+  const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
   return buildChipMonitor({
     incident: recipe.incident,
     substrate: chip.substrate,
     back: chip.back,
     substrateThicknessNm: chip.thicknessMm * 1e6,
     below,
-    growing: scaledDispersion(layer.dispersion, view.growingIndexFactor ?? 1, 0),
+    growing,
     wavelengthNm: layer.wavelengthNm,
     bandwidthNm: layer.bandwidthNm,
     angleDeg: layer.angleDeg,
@@ -253,13 +266,15 @@ export function chipMonitorFor(recipe: ResolvedRecipe, index: number, partNm: re
 function addStackPrecision(
   recipe: ResolvedRecipe,
   layers: LayerPlan[],
+  monitors: readonly ChipMonitor[],
   partNm: readonly number[],
+  indexFactors: readonly number[],
   fromLayer: number,
   ctx: { noise: number; sampleRateHz: number; priors: FitPriors },
 ): void {
   const sigmaChipNm = new Map<number, number>();
   const indexSigma = new Map<string, number>();
-  for (const plan of layers) {
+  layers.forEach((plan, n) => {
     const i = plan.number - 1;
     const layer = recipe.layers[i] as LayerRecipe;
     const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
@@ -273,17 +288,17 @@ function addStackPrecision(
         const deltaChipNm = 0.5;
         const perturbed = partNm.slice();
         perturbed[k] = (partNm[k] as number) + deltaChipNm / lower.chipRatio;
-        below.push({ monitor: chipMonitorFor(recipe, i, perturbed), deltaNm: deltaChipNm, sigmaNm: sigma });
+        below.push({ monitor: chipMonitorFor(recipe, i, perturbed, { indexFactors }), deltaNm: deltaChipNm, sigmaNm: sigma });
       }
       const known = indexSigma.get(layer.materialName);
       const delta = 0.01;
       const index = {
-        plus: chipMonitorFor(recipe, i, partNm, { growingIndexFactor: 1 + delta }),
-        minus: chipMonitorFor(recipe, i, partNm, { growingIndexFactor: 1 - delta }),
+        plus: chipMonitorFor(recipe, i, partNm, { indexFactors, growingIndexFactor: 1 + delta }),
+        minus: chipMonitorFor(recipe, i, partNm, { indexFactors, growingIndexFactor: 1 - delta }),
         delta,
         sigma: known === undefined ? DEFAULT_INDEX_SIGMA : Math.hypot(known, INDEX_RUN_SIGMA),
       };
-      const p = layerPrecision(chipMonitorFor(recipe, i, partNm), index, below, plan.chipTargetNm, layer.rateNmPerS * layer.chipRatio, ctx.sampleRateHz, ctx.noise, ctx.priors);
+      const p = layerPrecision(monitors[n] as ChipMonitor, index, below, plan.chipTargetNm, layer.rateNmPerS * layer.chipRatio, ctx.sampleRateHz, ctx.noise, ctx.priors);
       indexSigma.set(layer.materialName, p.indexSigma);
       if (Number.isFinite(p.cutNm) && Number.isFinite(p.belowNm)) total = Math.max(plan.precisionNm, Math.hypot(p.cutNm, p.belowNm) / layer.chipRatio);
     }
@@ -293,7 +308,7 @@ function addStackPrecision(
     // each layer below from the readings of the layers above it too, so that their errors do
     // not compound (compounding them overstated the edge filter's first chip up to tenfold).
     sigmaChipNm.set(i, plan.precisionNm * layer.chipRatio);
-  }
+  });
 }
 
 function crystalLayer(layer: LayerRecipe, partNm: number): CrystalLayer {
