@@ -58,7 +58,6 @@ export {
   ShutterSettingsSchema,
   SourceCommandsSchema,
   createShutterOutput,
-  type ShutterAlert,
   type ShutterOutput,
   type ShutterOutputOptions,
   type ShutterSettings,

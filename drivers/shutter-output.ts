@@ -1,19 +1,25 @@
 /**
  * The shutter output: turns a {@link ShutterCommand} into the configured command line, writes it
- * to a line link (the instrument's own or a separate one), and, when an acknowledgement is
- * configured, waits for it and raises an alert when none comes in time.
+ * to a line link (the instrument's own or a separate one), and reports on `acks` what took effect
+ * and on `faults` what may not have.
  *
  * What must stay true:
- * - `send()` never blocks and never throws: a command that cannot be sent (link down, no command
- *   configured, a template that would put a line break in the command) raises `shutter-not-sent`;
- * - nothing is queued: a command that could not be written is not sent later;
- * - every command sent with an acknowledgement configured ends in exactly one of: a matching
- *   `ShutterAck` on `acks`, or a `shutter-no-ack` alert after `timeoutMs`.
+ * - `send()` never blocks and never throws;
+ * - a command is confirmed by a matching acknowledgement when one is configured, else by being
+ *   written (`confirmedBy: 'sent'`);
+ * - a close is re-sent until confirmed: at once after each `shutter-no-ack` (up to
+ *   `closeAttempts` writes), and when the link comes back after a `shutter-not-sent`; a newer
+ *   command for the same shutter replaces it. An open is never re-sent: a layer opened late
+ *   is worse than one not opened;
+ * - every failure is a {@link ShutterFault} with its attempt number, `final` when the output will
+ *   not try again (an open; a close after its last attempt; a source with no command);
+ * - `unconfirmedCloses()` names the shutters whose last close is not confirmed, and `settled()`
+ *   waits (bounded) until there are none.
  */
 import { Subject, type Observable, type Subscription } from 'rxjs';
 import { z } from 'zod';
 import { ConfigError, validate } from '../src/config/validation.ts';
-import type { ShutterAck, ShutterCommand, ShutterSink, SourceStatus } from '../src/pipeline/types.ts';
+import type { ShutterAck, ShutterCommand, ShutterFault, ShutterSink, SourceStatus } from '../src/pipeline/types.ts';
 import type { LineLink, LinkLine } from './line-link.ts';
 
 const PLACEHOLDERS = new Set(['source', 'layer']);
@@ -85,8 +91,12 @@ export const ShutterSettingsSchema = z.strictObject({
   commands: z.record(z.string().min(1), SourceCommandsSchema).default({}),
   /** Terminator added to each command. Default `lf`. */
   lineEnding: z.enum(['lf', 'crlf', 'cr']).default('lf'),
-  /** Wait for an acknowledgement; absent: commands are sent and not confirmed. */
+  /** Wait for an acknowledgement; absent: a command counts as confirmed once written. */
   ack: AckOptionsSchema.optional(),
+  /** Times a close is written before the output gives up waiting for its acknowledgement. Default 5. */
+  closeAttempts: z.number().int().min(1).max(100).default(5),
+  /** Wait before re-sending a close whose write failed on a connected link, ms. Default 1000. */
+  closeRetryMs: z.number().int().positive().max(60_000).default(1000),
 });
 export type ShutterSettings = z.input<typeof ShutterSettingsSchema>;
 
@@ -95,32 +105,36 @@ export type ShutterOutputOptions = ShutterSettings & {
   link: LineLink;
 };
 
-/** Raised when a shutter may not have done what it was told. */
-export interface ShutterAlert {
-  readonly kind: 'shutter-alert';
-  /** `shutter-no-ack`: sent, not confirmed in time. `shutter-not-sent`: could not be sent. */
-  readonly code: 'shutter-no-ack' | 'shutter-not-sent';
-  readonly source: string;
-  readonly action: 'open' | 'close';
-  readonly layer: number;
-  /** The command's run time, s. */
-  readonly timeS: number;
-  readonly detail: string;
-}
-
 export type ShutterOutput = ShutterSink & {
-  readonly alerts: Observable<ShutterAlert>;
   /** The health of the link the commands go through (the link's own status stream). */
   readonly status: Observable<SourceStatus>;
-  /** Stops waiting for acknowledgements and completes `acks` and `alerts`; the link stays open. */
+  /** The sources whose last close has not been confirmed (being re-sent, or given up on). */
+  unconfirmedCloses(): string[];
+  /**
+   * Resolves once every close is confirmed, or after `timeoutMs` or when the output closes,
+   * with the sources still unconfirmed.
+   */
+  settled(timeoutMs: number): Promise<string[]>;
+  /** Stops waiting and re-sending and completes `acks` and `faults`; the link stays open. */
   close(): void;
 };
 
 const ENDINGS = { lf: '\n', crlf: '\r\n', cr: '\r' } as const;
 
-interface Pending {
+/** A command on its way: written and awaiting its acknowledgement, or (a close) awaiting a re-send. */
+interface Attempt {
   readonly command: ShutterCommand;
-  readonly timer: ReturnType<typeof setTimeout>;
+  readonly text: string;
+  /** Writes made. */
+  writes: number;
+  /** Failures reported. */
+  failures: number;
+  /** The acknowledgement's deadline, or the re-send's. */
+  timer: ReturnType<typeof setTimeout> | undefined;
+  /** Waiting for an acknowledgement (in `awaiting`). */
+  inFlight: boolean;
+  /** A close given up on (still unconfirmed). */
+  abandoned: boolean;
 }
 
 /** Creates the output; bad options throw a `ConfigError` naming them. */
@@ -139,26 +153,18 @@ export function createShutterOutput(options: ShutterOutputOptions): ShutterOutpu
   for (const [source, entry] of Object.entries(o.commands)) if (source !== 'default') byName.set(entry.name ?? source, source);
 
   const acks = new Subject<ShutterAck>();
-  const alerts = new Subject<ShutterAlert>();
-  const pending = new Map<string, Pending[]>();
+  const faults = new Subject<ShutterFault>();
+  /** Commands written and awaiting their acknowledgement, oldest first, by action and source. */
+  const awaiting = new Map<string, Attempt[]>();
+  /** Each source's last close until it is confirmed. */
+  const closes = new Map<string, Attempt>();
+  const waiters = new Set<() => void>();
+  let linkUp = false;
   let done = false;
 
   const ack = o.ack;
   const ackPattern = ack ? new RegExp(ack.pattern, ack.flags) : undefined;
   const words = ack ? { open: new Set(ack.words.open.map((w) => w.toLowerCase())), close: new Set(ack.words.close.map((w) => w.toLowerCase())) } : undefined;
-
-  function alert(code: ShutterAlert['code'], command: ShutterCommand, detail: string): void {
-    if (done) return;
-    alerts.next({ kind: 'shutter-alert', code, source: command.source, action: command.action, layer: command.layer, timeS: command.timeS, detail });
-  }
-
-  function settle(entry: Pending): void {
-    clearTimeout(entry.timer);
-    const key = keyOf(entry.command.source, entry.command.action);
-    const queue = pending.get(key)?.filter((p) => p !== entry) ?? [];
-    if (queue.length === 0) pending.delete(key);
-    else pending.set(key, queue);
-  }
 
   function commandText(command: ShutterCommand): string | { problem: string } {
     // Own keys only: a source called `constructor` must not find Object's.
@@ -173,6 +179,77 @@ export function createShutterOutput(options: ShutterOutputOptions): ShutterOutpu
     return text;
   }
 
+  /** Forgets an attempt's timer and its place among those awaiting an acknowledgement. */
+  function retire(a: Attempt): void {
+    clearTimeout(a.timer);
+    a.timer = undefined;
+    if (!a.inFlight) return;
+    a.inFlight = false;
+    const key = keyOf(a.command.source, a.command.action);
+    const queue = awaiting.get(key)?.filter((p) => p !== a) ?? [];
+    if (queue.length === 0) awaiting.delete(key);
+    else awaiting.set(key, queue);
+  }
+
+  function confirmed(a: Attempt, timeS: number, confirmedBy?: 'sent'): void {
+    retire(a);
+    if (closes.get(a.command.source) === a) {
+      closes.delete(a.command.source);
+      wake();
+    }
+    acks.next({ kind: 'shutter-ack', action: a.command.action, source: a.command.source, timeS, ...(confirmedBy ? { confirmedBy } : {}) });
+  }
+
+  function fail(a: Attempt, code: ShutterFault['code'], detail: string, final: boolean): void {
+    if (done) return;
+    a.failures++;
+    if (final && closes.get(a.command.source) === a) {
+      a.abandoned = true;
+      wake();
+    }
+    const { action, source, layer, timeS } = a.command;
+    faults.next({ kind: 'shutter-fault', code, action, source, layer, attempt: a.failures, final, detail, timeS });
+  }
+
+  /** True while `a` is still the command to carry out for its shutter. */
+  const current = (a: Attempt): boolean => !done && (a.command.action === 'open' || closes.get(a.command.source) === a);
+
+  function write(a: Attempt): void {
+    if (!current(a)) return;
+    const retried = a.command.action === 'close';
+    if (!linkUp) {
+      // Sent again when the link is back (a close); an open is not.
+      fail(a, 'shutter-not-sent', `${JSON.stringify(a.text)} not sent: ${link.description || 'the link'} is not connected`, !retried);
+      return;
+    }
+    a.writes++;
+    link.write(a.text + ending).then(
+      () => {
+        if (!current(a)) return;
+        if (!ack) {
+          confirmed(a, a.command.timeS, 'sent');
+          return;
+        }
+        a.inFlight = true;
+        const key = keyOf(a.command.source, a.command.action);
+        awaiting.set(key, [...(awaiting.get(key) ?? []), a]);
+        a.timer = setTimeout(() => {
+          retire(a);
+          const last = !retried || a.writes >= o.closeAttempts;
+          fail(a, 'shutter-no-ack', `no acknowledgement within ${ack.timeoutMs} ms of ${JSON.stringify(a.text)}${retried ? ` (write ${a.writes} of ${o.closeAttempts})` : ''}`, last);
+          if (!last) write(a);
+        }, ack.timeoutMs);
+      },
+      (error: unknown) => {
+        if (!current(a)) return;
+        fail(a, 'shutter-not-sent', `${JSON.stringify(a.text)} not sent: ${error instanceof Error ? error.message : String(error)}`, !retried);
+        // A failed write on a link that still looks up is tried again after a pause; a link
+        // that went down brings the close back when it reconnects.
+        if (retried && linkUp) a.timer = setTimeout(() => write(a), o.closeRetryMs);
+      },
+    );
+  }
+
   function onLine(line: LinkLine): void {
     if (!ackPattern || !words || !ack) return;
     const match = ackPattern.exec(line.text);
@@ -182,23 +259,26 @@ export function createShutterOutput(options: ShutterOutputOptions): ShutterOutpu
     if (action === undefined) return;
     const said = match.groups?.source;
     let source: string | undefined = said === undefined ? undefined : (byName.get(said) ?? said);
-    let entry: Pending | undefined;
+    let entry: Attempt | undefined;
     if (source !== undefined) {
-      entry = pending.get(keyOf(source, action))?.[0];
+      entry = awaiting.get(keyOf(source, action))?.[0];
     } else {
       // No source in the acknowledgement: it confirms the oldest command of that action.
-      for (const queue of pending.values()) {
+      for (const queue of awaiting.values()) {
         const first = queue[0];
         if (first && first.command.action === action && (entry === undefined || first.command.timeS < entry.command.timeS)) entry = first;
       }
       source = entry?.command.source;
     }
-    if (entry) settle(entry);
     if (source === undefined) return;
     const rawTime = match.groups?.time;
     const instrumentTime = rawTime === undefined ? Number.NaN : Number(rawTime);
     const timeS = Number.isFinite(instrumentTime) && rawTime?.trim() !== '' ? instrumentTime * ack.timeScale : line.arrivalS;
-    acks.next({ kind: 'shutter-ack', action, source, timeS });
+    // A late acknowledgement (after its deadline, while a re-send is on its way) still confirms the close.
+    const close = action === 'close' ? closes.get(source) : undefined;
+    if (entry) confirmed(entry, timeS);
+    else if (close) confirmed(close, timeS);
+    else acks.next({ kind: 'shutter-ack', action, source, timeS });
   }
 
   const subscription: Subscription = link.lines.subscribe({
@@ -207,46 +287,73 @@ export function createShutterOutput(options: ShutterOutputOptions): ShutterOutpu
     },
     complete: () => finish(),
   });
+  const statusSubscription: Subscription = link.status.subscribe((s) => {
+    const up = s.state === 'connected' || s.state === 'stale';
+    const cameBack = up && !linkUp;
+    linkUp = up;
+    // Closes that could not be sent go out again now.
+    if (cameBack) for (const a of [...closes.values()]) if (!a.inFlight && !a.abandoned && a.timer === undefined) write(a);
+  });
+
+  function wake(): void {
+    for (const waiter of [...waiters]) waiter();
+  }
+
+  function unconfirmedCloses(): string[] {
+    return [...closes.keys()];
+  }
 
   function finish(): void {
     if (done) return;
     done = true;
-    for (const queue of pending.values()) for (const entry of queue) clearTimeout(entry.timer);
-    pending.clear();
+    for (const a of closes.values()) clearTimeout(a.timer);
+    for (const queue of awaiting.values()) for (const a of queue) clearTimeout(a.timer);
+    awaiting.clear();
+    wake();
     acks.complete();
-    alerts.complete();
+    faults.complete();
   }
 
   return {
     acks: acks.asObservable(),
-    alerts: alerts.asObservable(),
+    faults: faults.asObservable(),
     status: link.status,
     send(command) {
       if (done) return;
       const text = commandText(command);
-      if (typeof text !== 'string') {
-        alert('shutter-not-sent', command, text.problem);
-        return;
+      const previous = closes.get(command.source);
+      // The newest command for a shutter replaces a close still on its way.
+      if (previous) {
+        retire(previous);
+        closes.delete(command.source);
       }
-      let entry: Pending | undefined;
-      if (ack) {
-        const key = keyOf(command.source, command.action);
+      const a: Attempt = { command, text: typeof text === 'string' ? text : '', writes: 0, failures: 0, timer: undefined, inFlight: false, abandoned: false };
+      if (command.action === 'close') closes.set(command.source, a);
+      if (typeof text !== 'string') fail(a, 'shutter-not-sent', text.problem, true);
+      else write(a);
+      if (previous) wake();
+    },
+    unconfirmedCloses,
+    settled(timeoutMs) {
+      return new Promise<string[]>((resolve) => {
+        const check = (): void => {
+          const open = unconfirmedCloses();
+          if (!done && open.some((source) => !closes.get(source)?.abandoned)) return;
+          clearTimeout(timer);
+          waiters.delete(check);
+          resolve(open);
+        };
         const timer = setTimeout(() => {
-          if (!entry) return;
-          settle(entry);
-          alert('shutter-no-ack', command, `no acknowledgement within ${ack.timeoutMs} ms of ${JSON.stringify(text)}`);
-        }, ack.timeoutMs);
-        entry = { command, timer };
-        pending.set(key, [...(pending.get(key) ?? []), entry]);
-      }
-      link.write(text + ending).catch((error: unknown) => {
-        // Not sent: no acknowledgement to wait for, one alert only.
-        if (entry) settle(entry);
-        alert('shutter-not-sent', command, `${JSON.stringify(text)} not sent: ${error instanceof Error ? error.message : String(error)}`);
+          waiters.delete(check);
+          resolve(unconfirmedCloses());
+        }, timeoutMs);
+        waiters.add(check);
+        check();
       });
     },
     close() {
       subscription.unsubscribe();
+      statusSubscription.unsubscribe();
       finish();
     },
   };

@@ -4,7 +4,7 @@
  * it on virtual time). For full speed without a scheduler, step it directly (run-stepped.ts).
  */
 import { asyncScheduler, BehaviorSubject, Observable, Subject, type SchedulerLike } from 'rxjs';
-import type { Reading, ReadingSource, ShutterAck, ShutterCommand, ShutterSink, SourceStatus } from '../src/pipeline/types.ts';
+import type { Reading, ReadingSource, ShutterAck, ShutterCommand, ShutterFault, ShutterSink, SourceStatus } from '../src/pipeline/types.ts';
 import type { VirtualChamber } from './virtual-chamber.ts';
 
 export interface ChamberSourceOptions {
@@ -22,6 +22,8 @@ export function createChamberSource(chamber: VirtualChamber, options: ChamberSou
   const periodMs = options.periodMs ?? 20;
   const status = new BehaviorSubject<SourceStatus>({ state: 'connected', detail: `virtual chamber at ${speed}× real time` });
   const acks = new Subject<ShutterAck>();
+  // In process, a command always reaches the chamber: a refused one is simply never acknowledged.
+  const faults = new Subject<ShutterFault>();
   let stopped = false;
   const readings = new Observable<Reading>((subscriber) => {
     const startMs = scheduler.now();
@@ -42,6 +44,7 @@ export function createChamberSource(chamber: VirtualChamber, options: ChamberSou
     readings,
     status,
     acks,
+    faults,
     send(command: ShutterCommand) {
       chamber.command({ ...command, timeS: Math.max(command.timeS, chamber.timeS) });
     },
@@ -50,6 +53,7 @@ export function createChamberSource(chamber: VirtualChamber, options: ChamberSou
       status.next({ state: 'lost', closedByUs: true, detail: 'stopped' });
       status.complete();
       acks.complete();
+      faults.complete();
     },
   };
 }

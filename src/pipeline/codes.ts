@@ -20,7 +20,11 @@ export type AlertCode =
   | 'operator-cut'
   | 'operator-skip'
   | 'operator-abort'
-  | 'source-lost';
+  | 'close-unconfirmed'
+  | 'close-confirmed'
+  | 'operator-confirmed-close'
+  | 'source-lost'
+  | 'source-restored';
 
 export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: string }>> = {
   'fault-not-a-number': { severity: 'warning', sentence: 'A reading was not a number and was not used.' },
@@ -41,5 +45,12 @@ export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: 
   'operator-cut': { severity: 'info', sentence: 'The operator cut the layer.' },
   'operator-skip': { severity: 'warning', sentence: 'The operator skipped the layer.' },
   'operator-abort': { severity: 'critical', sentence: 'The operator aborted the run; every shutter was asked to close.' },
+  'close-unconfirmed': {
+    severity: 'critical',
+    sentence: 'A shutter’s close is not confirmed: the next layer waits (the close is being re-sent). Check the shutter by hand; resume once it is shut.',
+  },
+  'close-confirmed': { severity: 'info', sentence: 'The shutter’s close is confirmed: the run goes on.' },
+  'operator-confirmed-close': { severity: 'warning', sentence: 'The operator resumed with a shutter’s close unconfirmed, vouching that it is shut.' },
   'source-lost': { severity: 'critical', sentence: 'An instrument connection was lost; fringe is reconnecting.' },
+  'source-restored': { severity: 'info', sentence: 'An instrument connection is back.' },
 };

@@ -13,6 +13,12 @@
  *
  * Guard rails force a cut at a thickness or time ceiling; a silent monitor hands the layer to the
  * crystal, a silent crystal to the clock, each with an alert.
+ *
+ * Shutters: a close that has not been confirmed (acknowledged, or written where the chamber
+ * acknowledges nothing; with `confirmCloses`, every close until then; without, a close the shutter
+ * output reported failing) keeps the next layer from opening and the run from completing: the
+ * controller waits (`awaiting-close`) and alerts, and goes on when the confirmation comes or the
+ * operator, having checked the shutter by hand, resumes.
  */
 import { scaledDispersion } from '../model/optics/dispersion.ts';
 import { stackThicknessNm, type CrystalLayer } from '../model/crystal/index.ts';
@@ -24,7 +30,7 @@ import { DEFAULT_PRIORS } from '../model/plan/precision.ts';
 import type { CutMode, ResolvedRecipe } from '../model/plan/recipe.ts';
 import { ALERTS, type AlertCode } from './codes.ts';
 import type { CutReason, RunEvent } from './events.ts';
-import type { FaultCode, OperatorCommand, PipelineInput, Reading, ShutterCommand } from './types.ts';
+import type { FaultCode, LinkChange, OperatorCommand, PipelineInput, Reading, ShutterAck, ShutterCommand, ShutterFault } from './types.ts';
 
 export interface ControllerOptions {
   /** Consecutive readings beyond the trigger level before a level cut (default 3). */
@@ -76,6 +82,12 @@ export interface ControllerOptions {
   indexSigma: number;
   /** With the fit: after each layer, refit the chip's layers together (default true). */
   chipRefit: boolean;
+  /**
+   * Every close counts as unconfirmed until its `shutter-ack` arrives (default false: only a
+   * close the shutter output reports failing does). A live run sets it: its shutter output
+   * confirms every command; an in-process chamber or a test need not.
+   */
+  confirmCloses: boolean;
 }
 
 export const DEFAULT_CONTROLLER_OPTIONS: ControllerOptions = {
@@ -94,6 +106,7 @@ export const DEFAULT_CONTROLLER_OPTIONS: ControllerOptions = {
   estimator: 'plain',
   indexSigma: DEFAULT_INDEX_SIGMA,
   chipRefit: true,
+  confirmCloses: false,
 };
 
 /**
@@ -160,7 +173,8 @@ const CALIBRATED_RATE_SIGMA = 0.005;
  */
 const CLOCK_START_SIGMA_NM = 0.5;
 
-export type Phase = 'ready' | 'depositing' | 'closing' | 'holding' | 'finished' | 'aborted';
+/** `awaiting-close`: a layer has ended and the next (or the run's end) waits for a shutter's close to be confirmed. */
+export type Phase = 'ready' | 'depositing' | 'closing' | 'holding' | 'awaiting-close' | 'finished' | 'aborted';
 
 interface OpticalTrack {
   readonly lastS: number;
@@ -246,6 +260,10 @@ export interface ControllerState {
   readonly fit: FitRun | null;
   /** Part thickness every layer is to reach: the design's, or as compensation re-optimised them. */
   readonly targetsNm: readonly number[];
+  /** Sources whose last close is not confirmed. */
+  readonly unconfirmedCloses: readonly string[];
+  /** Instrument links lost and not yet back. */
+  readonly linksDown: readonly string[];
 }
 
 interface FitRun {
@@ -311,6 +329,8 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       layerCrystalNm: Number.NaN,
       fit: null,
       targetsNm: recipe.layers.map((l) => l.targetNm),
+      unconfirmedCloses: [],
+      linksDown: [],
     };
   }
 
@@ -328,7 +348,11 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       case 'operator':
         return operator(s, input, events);
       case 'shutter-ack':
-        return { state: s, events: NO_EVENTS };
+        return onShutterAck(s, input, events);
+      case 'shutter-fault':
+        return { state: onShutterFault(s, input, events), events };
+      case 'link':
+        return { state: onLink(s, input, events), events };
       case 'tick':
         if (!(input.timeS >= s.nowS)) return { state: s, events: NO_EVENTS };
         s = withReading(s, input.timeS, s.lastOpticalS, s.lastCrystalS, s.optical, s.crystal, s.layerCrystalNm);
@@ -510,7 +534,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
   function cut(s: ControllerState, events: RunEvent[], reason: CutReason, estimatedNm: number, delayAllowanceNm: number, recordedNm = estimatedNm): ControllerState {
     const layer = layerRecipe(s);
     events.push({ type: 'cut', timeS: s.nowS, layer: layer.number, reason, estimatedNm, delayAllowanceNm, signal: s.optical.value });
-    events.push({ type: 'shutter', timeS: s.nowS, command: shutter('close', layer.materialName, layer.number, s.nowS) });
+    s = sendShutter(s, events, 'close', layer.materialName, layer.number, s.nowS);
     return { ...s, phase: 'closing', cutAtS: s.nowS, achievedNm: [...s.achievedNm, recordedNm] };
   }
 
@@ -570,10 +594,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       skipped,
     });
     let next: ControllerState = s;
-    if (s.index + 1 >= recipe.layers.length) {
-      events.push({ type: 'run-finished', timeS: s.nowS, outcome: 'complete' });
-      return { ...next, phase: 'finished' };
-    }
+    if (s.index + 1 >= recipe.layers.length) return proceed(next, events);
     if (compensation && recipe.design.band && s.index + 1 < recipe.layers.length) next = compensateRest(next, events);
     if (opts.replan || compensation) {
       const stack = resolvedStack(next);
@@ -581,7 +602,82 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       events.push({ type: 'replanned', timeS: s.nowS, fromLayer: plan.fromLayer, triggerSignals: plan.layers.map((l) => l.triggerSignal) });
       next = { ...next, plan };
     }
-    return startLayer({ ...next, index: s.index + 1 }, events);
+    return proceed({ ...next, index: s.index + 1 }, events);
+  }
+
+  /**
+   * After a layer: the next one starts (or, after the last, the run completes) once every close
+   * is confirmed; until then the run waits, alerting once.
+   */
+  function proceed(s: ControllerState, events: RunEvent[]): ControllerState {
+    if (s.unconfirmedCloses.length > 0) {
+      if (s.phase === 'awaiting-close') return s;
+      const names = s.unconfirmedCloses.join(', ');
+      s = { ...s, phase: 'awaiting-close' };
+      return alert(s, events, 'close-unconfirmed', `${ALERTS['close-unconfirmed'].sentence} (${names})`);
+    }
+    // The layer at `index` has been cut (its estimate recorded): the run is over.
+    if (s.achievedNm.length > s.index) {
+      events.push({ type: 'run-finished', timeS: s.nowS, outcome: 'complete' });
+      return { ...s, phase: 'finished' };
+    }
+    return startLayer(s, events);
+  }
+
+  /** A shutter command, and what it does to the closes awaiting confirmation (the newest command for a shutter replaces an older close). */
+  function sendShutter(s: ControllerState, events: RunEvent[], action: 'open' | 'close', source: string, layer: number, timeS: number): ControllerState {
+    events.push({ type: 'shutter', timeS, command: shutter(action, source, layer, timeS) });
+    const others = s.unconfirmedCloses.filter((name) => name !== source);
+    const unconfirmedCloses = action === 'close' && opts.confirmCloses ? [...others, source] : others;
+    return unconfirmedCloses.length === s.unconfirmedCloses.length && unconfirmedCloses.every((n, i) => n === s.unconfirmedCloses[i]) ? s : { ...s, unconfirmedCloses };
+  }
+
+  function onShutterAck(s: ControllerState, ack: ShutterAck, events: RunEvent[]): StepResult {
+    if (ack.action !== 'close' || !s.unconfirmedCloses.includes(ack.source)) return { state: s, events: NO_EVENTS };
+    let next: ControllerState = { ...s, nowS: Math.max(s.nowS, ack.timeS), unconfirmedCloses: s.unconfirmedCloses.filter((n) => n !== ack.source) };
+    if (next.phase === 'awaiting-close' && next.unconfirmedCloses.length === 0) {
+      next = alert(next, events, 'close-confirmed', `${ALERTS['close-confirmed'].sentence} (${ack.source})`);
+      next = proceed(next, events);
+    }
+    return { state: next, events: events.length === 0 ? NO_EVENTS : events };
+  }
+
+  /**
+   * A command that may not have taken effect. A close stays unconfirmed until acknowledged (the
+   * output re-sends it); an open of the layer in progress holds the layer, its shutter asked to
+   * close, since the source may be shut while the clock runs. Alerted at the first failure and
+   * when the output gives up, the attempts counted.
+   */
+  function onShutterFault(s: ControllerState, fault: ShutterFault, events: RunEvent[]): ControllerState {
+    let next: ControllerState = { ...s, nowS: Number.isFinite(s.nowS) ? Math.max(s.nowS, fault.timeS) : fault.timeS };
+    if (fault.attempt === 1 || fault.final) {
+      const tries = fault.attempt > 1 ? `, attempt ${fault.attempt}${fault.final ? ', given up' : ''}` : fault.final ? '' : ', re-sending';
+      next = alert(next, events, fault.code, `${ALERTS[fault.code].sentence} (${fault.source} ${fault.action}${tries}: ${fault.detail})`);
+    }
+    if (fault.action === 'close') {
+      if (!next.unconfirmedCloses.includes(fault.source)) next = { ...next, unconfirmedCloses: [...next.unconfirmedCloses, fault.source] };
+      return next;
+    }
+    const layer = recipe.layers[next.index];
+    if (fault.final && next.phase === 'depositing' && layer?.materialName === fault.source && layer.number === fault.layer) {
+      events.push({ type: 'held', timeS: next.nowS, layer: layer.number });
+      next = sendShutter(next, events, 'close', layer.materialName, layer.number, next.nowS);
+      next = { ...next, phase: 'holding', phaseBeforeHold: 'depositing' };
+    }
+    return next;
+  }
+
+  function onLink(s: ControllerState, change: LinkChange, events: RunEvent[]): ControllerState {
+    const down = s.linksDown.includes(change.link);
+    if ((change.state === 'lost') === down) return s;
+    let next: ControllerState = {
+      ...s,
+      nowS: Number.isFinite(s.nowS) ? Math.max(s.nowS, change.timeS) : change.timeS,
+      linksDown: down ? s.linksDown.filter((l) => l !== change.link) : [...s.linksDown, change.link],
+    };
+    const code = down ? 'source-restored' : 'source-lost';
+    next = alert(next, events, code, `${ALERTS[code].sentence} (${change.link}: ${change.detail})`);
+    return next;
   }
 
   /**
@@ -775,13 +871,19 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       case 'hold':
         if (s.phase !== 'depositing') return { state: s, events: NO_EVENTS };
         events.push({ type: 'held', timeS, layer: layerRecipe(s).number });
-        events.push({ type: 'shutter', timeS, command: shutter('close', layerRecipe(s).materialName, layerRecipe(s).number, timeS) });
+        next = sendShutter(next, events, 'close', layerRecipe(s).materialName, layerRecipe(s).number, timeS);
         next = { ...next, phase: 'holding', phaseBeforeHold: s.phase };
         break;
       case 'resume':
+        if (s.phase === 'awaiting-close') {
+          // The operator has checked the shutters by hand and vouches for them.
+          next = alert(next, events, 'operator-confirmed-close', `${ALERTS['operator-confirmed-close'].sentence} (${s.unconfirmedCloses.join(', ')})`);
+          next = proceed({ ...next, unconfirmedCloses: [] }, events);
+          break;
+        }
         if (s.phase !== 'holding') return { state: s, events: NO_EVENTS };
         events.push({ type: 'resumed', timeS, layer: layerRecipe(s).number });
-        events.push({ type: 'shutter', timeS, command: shutter('open', layerRecipe(s).materialName, layerRecipe(s).number, timeS) });
+        next = sendShutter(next, events, 'open', layerRecipe(s).materialName, layerRecipe(s).number, timeS);
         next = { ...next, phase: 'depositing' };
         break;
       case 'cut-now': {
@@ -796,7 +898,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         if (s.phase !== 'depositing' && s.phase !== 'holding') return { state: s, events: NO_EVENTS };
         next = alert(next, events, 'operator-skip', ALERTS['operator-skip'].sentence);
         const layer = layerRecipe(s);
-        events.push({ type: 'shutter', timeS, command: shutter('close', layer.materialName, layer.number, timeS) });
+        next = sendShutter(next, events, 'close', layer.materialName, layer.number, timeS);
         next = finishLayer({ ...next, achievedNm: [...s.achievedNm, Number.isFinite(s.crystal.partNm) ? s.crystal.partNm : 0] }, events, true);
         break;
       }
@@ -804,7 +906,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         if (s.phase === 'finished' || s.phase === 'aborted') return { state: s, events: NO_EVENTS };
         next = alert(next, events, 'operator-abort', ALERTS['operator-abort'].sentence);
         for (const source of new Set(recipe.layers.map((l) => l.materialName))) {
-          events.push({ type: 'shutter', timeS, command: shutter('close', source, layerRecipe(s).number, timeS) });
+          next = sendShutter(next, events, 'close', source, layerRecipe(s).number, timeS);
         }
         events.push({ type: 'run-finished', timeS, outcome: 'aborted' });
         next = { ...next, phase: 'aborted' };
@@ -880,6 +982,8 @@ function withReading(
     layerCrystalNm,
     fit: s.fit,
     targetsNm: s.targetsNm,
+    unconfirmedCloses: s.unconfirmedCloses,
+    linksDown: s.linksDown,
   };
 }
 

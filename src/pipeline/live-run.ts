@@ -1,16 +1,18 @@
 /**
- * A live run: the instruments' readings, the shutters' acknowledgements and the operator's
- * commands merged onto one run clock, ticks added through silence, the controller deciding, and
- * every shutter command sent the moment it is decided (before anything is written down).
+ * A live run: the instruments' readings, the links' losses and returns, the shutters'
+ * confirmations and failures and the operator's commands merged onto one run clock, ticks added
+ * through silence, the controller deciding, and every shutter command sent the moment it is
+ * decided (before anything is written down).
  */
-import { asyncScheduler, map, merge, share, tap, type Observable, type SchedulerLike } from 'rxjs';
+import { asyncScheduler, distinctUntilChanged, filter, map, merge, share, tap, type Observable, type SchedulerLike } from 'rxjs';
 import type { Controller, ControllerState } from './controller.ts';
 import { decide, toRunClock, withTicks, type Decision, type RunClock } from './operators/index.ts';
 import type { OperatorAction, PipelineInput, ReadingSource, ShutterSink } from './types.ts';
 
 export interface LiveRunOptions {
   controller: Controller;
-  sources: readonly ReadingSource[];
+  /** The instruments, by their id in the chamber file. */
+  sources: ReadonlyMap<string, ReadingSource>;
   shutter: ShutterSink;
   /** What the operator asks for; the wiring stamps the run time. */
   commands: Observable<{ action: OperatorAction; alertId?: string }>;
@@ -42,25 +44,39 @@ export function createLiveRun(options: LiveRunOptions): LiveRun {
   let lastRunS = resumedAt;
   let lastArrivalS = clock();
 
-  const readings = merge(...options.sources.map((s) => s.readings)).pipe(toRunClock(runClock, startArrivalS, options.instrumentOriginS));
-  const acks = options.shutter.acks.pipe(map((ack): PipelineInput => ({ ...ack, timeS: Math.max(lastRunS, 0) })));
+  const sources = [...options.sources];
+  const readings = merge(...sources.map(([, s]) => s.readings)).pipe(toRunClock(runClock, startArrivalS, options.instrumentOriginS));
+  // Inputs from outside the instruments' lines happen now on the run clock.
+  const nowInput = <T extends PipelineInput>(input: T): T => ({ ...input, timeS: Math.max(lastRunS, 0) });
+  const acks = options.shutter.acks.pipe(map(nowInput));
+  const faults = options.shutter.faults.pipe(map(nowInput));
+  // A link we did not close going away, and its return; staleness is the controller's own to see.
+  const links = sources.map(([id, source]) =>
+    source.status.pipe(
+      filter((s) => (s.state === 'lost' && !s.closedByUs) || s.state === 'connected'),
+      map((s): PipelineInput => ({ kind: 'link', link: id, state: s.state === 'lost' ? 'lost' : 'connected', detail: s.detail ?? '', timeS: 0 })),
+      distinctUntilChanged((a, b) => a.kind === 'link' && b.kind === 'link' && a.state === b.state),
+      map(nowInput),
+    ),
+  );
   const commands = options.commands.pipe(
     map((c): PipelineInput => ({ kind: 'operator', action: c.action, ...(c.alertId !== undefined ? { alertId: c.alertId } : {}), timeS: lastRunS })),
   );
   // Silence advances the run clock with the host's, from the last input.
   const tickTime = (): number => lastRunS + (clock() - lastArrivalS);
 
-  const decisions = merge(readings, acks, commands).pipe(
-    tap((input) => {
-      if (input.kind === 'reading') {
-        lastRunS = Math.max(lastRunS, input.timeS);
-        lastArrivalS = clock();
-      }
-    }),
+  const decisions = merge(readings, acks, faults, ...links, commands).pipe(
     withTicks(options.tickMs ?? 500, tickTime, options.scheduler ?? asyncScheduler),
     decide(options.controller, options.resumeFrom),
     tap((decision) => {
       for (const event of decision.events) if (event.type === 'shutter') options.shutter.send(event.command);
+      // The run clock moves on with the readings the controller took (a reading it refused, a
+      // time far ahead say, must not drag the ticks and the acknowledgements along).
+      const input = decision.input;
+      if (input.kind === 'reading' && decision.state.nowS === input.timeS) {
+        lastRunS = Math.max(lastRunS, input.timeS);
+        lastArrivalS = clock();
+      }
     }),
     share(),
   );

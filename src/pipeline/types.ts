@@ -53,11 +53,46 @@ export interface ShutterCommand {
   readonly timeS: number;
 }
 
-/** The shutter's confirmation that it moved. */
+/**
+ * The confirmation that a shutter command took effect: the instrument's acknowledgement that the
+ * shutter moved, or, on a chamber that acknowledges nothing, the shutter output's word that the
+ * command was written (`confirmedBy: 'sent'`, the most such a chamber can tell).
+ */
 export interface ShutterAck {
   readonly kind: 'shutter-ack';
   readonly action: 'open' | 'close';
   readonly source: string;
+  readonly timeS: number;
+  /** Absent: the instrument's acknowledgement. */
+  readonly confirmedBy?: 'instrument' | 'sent';
+}
+
+/**
+ * A shutter command that may not have taken effect, from the shutter output: not sent (the link
+ * is down, or no command is configured for the source) or not acknowledged in time. A close is
+ * re-sent until confirmed, so one close can report several attempts; an open is never re-sent.
+ */
+export interface ShutterFault {
+  readonly kind: 'shutter-fault';
+  readonly code: 'shutter-not-sent' | 'shutter-no-ack';
+  readonly action: 'open' | 'close';
+  readonly source: string;
+  readonly layer: number;
+  /** 1 for the command's first failure, then one more for each failed re-send. */
+  readonly attempt: number;
+  /** True when the output will not try this command again (an open; a close after its last attempt). */
+  readonly final: boolean;
+  readonly detail: string;
+  readonly timeS: number;
+}
+
+/** An instrument link that went down or came back (from its status), so that a loss is alerted and journalled. */
+export interface LinkChange {
+  readonly kind: 'link';
+  /** The instrument's id in the chamber file. */
+  readonly link: string;
+  readonly state: 'lost' | 'connected';
+  readonly detail: string;
   readonly timeS: number;
 }
 
@@ -82,7 +117,7 @@ export interface Tick {
 }
 
 /** Anything the decision reducer consumes. */
-export type PipelineInput = Reading | Fault | ShutterAck | OperatorCommand | Tick;
+export type PipelineInput = Reading | Fault | ShutterAck | ShutterFault | LinkChange | OperatorCommand | Tick;
 
 /** A source's health. `lost` carries whether we closed it or it went away. */
 export type SourceStatus =
@@ -95,8 +130,12 @@ export interface ReadingSource {
   readonly status: Observable<SourceStatus>;
 }
 
-/** Where shutter commands go; acknowledgements come back when the hardware gives them. */
+/**
+ * Where shutter commands go. Every command ends, for the controller, in confirmations on `acks`
+ * or failures on `faults`; `send` never blocks and never throws.
+ */
 export interface ShutterSink {
   send(command: ShutterCommand): void;
   readonly acks: Observable<ShutterAck>;
+  readonly faults: Observable<ShutterFault>;
 }

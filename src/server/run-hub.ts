@@ -501,7 +501,7 @@ export function createRunHub(options: RunHubOptions): RunHub {
 
 /** Layers whose estimate is final: the finished ones (the current one once the run ended). */
 function finishedLayers(s: ControllerState): number {
-  if (s.phase === 'finished') return s.achievedNm.length;
+  if (s.phase === 'finished' || s.phase === 'awaiting-close') return s.achievedNm.length;
   return Math.min(s.index, s.achievedNm.length);
 }
 
@@ -510,6 +510,7 @@ const PHASE_WORDS: Record<ControllerState['phase'], string> = {
   depositing: 'depositing',
   closing: 'closing the shutter',
   holding: 'on hold',
+  'awaiting-close': 'waiting for a shutter to close',
   finished: 'finished',
   aborted: 'aborted',
 };

@@ -1,11 +1,12 @@
 // The shutter output over a serial port (MockBinding records every byte written): the configured
 // command bytes, acknowledgements matched to commands, `shutter-no-ack` when none comes within
-// the timeout (and not when one does), `shutter-not-sent` when a command cannot go out.
+// the timeout (and not when one does), `shutter-not-sent` when a command cannot go out, and a
+// close re-sent until it is confirmed.
 import { afterEach, beforeEach, describe, expect, it, vi } from 'vitest';
 import { createLineSource, type LineSource } from '../../drivers/line-source.ts';
-import { createShutterOutput, type ShutterAlert, type ShutterOutput, type ShutterOutputOptions } from '../../drivers/shutter-output.ts';
+import { createShutterOutput, type ShutterOutput, type ShutterOutputOptions } from '../../drivers/shutter-output.ts';
 import { createSerialTransport } from '../../drivers/transport.ts';
-import type { ShutterAck, ShutterCommand, SourceStatus } from '../../src/pipeline/types.ts';
+import type { ShutterAck, ShutterCommand, ShutterFault, SourceStatus } from '../../src/pipeline/types.ts';
 import { createMockSerial, settle, until, type MockSerial } from './mock-serial.ts';
 
 let serial: MockSerial;
@@ -34,9 +35,9 @@ afterEach(async () => {
 function output(options: Omit<ShutterOutputOptions, 'link'> = {}) {
   const shutter = createShutterOutput({ link: source, ...options });
   const acks: ShutterAck[] = [];
-  const alerts: ShutterAlert[] = [];
+  const alerts: ShutterFault[] = [];
   shutter.acks.subscribe((a) => acks.push(a));
-  shutter.alerts.subscribe((a) => alerts.push(a));
+  shutter.faults.subscribe((a) => alerts.push(a));
   return { shutter, acks, alerts };
 }
 
@@ -48,13 +49,18 @@ async function written(): Promise<string> {
 }
 
 describe('createShutterOutput', () => {
-  it("writes fringe's commands by default", async () => {
-    const { shutter, alerts } = output();
-    shutter.send(command('open', 'SiO2', 1));
-    shutter.send(command('close', 'SiO2', 1));
-    shutter.send(command('open', 'Ta2O5', 2));
+  it("writes fringe's commands by default, each confirmed once written when no acknowledgement is configured", async () => {
+    const { shutter, acks, alerts } = output();
+    shutter.send(command('open', 'SiO2', 1, 1));
+    shutter.send(command('close', 'SiO2', 1, 2));
+    shutter.send(command('open', 'Ta2O5', 2, 3));
     expect(await written()).toBe('SHUTTER SiO2 OPEN 1\nSHUTTER SiO2 CLOSE 1\nSHUTTER Ta2O5 OPEN 2\n');
-    // No acknowledgement configured: nothing is waited for.
+    expect(acks).toEqual([
+      { kind: 'shutter-ack', action: 'open', source: 'SiO2', timeS: 1, confirmedBy: 'sent' },
+      { kind: 'shutter-ack', action: 'close', source: 'SiO2', timeS: 2, confirmedBy: 'sent' },
+      { kind: 'shutter-ack', action: 'open', source: 'Ta2O5', timeS: 3, confirmedBy: 'sent' },
+    ]);
+    expect(shutter.unconfirmedCloses()).toEqual([]);
     await vi.advanceTimersByTimeAsync(60_000);
     expect(alerts).toEqual([]);
   });
@@ -73,21 +79,62 @@ describe('createShutterOutput', () => {
     expect(await written()).toBe('S2=0 ;L7\r\nCLOSE SiO2\r\nSHUTTER SiO2 OPEN 9\r\n');
   });
 
-  it('raises shutter-no-ack when no acknowledgement comes within the timeout', async () => {
+  it('raises shutter-no-ack when no acknowledgement comes within the timeout, and never re-sends an open', async () => {
     const { shutter, acks, alerts } = output({ ack: { timeoutMs: 250 } });
-    shutter.send(command('close', 'SiO2', 4, 81.25));
+    shutter.send(command('open', 'SiO2', 4, 81.25));
     await vi.advanceTimersByTimeAsync(249);
     expect(alerts).toEqual([]);
     await vi.advanceTimersByTimeAsync(1);
     expect(alerts).toEqual([
-      { kind: 'shutter-alert', code: 'shutter-no-ack', source: 'SiO2', action: 'close', layer: 4, timeS: 81.25, detail: 'no acknowledgement within 250 ms of "SHUTTER SiO2 CLOSE 4"' },
+      { kind: 'shutter-fault', code: 'shutter-no-ack', source: 'SiO2', action: 'open', layer: 4, attempt: 1, final: true, timeS: 81.25, detail: 'no acknowledgement within 250 ms of "SHUTTER SiO2 OPEN 4"' },
     ]);
     expect(acks).toEqual([]);
     // A late acknowledgement is still reported, and does not raise a second alert.
-    serial.last().emitData('ACK SiO2 CLOSE 81.9\n');
+    serial.last().emitData('ACK SiO2 OPEN 81.9\n');
     await until(() => acks.length === 1, 'the late ack');
     await vi.advanceTimersByTimeAsync(1000);
     expect(alerts).toHaveLength(1);
+    expect(await written()).toBe('SHUTTER SiO2 OPEN 4\n');
+  });
+
+  it('re-sends an unacknowledged close at each deadline, up to closeAttempts writes, then gives up and says so', async () => {
+    const { shutter, acks, alerts } = output({ ack: { timeoutMs: 250 }, closeAttempts: 3 });
+    shutter.send(command('close', 'SiO2', 4, 81.25));
+    await vi.advanceTimersByTimeAsync(250);
+    expect(await written()).toBe('SHUTTER SiO2 CLOSE 4\n'.repeat(2));
+    await vi.advanceTimersByTimeAsync(250);
+    expect(await written()).toBe('SHUTTER SiO2 CLOSE 4\n'.repeat(3));
+    expect(shutter.unconfirmedCloses()).toEqual(['SiO2']);
+    await vi.advanceTimersByTimeAsync(250);
+    expect(alerts.map((a) => [a.code, a.attempt, a.final])).toEqual([
+      ['shutter-no-ack', 1, false],
+      ['shutter-no-ack', 2, false],
+      ['shutter-no-ack', 3, true],
+    ]);
+    expect(alerts[2]?.detail).toBe('no acknowledgement within 250 ms of "SHUTTER SiO2 CLOSE 4" (write 3 of 3)');
+    // Given up on, it stays unconfirmed: settled() reports it at once rather than waiting.
+    await vi.advanceTimersByTimeAsync(5000);
+    expect(await written()).toBe('SHUTTER SiO2 CLOSE 4\n'.repeat(3));
+    expect(shutter.unconfirmedCloses()).toEqual(['SiO2']);
+    expect(await shutter.settled(10_000)).toEqual(['SiO2']);
+    // An acknowledgement that comes after all confirms it.
+    serial.last().emitData('ACK SiO2 CLOSE 90.5\n');
+    await until(() => acks.length === 1, 'the late ack');
+    expect(acks[0]).toEqual({ kind: 'shutter-ack', action: 'close', source: 'SiO2', timeS: 90.5 });
+    expect(shutter.unconfirmedCloses()).toEqual([]);
+  });
+
+  it('stops re-sending a close once it is acknowledged, and settled() resolves with nothing open', async () => {
+    const { shutter, acks, alerts } = output({ ack: { timeoutMs: 250 } });
+    shutter.send(command('close', 'SiO2', 4, 81.25));
+    const settled = shutter.settled(10_000);
+    await vi.advanceTimersByTimeAsync(260);
+    serial.last().emitData('ACK SiO2 CLOSE 81.6\n');
+    await until(() => acks.length === 1, 'the ack of the re-send');
+    expect(await settled).toEqual([]);
+    await vi.advanceTimersByTimeAsync(5000);
+    expect(await written()).toBe('SHUTTER SiO2 CLOSE 4\n'.repeat(2));
+    expect(alerts.map((a) => a.code)).toEqual(['shutter-no-ack']);
   });
 
   it('does not alert when the acknowledgement comes in time, and takes its time from the line', async () => {
@@ -139,18 +186,39 @@ describe('createShutterOutput', () => {
     expect(alerts.map((a) => a.source)).toEqual(['Ta2O5']);
   });
 
-  it('raises shutter-not-sent, once and without waiting, when the port is down', async () => {
-    const { shutter, alerts } = output({ ack: { timeoutMs: 100 } });
-    serial.refuseOpens(100);
+  it('raises shutter-not-sent without waiting when the port is down, and sends the close when it is back', async () => {
+    const { shutter, acks, alerts } = output({ ack: { timeoutMs: 100 } });
+    serial.refuseOpens(3);
     serial.last().unplug();
     await until(() => statuses.at(-1)?.state === 'lost', 'lost');
+    const unplugged = serial.opened.length;
     shutter.send(command('close', 'SiO2', 4, 55));
+    shutter.send(command('open', 'Ta2O5', 5, 56));
     await settle();
     expect(alerts).toEqual([
-      { kind: 'shutter-alert', code: 'shutter-not-sent', source: 'SiO2', action: 'close', layer: 4, timeS: 55, detail: '"SHUTTER SiO2 CLOSE 4" not sent: serial /dev/ROBOT at 9600 Bd is not connected' },
+      { kind: 'shutter-fault', code: 'shutter-not-sent', source: 'SiO2', action: 'close', layer: 4, attempt: 1, final: false, timeS: 55, detail: '"SHUTTER SiO2 CLOSE 4" not sent: serial /dev/ROBOT at 9600 Bd is not connected' },
+      { kind: 'shutter-fault', code: 'shutter-not-sent', source: 'Ta2O5', action: 'open', layer: 5, attempt: 1, final: true, timeS: 56, detail: '"SHUTTER Ta2O5 OPEN 5" not sent: serial /dev/ROBOT at 9600 Bd is not connected' },
     ]);
+    expect(shutter.unconfirmedCloses()).toEqual(['SiO2']);
+    // The port comes back after three refused opens: the close goes out on it, the open does not.
+    for (let ms = 0; ms < 5000 && statuses.at(-1)?.state !== 'connected'; ms += 20) await vi.advanceTimersByTimeAsync(20);
+    expect(statuses.at(-1)?.state).toBe('connected');
+    expect(serial.opened.length).toBeGreaterThan(unplugged);
+    expect(await written()).toBe('SHUTTER SiO2 CLOSE 4\n');
+    serial.last().emitData('ACK SiO2 CLOSE 58.5\n');
+    await until(() => acks.length === 1, 'the ack');
+    expect(shutter.unconfirmedCloses()).toEqual([]);
+    expect(alerts).toHaveLength(2);
+  });
+
+  it('lets a newer command for the same shutter replace a close still on its way', async () => {
+    const { shutter, alerts } = output({ ack: { timeoutMs: 100 } });
+    shutter.send(command('close', 'SiO2', 4, 10));
+    shutter.send(command('open', 'SiO2', 5, 11));
+    expect(shutter.unconfirmedCloses()).toEqual([]);
     await vi.advanceTimersByTimeAsync(1000);
-    expect(alerts).toHaveLength(1);
+    expect(await written()).toBe('SHUTTER SiO2 CLOSE 4\nSHUTTER SiO2 OPEN 5\n');
+    expect(alerts.map((a) => `${a.code} ${a.action} ${a.final}`)).toEqual(['shutter-no-ack open true']);
   });
 
   it('refuses a source with no command when sources are listed without a default', async () => {
@@ -170,7 +238,7 @@ describe('createShutterOutput', () => {
     expect(alerts[0]).toMatchObject({ code: 'shutter-not-sent' });
   });
 
-  it('completes acks and alerts when closed, and when the link closes', async () => {
+  it('completes acks and faults when closed, and when the link closes', async () => {
     let closed: ShutterOutput;
     {
       const { shutter } = output({ ack: {} });
@@ -178,7 +246,7 @@ describe('createShutterOutput', () => {
     }
     let done = 0;
     closed.acks.subscribe({ complete: () => (done += 1) });
-    closed.alerts.subscribe({ complete: () => (done += 1) });
+    closed.faults.subscribe({ complete: () => (done += 1) });
     closed.close();
     expect(done).toBe(2);
 

@@ -5,9 +5,9 @@ import { createServer, type Server, type Socket } from 'node:net';
 import type { AddressInfo } from 'node:net';
 import { afterEach, describe, expect, it } from 'vitest';
 import { createLineSource, type LineSource } from '../../drivers/line-source.ts';
-import { createShutterOutput, type ShutterAlert } from '../../drivers/shutter-output.ts';
+import { createShutterOutput } from '../../drivers/shutter-output.ts';
 import { createTcpTransport } from '../../drivers/transport.ts';
-import type { Fault, Reading, ShutterAck, SourceStatus } from '../../src/pipeline/types.ts';
+import type { Fault, Reading, ShutterAck, ShutterFault, SourceStatus } from '../../src/pipeline/types.ts';
 
 /** A test instrument: records what it received, and can speak and hang up. */
 interface FakeInstrument {
@@ -157,9 +157,9 @@ describe('createLineSource over TCP', () => {
     cleanups.push(() => source.close());
     const shutter = createShutterOutput({ link: source, ack: { timeoutMs: 300 } });
     const acks: ShutterAck[] = [];
-    const alerts: ShutterAlert[] = [];
+    const faults: ShutterFault[] = [];
     shutter.acks.subscribe((a) => acks.push(a));
-    shutter.alerts.subscribe((a) => alerts.push(a));
+    shutter.faults.subscribe((f) => faults.push(f));
     const { readings, statuses } = watch(source);
     const socket = await instrument.nextConnection();
     await until(() => statuses.at(-1)?.state === 'connected', 'connected');
@@ -172,7 +172,7 @@ describe('createLineSource over TCP', () => {
     // The ACK line is not a reading and not a fault for the reading source.
     expect(readings).toHaveLength(1);
     await new Promise((resolve) => setTimeout(resolve, 350));
-    expect(alerts).toEqual([]);
+    expect(faults).toEqual([]);
     shutter.close();
   });
 });

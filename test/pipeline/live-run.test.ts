@@ -26,7 +26,7 @@ describe('a live run on virtual time', () => {
     const commands = new Subject<{ action: OperatorAction }>();
     const live = createLiveRun({
       controller: createController(recipe),
-      sources: [source],
+      sources: new Map([['chamber', source]]),
       shutter: source,
       commands,
       runClock: 'instrument',

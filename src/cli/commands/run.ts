@@ -12,7 +12,6 @@ import { loadRecipe } from '../../config/load-recipe.ts';
 import { journalEstimator } from '../../journal/journal-format.ts';
 import { createJournalWriter } from '../../journal/journal-writer.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
-import { ALERTS } from '../../pipeline/codes.ts';
 import { createController, type ControllerState } from '../../pipeline/controller.ts';
 import type { RunEvent } from '../../pipeline/events.ts';
 import { createLiveRun } from '../../pipeline/live-run.ts';
@@ -28,8 +27,10 @@ export const runUsage = `Usage: fringe run --chamber FILE RECIPE [options]
        fringe run --resume RUN [--chamber FILE]
 
 Runs the recipe live: reads the chamber's instruments, cuts every layer, journals everything
-to runs/<id>/. Ctrl-C aborts the run (every shutter is asked to close). fringe is process
-control, not a safety system: the manual shutter controls and interlocks stay in charge.
+to runs/<id>/. Ctrl-C aborts the run: every shutter is asked to close and fringe waits up to
+10 s for the closes to be confirmed, then says which were and which were not (a second Ctrl-C
+stops waiting). fringe is process control, not a safety system: the manual shutter controls
+and interlocks stay in charge.
 
   --chamber FILE        the chamber file: instruments, ports, line formats, shutters
   --runs DIR            where runs are kept (default: runs)
@@ -111,11 +112,13 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
   }
 
   const commands = new Subject<{ action: OperatorAction; alertId?: string }>();
-  const controller = createController(recipe, { estimator });
+  // The shutter output confirms every command (acknowledged, or written): a close unconfirmed holds the run.
+  const controller = createController(recipe, { estimator, confirmCloses: true });
+  const shutter = drivers.shutter;
   const live = createLiveRun({
     controller,
-    sources: [...drivers.sources.values()],
-    shutter: drivers.shutter,
+    sources: drivers.sources,
+    shutter,
     commands,
     runClock,
     ...(resumeFrom ? { resumeFrom } : {}),
@@ -123,15 +126,6 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
   const statusSubs = [...drivers.sources.entries()].map(([id, source]) =>
     source.status.subscribe((s) => io.err(`${id}: ${s.state}${s.detail ? ` (${s.detail})` : ''}`)),
   );
-  // The shutter output's own alerts (no acknowledgement, not sent) go into the journal beside the controller's.
-  let shutterAlerts = 0;
-  const alertSub = drivers.shutter.alerts.subscribe((a) => {
-    shutterAlerts++;
-    const code = a.code;
-    const message = `${ALERTS[code].sentence} (${a.source} ${a.action}: ${a.detail})`;
-    journal.event({ type: 'alert', timeS: a.timeS, id: `S${shutterAlerts}`, severity: 'critical', code, message, layer: null });
-    io.out(`ALERT critical ${code}: ${message}`);
-  });
 
   // The dashboard sees the live run through a hub; its commands step the controller at once.
   let lastState: ControllerState = resumeFrom ?? controller.initial();
@@ -153,34 +147,56 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
   const dashboard = hub ? await serveDashboard(hub, join(runDir, '..'), values, io) : undefined;
 
   let outcome: 'complete' | 'aborted' | undefined;
+  let stopped: string | undefined;
   let subscription: { unsubscribe(): void } | undefined;
+  let signals = 0;
+  let forceExit: (() => void) | undefined;
+  const onSignal = (): void => {
+    signals++;
+    if (signals === 1) {
+      io.err('aborting: the run stops and every shutter is asked to close (Ctrl-C again to stop waiting for the confirmations)');
+      commands.next({ action: 'abort' });
+      // Nothing decided (the run already stopped): the shutters are closed on the way out all the same.
+      endRun?.();
+    } else forceExit?.();
+  };
+  // Anything that escapes is a way out of the run too: the shutters are closed on it.
+  const onCrash = (error: unknown): void => {
+    stopped ??= `an internal error: ${error instanceof Error ? error.message : String(error)}`;
+    endRun?.();
+  };
+  let endRun: (() => void) | undefined;
+  process.on('SIGINT', onSignal);
+  process.on('SIGTERM', onSignal);
+  process.on('uncaughtException', onCrash);
+  process.on('unhandledRejection', onCrash);
   await new Promise<void>((resolve) => {
+    endRun = resolve;
     subscription = live.decisions.subscribe({
       next(decision) {
-        journal.input(decision.input);
-        hub?.feed.input(decision.input);
         lastState = decision.state;
-        for (const event of decision.events) {
-          journal.event(event);
-          hub?.feed.event(event);
-          if (event.type !== 'shutter' || event.command.action === 'close') io.out(describe(event));
-          if (event.type === 'run-finished') {
-            outcome = event.outcome;
-            resolve();
+        try {
+          journal.input(decision.input);
+          hub?.feed.input(decision.input);
+          for (const event of decision.events) {
+            journal.event(event);
+            hub?.feed.event(event);
+            if (event.type !== 'shutter' || event.command.action === 'close') io.out(describe(event));
           }
+        } catch (error) {
+          // Recording is not deciding: the run goes on, and says what it could not keep.
+          io.err(`could not record a decision: ${(error as Error).message}`);
+        }
+        if (decision.state.phase === 'finished' || decision.state.phase === 'aborted') {
+          outcome = decision.state.phase === 'finished' ? 'complete' : 'aborted';
+          resolve();
         }
       },
       error(error: unknown) {
-        io.err(`the run stopped: ${(error as Error).message}`);
+        stopped = `the controller failed: ${(error as Error).message}`;
         resolve();
       },
     });
-    const onSignal = (): void => {
-      io.err('aborting: every shutter is asked to close');
-      commands.next({ action: 'abort' });
-    };
-    process.once('SIGINT', onSignal);
-    process.once('SIGTERM', onSignal);
     // Start only when every instrument has been speaking for a second: a shutter command sent
     // before its port is open is refused, a run must not begin blind, and lines the port held
     // from before must be read out first so that run time is the instruments' time now.
@@ -191,20 +207,42 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
         io.err(resumeFrom ? 'instruments answering: resuming' : 'instruments answering: run started');
       },
       (error: unknown) => {
-        io.err((error as Error).message);
+        stopped = (error as Error).message;
         resolve();
       },
     );
   });
   subscription?.unsubscribe();
+  if (stopped !== undefined) io.err(`the run stopped: ${stopped}`);
+
+  // Every way out of a run closes the shutters: a completed run has had each close confirmed;
+  // any other ending asks every source's shutter to close again, whatever the controller sent.
+  if (outcome !== 'complete' || shutter.unconfirmedCloses().length > 0) {
+    const layer = recipe.layers[Math.min(lastState.index, recipe.layers.length - 1)]?.number ?? 1;
+    const sources = [...new Set(recipe.layers.map((l) => l.materialName))];
+    for (const source of sources) shutter.send({ kind: 'shutter', action: 'close', source, layer, timeS: lastState.nowS });
+    io.err(`every shutter (${sources.join(', ')}) is asked to close; waiting up to ${CLOSE_WAIT_S} s for the confirmations`);
+    const unconfirmed = await Promise.race([
+      shutter.settled(CLOSE_WAIT_S * 1000),
+      new Promise<string[]>((r) => (forceExit = () => r(shutter.unconfirmedCloses()))),
+    ]);
+    if (unconfirmed.length === 0) io.err(`every shutter confirmed closed (${sources.join(', ')})`);
+    else io.out(`ALERT critical close-unconfirmed: the close of ${unconfirmed.join(', ')} is NOT confirmed: close ${unconfirmed.length > 1 ? 'them' : 'it'} by hand`);
+  }
+  process.off('SIGINT', onSignal);
+  process.off('SIGTERM', onSignal);
+  process.off('uncaughtException', onCrash);
+  process.off('unhandledRejection', onCrash);
   for (const s of statusSubs) s.unsubscribe();
-  alertSub.unsubscribe();
   journal.close();
   await drivers.close();
   await dashboard?.close();
   io.err(`journal: ${runDir}`);
   return outcome === 'complete' ? 0 : 1;
 }
+
+/** How long the way out of a run waits for the shutters to confirm their closes, s. */
+const CLOSE_WAIT_S = 10;
 
 /** Resolves when every source has delivered a reading; rejects naming the silent ones after `timeoutMs`. */
 function firstReadings(sources: [string, ReadingSource][], timeoutMs: number): Promise<void> {

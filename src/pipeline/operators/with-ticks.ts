@@ -12,6 +12,8 @@ export function withTicks(periodMs: number, now: () => number, scheduler: Schedu
       let timer: Subscription | undefined;
       const arm = (): void => {
         timer?.unsubscribe();
+        // A subscriber that has ended (downstream failed on the last input or tick) gets no more ticks.
+        if (subscriber.closed) return;
         timer = scheduler.schedule(() => {
           let timeS: number;
           try {

@@ -134,7 +134,7 @@ function renderStatus() {
   let ttc = '–';
   if (s.phase === 'depositing' && s.timeToCutS !== null) ttc = fmt.clock(s.timeToCutS);
   else if (s.phase === 'closing') ttc = 'now';
-  else if (s.phase === 'holding') ttc = 'held';
+  else if (s.phase === 'holding' || s.phase === 'awaiting-close') ttc = 'held';
   setText('st-ttc', ttc);
   const soon = s.phase === 'closing' || (s.phase === 'depositing' && (s.approaching || (s.timeToCutS !== null && s.timeToCutS <= 10)));
   $('st-ttc-item').dataset.soon = String(soon);
@@ -290,7 +290,8 @@ function applicable(action, s) {
     case 'hold':
       return s.phase === 'depositing';
     case 'resume':
-      return s.phase === 'holding';
+      // Awaiting a close: resuming says the operator has checked the shutter by hand.
+      return s.phase === 'holding' || s.phase === 'awaiting-close';
     case 'cut-now':
     case 'skip-layer':
       return s.phase === 'depositing' || s.phase === 'holding';

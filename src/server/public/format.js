@@ -50,6 +50,7 @@ export const PHASE_WORDS = {
   depositing: 'Depositing',
   closing: 'Cutting',
   holding: 'On hold',
+  'awaiting-close': 'Waiting for a shutter to close',
   finished: 'Run complete',
   aborted: 'Aborted',
 };

@@ -1,7 +1,7 @@
 // The pipeline's operators on virtual time: no values, one, many, a source error, a never-ending
 // source, early unsubscribe, and a throwing callback.
 import { fileURLToPath } from 'node:url';
-import { from, NEVER, of, Subject, throwError, type Observable } from 'rxjs';
+import { concatWith, from, NEVER, of, Subject, throwError, VirtualTimeScheduler, type Observable } from 'rxjs';
 import { TestScheduler } from 'rxjs/testing';
 import { describe, expect, it } from 'vitest';
 import { loadRecipe } from '../../../src/config/load-recipe.ts';
@@ -105,5 +105,20 @@ describe('withTicks (virtual time)', () => {
         ),
       ).toBe('10ms #', undefined, new Error('clock'));
     });
+  });
+
+  it('arms no more ticks once downstream has failed on an input or on a tick', () => {
+    const throwing = { ...controller, step: (): never => {
+      throw new Error('the reducer failed');
+    } };
+    // Failing on the first input, and (no input at all) on the first tick.
+    for (const source of [of(start).pipe(concatWith(NEVER)), NEVER]) {
+      const virtual = new VirtualTimeScheduler(undefined, 1000);
+      const out = collect(source.pipe(withTicks(10, () => 1, virtual), decide(throwing)));
+      virtual.flush();
+      expect((out.error as Error).message).toBe('the reducer failed');
+      // Nothing is left scheduled: a live process would otherwise never exit.
+      expect(virtual.actions).toHaveLength(0);
+    }
   });
 });
