@@ -21,6 +21,7 @@ import { createRunHub } from '../../server/run-hub.ts';
 import { CliError, estimatorOption } from '../cli-error.ts';
 import { readRecordedRecipe, readRecordedRun } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
+import { driveRun } from '../drive-run.ts';
 import type { CommandIo } from '../command-io.ts';
 
 export const runUsage = `Usage: fringe run --chamber FILE RECIPE [options]
@@ -146,103 +147,40 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
   });
   const dashboard = hub ? await serveDashboard(hub, join(runDir, '..'), values, io) : undefined;
 
-  let outcome: 'complete' | 'aborted' | undefined;
-  let stopped: string | undefined;
-  let subscription: { unsubscribe(): void } | undefined;
-  let signals = 0;
-  let forceExit: (() => void) | undefined;
-  const onSignal = (): void => {
-    signals++;
-    if (signals === 1) {
-      io.err('aborting: the run stops and every shutter is asked to close (Ctrl-C again to stop waiting for the confirmations)');
-      commands.next({ action: 'abort' });
-      // Nothing decided (the run already stopped): the shutters are closed on the way out all the same.
-      endRun?.();
-    } else forceExit?.();
-  };
-  // Anything that escapes is a way out of the run too: the shutters are closed on it.
-  const onCrash = (error: unknown): void => {
-    stopped ??= `an internal error: ${error instanceof Error ? error.message : String(error)}`;
-    endRun?.();
-  };
-  let endRun: (() => void) | undefined;
-  process.on('SIGINT', onSignal);
-  process.on('SIGTERM', onSignal);
-  process.on('uncaughtException', onCrash);
-  process.on('unhandledRejection', onCrash);
-  await new Promise<void>((resolve) => {
-    endRun = resolve;
-    subscription = live.decisions.subscribe({
-      next(decision) {
-        lastState = decision.state;
-        try {
-          journal.input(decision.input);
-          hub?.feed.input(decision.input);
-          for (const event of decision.events) {
-            journal.event(event);
-            hub?.feed.event(event);
-            if (event.type !== 'shutter' || event.command.action === 'close') io.out(describe(event));
-          }
-        } catch (error) {
-          // Recording is not deciding: the run goes on, and says what it could not keep.
-          io.err(`could not record a decision: ${(error as Error).message}`);
-        }
-        if (decision.state.phase === 'finished' || decision.state.phase === 'aborted') {
-          outcome = decision.state.phase === 'finished' ? 'complete' : 'aborted';
-          resolve();
-        }
-      },
-      error(error: unknown) {
-        stopped = `the controller failed: ${(error as Error).message}`;
-        resolve();
-      },
-    });
-    // Start only when every instrument has been speaking for a second: a shutter command sent
-    // before its port is open is refused, a run must not begin blind, and lines the port held
-    // from before must be read out first so that run time is the instruments' time now.
-    void firstReadings([...drivers.sources.entries()], 30_000).then(
-      async () => {
-        await new Promise((r) => setTimeout(r, 1000));
-        if (!resumeFrom) commands.next({ action: 'start' });
-        io.err(resumeFrom ? 'instruments answering: resuming' : 'instruments answering: run started');
-      },
-      (error: unknown) => {
-        stopped = (error as Error).message;
-        resolve();
-      },
-    );
+  // Start only when every instrument has been speaking for a second: a shutter command sent
+  // before its port is open is refused, a run must not begin blind, and lines the port held
+  // from before must be read out first so that run time is the instruments' time now.
+  const ready = firstReadings([...drivers.sources.entries()], 30_000).then(async () => {
+    await new Promise((r) => setTimeout(r, 1000));
+    io.err(resumeFrom ? 'instruments answering: resuming' : 'instruments answering: run started');
   });
-  subscription?.unsubscribe();
-  if (stopped !== undefined) io.err(`the run stopped: ${stopped}`);
-
-  // Every way out of a run closes the shutters: a completed run has had each close confirmed;
-  // any other ending asks every source's shutter to close again, whatever the controller sent.
-  if (outcome !== 'complete' || shutter.unconfirmedCloses().length > 0) {
-    const layer = recipe.layers[Math.min(lastState.index, recipe.layers.length - 1)]?.number ?? 1;
-    const sources = [...new Set(recipe.layers.map((l) => l.materialName))];
-    for (const source of sources) shutter.send({ kind: 'shutter', action: 'close', source, layer, timeS: lastState.nowS });
-    io.err(`every shutter (${sources.join(', ')}) is asked to close; waiting up to ${CLOSE_WAIT_S} s for the confirmations`);
-    const unconfirmed = await Promise.race([
-      shutter.settled(CLOSE_WAIT_S * 1000),
-      new Promise<string[]>((r) => (forceExit = () => r(shutter.unconfirmedCloses()))),
-    ]);
-    if (unconfirmed.length === 0) io.err(`every shutter confirmed closed (${sources.join(', ')})`);
-    else io.out(`ALERT critical close-unconfirmed: the close of ${unconfirmed.join(', ')} is NOT confirmed: close ${unconfirmed.length > 1 ? 'them' : 'it'} by hand`);
-  }
-  process.off('SIGINT', onSignal);
-  process.off('SIGTERM', onSignal);
-  process.off('uncaughtException', onCrash);
-  process.off('unhandledRejection', onCrash);
+  const result = await driveRun({
+    live,
+    commands,
+    shutter,
+    recipe,
+    initial: lastState,
+    ready,
+    start: !resumeFrom,
+    io,
+    onDecision(decision) {
+      lastState = decision.state;
+      journal.input(decision.input);
+      hub?.feed.input(decision.input);
+      for (const event of decision.events) {
+        journal.event(event);
+        hub?.feed.event(event);
+        if (event.type !== 'shutter' || event.command.action === 'close') io.out(describe(event));
+      }
+    },
+  });
   for (const s of statusSubs) s.unsubscribe();
   journal.close();
   await drivers.close();
   await dashboard?.close();
   io.err(`journal: ${runDir}`);
-  return outcome === 'complete' ? 0 : 1;
+  return result.outcome === 'complete' ? 0 : 1;
 }
-
-/** How long the way out of a run waits for the shutters to confirm their closes, s. */
-const CLOSE_WAIT_S = 10;
 
 /** Resolves when every source has delivered a reading; rejects naming the silent ones after `timeoutMs`. */
 function firstReadings(sources: [string, ReadingSource][], timeoutMs: number): Promise<void> {
