@@ -27,6 +27,11 @@ export function journalEstimator(header: JournalHeader): 'fit' | 'plain' {
   return header.meta.estimator === 'fit' ? 'fit' : 'plain';
 }
 
+/** Whether the recorded run held its layers for unconfirmed closes (`meta.confirmCloses`, live runs), as its replay must. */
+export function journalConfirmsCloses(header: JournalHeader): boolean {
+  return header.meta.confirmCloses === true;
+}
+
 export type JournalRecord =
   | { readonly k: 'r'; readonly c: 'o' | 'x'; readonly t: number; readonly v: number; readonly a: number }
   | { readonly k: 'i'; readonly t: number; readonly input: Exclude<PipelineInput, Reading> }

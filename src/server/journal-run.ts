@@ -5,7 +5,7 @@
  * dashboard shows the run as it was, at a chosen speed.
  */
 import { readFileSync } from 'node:fs';
-import { journalEstimator } from '../journal/journal-format.ts';
+import { journalConfirmsCloses, journalEstimator } from '../journal/journal-format.ts';
 import { readJournal } from '../journal/journal-reader.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import { createController } from '../pipeline/controller.ts';
@@ -25,7 +25,7 @@ export function startJournalReplay(folder: RunFolder, speed: number, signal?: Ab
   const journal = readJournal(folder.journalFile);
   const recipe = JSON.parse(readFileSync(folder.recipeFile, 'utf8')) as ResolvedRecipe;
   const hub = createRunHub({ recipe, source: 'replay', runId: folder.id, speed });
-  const run = createJournalRun(journal.records, createController(recipe, { estimator: journalEstimator(journal.header) }), { onInput: hub.feed.input, onEvent: hub.feed.event });
+  const run = createJournalRun(journal.records, createController(recipe, { estimator: journalEstimator(journal.header), confirmCloses: journalConfirmsCloses(journal.header) }), { onInput: hub.feed.input, onEvent: hub.feed.event });
   hub.attach(run);
   const done = runPaced(run, speed, signal ? { signal } : {});
   return { hub, run, done };

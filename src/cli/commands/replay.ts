@@ -11,7 +11,7 @@ import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { createController } from '../../pipeline/controller.ts';
 import { replayJournal, replayJournalPaced, type CutComparison } from '../../pipeline/replay.ts';
 import { startJournalReplay } from '../../server/journal-run.ts';
-import { journalEstimator } from '../../journal/journal-format.ts';
+import { journalConfirmsCloses, journalEstimator } from '../../journal/journal-format.ts';
 import { CliError, estimatorOption } from '../cli-error.ts';
 import { readRecordedRecipe, readRecordedRun } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
@@ -74,7 +74,10 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
   const speedText = values.speed ?? 'max';
   const speed = speedText === 'max' ? Number.POSITIVE_INFINITY : Number(speedText);
   if (!(speed > 0)) throw new CliError(`--speed must be a positive number or "max", got "${speedText}"`);
-  const controller = createController(recipe, { estimator: estimatorOption(values.estimator, journalEstimator(journal.header)) });
+  const controller = createController(recipe, {
+    estimator: estimatorOption(values.estimator, journalEstimator(journal.header)),
+    confirmCloses: journalConfirmsCloses(journal.header),
+  });
   const result = Number.isFinite(speed)
     ? await replayJournalPaced(journal.records, controller, speed, (e) => {
         if (e.type === 'cut' && !values.json) io.out(`${e.timeS.toFixed(1).padStart(8)} s  layer ${e.layer} cut (${e.reason}), about ${e.estimatedNm.toFixed(2)} nm`);

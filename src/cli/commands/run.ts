@@ -9,7 +9,7 @@ import { combineLatest, filter, first, firstValueFrom, Subject, throwError, time
 import { loadChamber, openChamber } from '../../../drivers/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
-import { journalEstimator } from '../../journal/journal-format.ts';
+import { journalConfirmsCloses, journalEstimator } from '../../journal/journal-format.ts';
 import { createJournalWriter } from '../../journal/journal-writer.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { createController, type ControllerState } from '../../pipeline/controller.ts';
@@ -84,7 +84,7 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
       throw new CliError(`the run in ${runDir} cuts with the ${recordedEstimator === 'fit' ? 'model fit' : 'plain rules'}; it resumes the same way (leave out --estimator)`);
     }
     estimator = recordedEstimator;
-    resumeFrom = replayJournal(journal.records, createController(recipe, { estimator })).state;
+    resumeFrom = replayJournal(journal.records, createController(recipe, { estimator, confirmCloses: journalConfirmsCloses(journal.header) })).state;
     if (resumeFrom.phase === 'finished' || resumeFrom.phase === 'aborted') throw new CliError(`the run in ${runDir} has already ${resumeFrom.phase === 'finished' ? 'finished' : 'been aborted'}`, 1);
     chamberFile ??= join(runDir, 'chamber.yaml');
     io.err(`resuming ${runDir} at layer ${resumeFrom.index + 1} (${resumeFrom.phase}), run time ${resumeFrom.nowS.toFixed(1)} s`);
@@ -105,7 +105,7 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
     runId: runDir.split(/[\\/]/).pop() ?? runDir,
     startedAt: new Date().toISOString(),
     recipe: recipe.name,
-    meta: { source: 'live', chamber: chamber.name, clock: runClock, estimator, ...(resumeFrom ? { resumedAtS: resumeFrom.nowS } : {}) },
+    meta: { source: 'live', chamber: chamber.name, clock: runClock, estimator, confirmCloses: true, ...(resumeFrom ? { resumedAtS: resumeFrom.nowS } : {}) },
   });
   if (!resumeFrom) {
     journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
