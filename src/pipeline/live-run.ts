@@ -7,12 +7,14 @@
 import { asyncScheduler, distinctUntilChanged, filter, map, merge, share, tap, type Observable, type SchedulerLike } from 'rxjs';
 import type { Controller, ControllerState } from './controller.ts';
 import { decide, toRunClock, withTicks, type Decision, type RunClock } from './operators/index.ts';
-import type { OperatorAction, PipelineInput, ReadingSource, ShutterSink } from './types.ts';
+import type { OperatorAction, PipelineInput, ReadingSource, ShutterSink, SourceStatus } from './types.ts';
 
 export interface LiveRunOptions {
   controller: Controller;
   /** The instruments, by their id in the chamber file. */
   sources: ReadonlyMap<string, ReadingSource>;
+  /** Other links whose losses are alerted (a shutter controller on its own port), by name. */
+  links?: ReadonlyMap<string, Observable<SourceStatus>>;
   shutter: ShutterSink;
   /** What the operator asks for; the wiring stamps the run time. */
   commands: Observable<{ action: OperatorAction; alertId?: string }>;
@@ -51,8 +53,9 @@ export function createLiveRun(options: LiveRunOptions): LiveRun {
   const acks = options.shutter.acks.pipe(map(nowInput));
   const faults = options.shutter.faults.pipe(map(nowInput));
   // A link we did not close going away, and its return; staleness is the controller's own to see.
-  const links = sources.map(([id, source]) =>
-    source.status.pipe(
+  const statuses: [string, Observable<SourceStatus>][] = [...sources.map(([id, source]): [string, Observable<SourceStatus>] => [id, source.status]), ...(options.links ?? [])];
+  const links = statuses.map(([id, status]) =>
+    status.pipe(
       filter((s) => (s.state === 'lost' && !s.closedByUs) || s.state === 'connected'),
       map((s): PipelineInput => ({ kind: 'link', link: id, state: s.state === 'lost' ? 'lost' : 'connected', detail: s.detail ?? '', timeS: 0 })),
       distinctUntilChanged((a, b) => a.kind === 'link' && b.kind === 'link' && a.state === b.state),

@@ -12,7 +12,7 @@ import type { JournalRecord } from '../../src/journal/journal-format.ts';
 import { createController } from '../../src/pipeline/controller.ts';
 import { createLiveRun } from '../../src/pipeline/live-run.ts';
 import type { Decision } from '../../src/pipeline/operators/index.ts';
-import type { OperatorAction, Reading, SourceStatus } from '../../src/pipeline/types.ts';
+import type { OperatorAction, Reading, ShutterAck, ShutterFault, SourceStatus } from '../../src/pipeline/types.ts';
 
 const root = fileURLToPath(new URL('../../', import.meta.url));
 const recipe = loadRecipe(join(root, 'config/recipes/ar4-visible.yaml'));
@@ -46,6 +46,42 @@ describe('a live run on virtual time', () => {
     expect(events.at(-1)).toMatchObject({ type: 'run-finished', outcome: 'complete' });
     // The shutter commands reached the chamber: every layer grew to about its target.
     for (const layer of chamber.truth().layers) expect(Math.abs(layer.partNm / (recipe.layers[layer.number - 1]?.targetNm ?? 1) - 1)).toBeLessThan(0.35);
+  });
+});
+
+describe('links and shutter failures as inputs', () => {
+  it('turns a link lost (not by us) and back into alerts, and a shutter failure into an input, on the run clock', () => {
+    const scheduler = new VirtualTimeScheduler(undefined, 100_000);
+    const readings = new Subject<Reading>();
+    const status = new Subject<SourceStatus>();
+    const shutterStatus = new Subject<SourceStatus>();
+    const faults = new Subject<ShutterFault>();
+    const commands = new Subject<{ action: OperatorAction }>();
+    const live = createLiveRun({
+      controller: createController(recipe),
+      sources: new Map([['monitor', { readings, status }]]),
+      links: new Map([['shutters', shutterStatus]]),
+      shutter: { send: () => undefined, acks: new Subject<ShutterAck>(), faults },
+      commands,
+      clock: () => scheduler.now() / 1000,
+      scheduler,
+    });
+    const decisions: Decision[] = [];
+    const sub = live.decisions.subscribe((d) => decisions.push(d));
+    status.next({ state: 'connected' });
+    readings.next({ kind: 'reading', channel: 'optical', value: 0.9, timeS: 0, arrivalS: 0 });
+    status.next({ state: 'lost', closedByUs: false, detail: 'reset by peer' });
+    status.next({ state: 'connecting' });
+    status.next({ state: 'lost', closedByUs: false, detail: 'refused' });
+    status.next({ state: 'connected' });
+    shutterStatus.next({ state: 'lost', closedByUs: true, detail: 'closed' });
+    faults.next({ kind: 'shutter-fault', code: 'shutter-not-sent', action: 'close', source: 'SiO2', layer: 1, attempt: 1, final: false, detail: 'link down', timeS: 99 });
+    sub.unsubscribe();
+    const alerts = decisions.flatMap((d) => d.events.flatMap((e) => (e.type === 'alert' ? [e.code] : [])));
+    expect(alerts).toEqual(['source-lost', 'source-restored', 'shutter-not-sent']);
+    expect(decisions.at(-1)?.state.unconfirmedCloses).toEqual(['SiO2']);
+    // Inputs from outside the lines take the run clock's present, not their own time.
+    expect(decisions.at(-1)?.input.timeS).toBe(0);
   });
 });
 

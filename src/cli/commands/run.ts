@@ -119,6 +119,7 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
   const live = createLiveRun({
     controller,
     sources: drivers.sources,
+    ...(drivers.shutterLink ? { links: new Map([['shutters', drivers.shutterLink.status]]) } : {}),
     shutter,
     commands,
     runClock,
