@@ -1,0 +1,75 @@
+// `fringe run` as a process over TCP against the virtual chamber served in this test: Ctrl-C
+// mid-layer reaches the chamber as a close of every shutter, confirmed, and said so.
+import { spawn, type ChildProcess } from 'node:child_process';
+import { mkdtempSync, writeFileSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { afterAll, describe, expect, it } from 'vitest';
+import { loadSimProfile, serveOnTcp } from '../../sim/index.ts';
+import { loadRecipe } from '../../src/config/load-recipe.ts';
+
+const root = fileURLToPath(new URL('../../', import.meta.url));
+const recipeFile = join(root, 'config/recipes/ar4-visible.yaml');
+const recipe = loadRecipe(recipeFile);
+const profile = loadSimProfile(join(root, 'config/sim/typical.yaml'));
+const sources = [...new Set(recipe.layers.map((l) => l.materialName))].sort();
+const cleanups: (() => unknown)[] = [];
+afterAll(async () => {
+  for (const c of cleanups.reverse()) await c();
+});
+
+function fringe(args: string[]): { child: ChildProcess; out: () => string; done: Promise<number | null> } {
+  const child = spawn(process.execPath, [join(root, 'src/cli/fringe.js'), ...args], { cwd: root, stdio: ['ignore', 'pipe', 'pipe'] });
+  cleanups.push(() => child.kill('SIGKILL'));
+  let out = '';
+  child.stdout?.on('data', (d: Buffer) => (out += d.toString()));
+  child.stderr?.on('data', (d: Buffer) => (out += d.toString()));
+  return { child, out: () => out, done: new Promise((resolve) => child.once('exit', (code) => resolve(code))) };
+}
+
+async function waitFor(predicate: () => boolean, what: string, timeoutMs = 60_000): Promise<void> {
+  for (const start = Date.now(); !predicate(); ) {
+    if (Date.now() - start > timeoutMs) throw new Error(`timed out waiting for ${what}`);
+    await new Promise((r) => setTimeout(r, 50));
+  }
+}
+
+function tcpChamber(dir: string, port: number): string {
+  const file = join(dir, 'chamber.yaml');
+  writeFileSync(
+    file,
+    `formatVersion: 1
+name: test chamber over tcp
+instruments:
+  - id: monitor
+    transport: { kind: tcp, host: 127.0.0.1, port: ${port} }
+    channels: [optical, crystal]
+    retry: { initialDelayMs: 100, maxDelayMs: 1000 }
+shutters:
+  transport: monitor
+  ack: { timeoutMs: 1000 }
+`,
+  );
+  return file;
+}
+
+describe('fringe run: the ways out', () => {
+  it('closes every shutter on Ctrl-C mid-layer, confirmed by the chamber, and says so', async () => {
+    const dir = mkdtempSync(join(tmpdir(), 'fringe-exit-'));
+    const server = await serveOnTcp({ recipe, profile, seed: 6, speed: 20, port: 0 });
+    cleanups.push(() => server.close());
+    const run = fringe(['run', '--chamber', tcpChamber(dir, server.port), '--clock', 'instrument', '--runs', join(dir, 'runs'), recipeFile]);
+    const served = await server.served;
+    await waitFor(() => /layer 2 \S+: .* cut on/.test(run.out()), 'layer 2 to start');
+    const before = served.applied.length;
+    run.child.kill('SIGINT');
+    const code = await run.done;
+    expect(code, run.out()).toBe(1);
+    const closes = served.applied.slice(before).filter((c) => c.action === 'close');
+    expect([...new Set(closes.map((c) => c.source))].sort()).toEqual(sources);
+    expect(run.out()).toMatch(/aborting: every shutter is asked to close/);
+    expect(run.out()).toMatch(new RegExp(`every shutter confirmed closed \\(${sources.join(', ')}\\)|every shutter confirmed closed`));
+    expect(run.out()).not.toMatch(/NOT confirmed/);
+  });
+});
