@@ -232,10 +232,12 @@ export function createLineDecoder(options: LineDecoderOptions): LineDecoder {
       const t = toNumber(fields.time.raw);
       if (t === undefined) return fault(line, 'not-a-number', fields.time.offset, channel, arrivalS);
       timeS = t * timeScale;
+      // A finite number scaled past the largest double is no time at all.
+      if (!Number.isFinite(timeS)) return fault(line, 'out-of-range', fields.time.offset, channel, arrivalS);
     }
     const s = scaling[channel];
     const value = raw * s.scale + s.offset;
-    if (!(value >= s.min && value <= s.max)) return fault(line, 'out-of-range', fields.value.offset, channel, arrivalS);
+    if (!(value >= s.min && value <= s.max) || !Number.isFinite(value)) return fault(line, 'out-of-range', fields.value.offset, channel, arrivalS);
     return { kind: 'reading', channel, value, timeS, arrivalS };
   };
 }

@@ -254,6 +254,29 @@ describe('decoder properties', () => {
     );
   });
 
+  it('never makes a non-finite reading: a value or time scaled past the largest double is a fault', () => {
+    const scaled = createLineDecoder({
+      format: 'delimited',
+      columns: { channel: 0, time: 1, value: 2 },
+      channelTags: { OPT: 'optical', XTL: 'crystal' },
+      timeScale: 1000,
+      channels: { crystal: { scale: 1e10 } },
+    });
+    expect(scaled('XTL,1.5,1e308', 0)).toMatchObject({ kind: 'fault', code: 'out-of-range', channel: 'crystal', offset: 8 });
+    expect(scaled(`XTL,1.5,${'9'.repeat(300)}`, 0)).toMatchObject({ kind: 'fault', code: 'out-of-range' });
+    expect(scaled('OPT,1e307,0.5', 0)).toMatchObject({ kind: 'fault', code: 'out-of-range', channel: 'optical', offset: 4 });
+    expect(scaled('XTL,1.5,5.9e-4', 0)).toMatchObject({ kind: 'reading', value: 5.9e6, timeS: 1500 });
+    // Any number a line can hold, any finite scale: a reading is finite or it is a fault.
+    fc.assert(
+      fc.property(fc.double({ noNaN: true, noDefaultInfinity: true }), fc.double({ noNaN: true, noDefaultInfinity: true, min: 1e-300 }), (raw, scale) => {
+        const decode = createLineDecoder({ format: 'delimited', columns: { value: 0 }, channel: 'crystal', channels: { crystal: { scale } } });
+        const out = decode(String(raw), 0);
+        if (out?.kind === 'reading') expect(Number.isFinite(out.value)).toBe(true);
+        else expect(out).toMatchObject({ kind: 'fault' });
+      }),
+    );
+  });
+
   it('includes both ends of the range', () => {
     const decode = createLineDecoder({ format: 'delimited', columns: { value: 0 }, channel: 'optical', channels: { optical: { range: [0, 1] } } });
     expect(decode('0', 0)).toMatchObject({ kind: 'reading', value: 0 });
