@@ -4,7 +4,7 @@
  * in the runs folder like any other; the server keeps serving after it ends, until interrupted.
  */
 import { fileURLToPath } from 'node:url';
-import { parseArgs } from 'node:util';
+import { parseCommandArgs } from '../parse-command-args.ts';
 import { loadSimProfile } from '../../../sim/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
@@ -45,7 +45,7 @@ export interface DemoHooks {
 }
 
 export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = {}): Promise<number> {
-  const { values, positionals } = parseArgs({
+  const { values, positionals } = parseCommandArgs({
     args: argv,
     allowPositionals: true,
     strict: true,

@@ -1,5 +1,5 @@
 /** `fringe export RUN --csv`: a run's readings and events as CSV for a spreadsheet. */
-import { parseArgs } from 'node:util';
+import { parseCommandArgs } from '../parse-command-args.ts';
 import type { RunEvent } from '../../pipeline/events.ts';
 import { CliError, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
@@ -12,7 +12,7 @@ detail) as CSV: to FILE, or to standard output.
 `;
 
 export function runExport(argv: string[], io: CommandIo): number {
-  const { values, positionals } = parseArgs({
+  const { values, positionals } = parseCommandArgs({
     args: argv,
     allowPositionals: true,
     strict: true,

@@ -2,7 +2,7 @@
  * `fringe plan RECIPE`: what every signal should do, layer by layer, and how precisely each
  * layer can be cut — as a table, JSON, and/or an SVG plot of the whole run's monitor signal.
  */
-import { parseArgs } from 'node:util';
+import { parseCommandArgs } from '../parse-command-args.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import { planRun, type LayerPlan, type RunPlan } from '../../model/plan/plan.ts';
@@ -25,7 +25,7 @@ the expected precision of the cut, warnings, a suggested monitor wavelength, and
 `;
 
 export function runPlan(argv: string[], io: CommandIo): number {
-  const { values, positionals } = parseArgs({
+  const { values, positionals } = parseCommandArgs({
     args: argv,
     allowPositionals: true,
     strict: true,

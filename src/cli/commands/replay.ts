@@ -4,7 +4,7 @@
  * did, flagging every difference.
  */
 import { basename, join } from 'node:path';
-import { parseArgs } from 'node:util';
+import { parseCommandArgs } from '../parse-command-args.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
@@ -31,7 +31,7 @@ every cut with the recorded one. With the recipe as run, every decision must com
 `;
 
 export async function runReplay(argv: string[], io: CommandIo): Promise<number> {
-  const { values, positionals } = parseArgs({
+  const { values, positionals } = parseCommandArgs({
     args: argv,
     allowPositionals: true,
     strict: true,

@@ -4,7 +4,7 @@
  */
 import { readFileSync } from 'node:fs';
 import { join } from 'node:path';
-import { parseArgs } from 'node:util';
+import { parseCommandArgs } from '../parse-command-args.ts';
 import { combineLatest, filter, first, firstValueFrom, Subject, throwError, timeout } from 'rxjs';
 import { loadChamber, openChamber } from '../../../drivers/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
@@ -43,7 +43,7 @@ and interlocks stay in charge.
 `;
 
 export async function runLive(argv: string[], io: CommandIo): Promise<number> {
-  const { values, positionals } = parseArgs({
+  const { values, positionals } = parseCommandArgs({
     args: argv,
     allowPositionals: true,
     strict: true,

@@ -6,7 +6,7 @@
 import { randomUUID } from 'node:crypto';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
-import { parseArgs } from 'node:util';
+import { parseCommandArgs } from '../parse-command-args.ts';
 import { createPtyPair, createVirtualChamber, loadSimProfile, serveOnPty, serveOnTcp, trueStackSpec, type ChamberTruth } from '../../../sim/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
@@ -65,7 +65,7 @@ export interface SimulationReport {
 }
 
 export async function runSimulate(argv: string[], io: CommandIo): Promise<number> {
-  const { values, positionals } = parseArgs({
+  const { values, positionals } = parseCommandArgs({
     args: argv,
     allowPositionals: true,
     strict: true,

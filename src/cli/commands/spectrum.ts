@@ -2,7 +2,7 @@
  * `fringe spectrum DESIGN`: reflectance, transmittance and absorptance of a design over a
  * wavelength grid, as a table, JSON, CSV and/or an SVG plot.
  */
-import { parseArgs } from 'node:util';
+import { parseCommandArgs } from '../parse-command-args.ts';
 import { loadDesign, loadMaterialLibrary } from '../../config/load-design.ts';
 import { buildOpticalModel, spectrum, type Polarisation } from '../../model/optics/optical-model.ts';
 import { renderLineChart } from '../../report/index.ts';
@@ -27,7 +27,7 @@ Computes R, T and A of a design (fractions 0..1; percent in the table).
 const MAX_POINTS = 1_000_000;
 
 export function runSpectrum(argv: string[], io: CommandIo): number {
-  const { values, positionals } = parseArgs({
+  const { values, positionals } = parseCommandArgs({
     args: argv,
     allowPositionals: true,
     strict: true,

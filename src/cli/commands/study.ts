@@ -4,7 +4,7 @@
  * final spectra against the design.
  */
 import { fileURLToPath } from 'node:url';
-import { parseArgs } from 'node:util';
+import { parseCommandArgs } from '../parse-command-args.ts';
 import { loadSimProfile } from '../../../sim/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
@@ -35,7 +35,7 @@ by cut mode, and the final spectrum's deviation from the design.
 `;
 
 export async function runStudyCommand(argv: string[], io: CommandIo): Promise<number> {
-  const { values, positionals } = parseArgs({
+  const { values, positionals } = parseCommandArgs({
     args: argv,
     allowPositionals: true,
     strict: true,

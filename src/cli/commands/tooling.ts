@@ -2,7 +2,7 @@
  * `fringe tooling`: a corrected tooling factor from a calibration run — the part thickness
  * measured (profilometer, ellipsometer, an optical fit) against what the crystal indicated.
  */
-import { parseArgs } from 'node:util';
+import { parseCommandArgs } from '../parse-command-args.ts';
 import { recalibrateTooling } from '../../model/crystal/index.ts';
 import { CliError, numberOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
@@ -19,8 +19,11 @@ with factor F and "measured" what was measured on the part.
   --json                print {"toolingFactor": …, "percent": …}
 `;
 
+/** Tooling factors a chamber can have (part over crystal thickness; common practice, no source). */
+const TOOLING_RANGE = [0.2, 5] as const;
+
 export function runTooling(argv: string[], io: CommandIo): number {
-  const { values, positionals } = parseArgs({
+  const { values, positionals } = parseCommandArgs({
     args: argv,
     allowPositionals: true,
     strict: true,
@@ -47,6 +50,12 @@ export function runTooling(argv: string[], io: CommandIo): number {
   const indicated = numberOption('indicated', values.indicated) as number;
   for (const [name, v] of [['factor', factor], ['measured', measured], ['indicated', indicated]] as const) {
     if (!(v > 0)) throw new CliError(`--${name} must be positive, got ${v}`);
+  }
+  // A factor of 105 is 105 % written without its sign, not 10,500 %: refuse what no chamber has.
+  if (factor < TOOLING_RANGE[0] || factor > TOOLING_RANGE[1]) {
+    throw new CliError(
+      `--factor ${text.trim()} is not a plausible tooling factor (${TOOLING_RANGE[0]} to ${TOOLING_RANGE[1]}): write it as a fraction (1.05) or a percentage (105 %)`,
+    );
   }
   const corrected = recalibrateTooling(factor, measured, indicated);
   if (values.json) io.out(JSON.stringify({ toolingFactor: corrected, percent: corrected * 100 }));
