@@ -20,7 +20,9 @@ export type AlertCode =
   | 'operator-cut'
   | 'operator-skip'
   | 'operator-abort'
-  | 'source-lost';
+  | 'source-lost'
+  | 'journal-write-failed'
+  | 'journal-recovered';
 
 export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: string }>> = {
   'fault-not-a-number': { severity: 'warning', sentence: 'A reading was not a number and was not used.' },
@@ -42,4 +44,9 @@ export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: 
   'operator-skip': { severity: 'warning', sentence: 'The operator skipped the layer.' },
   'operator-abort': { severity: 'critical', sentence: 'The operator aborted the run; every shutter was asked to close.' },
   'source-lost': { severity: 'critical', sentence: 'An instrument connection was lost; fringe is reconnecting.' },
+  'journal-write-failed': {
+    severity: 'critical',
+    sentence: 'The journal cannot be written (disk full or failing): the run goes on, its lines are held in memory and retried; free space now.',
+  },
+  'journal-recovered': { severity: 'info', sentence: 'The journal is being written again; what was held back is on disk.' },
 };
