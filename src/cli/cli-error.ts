@@ -1,4 +1,4 @@
-import { mkdirSync, writeFileSync } from 'node:fs';
+import { closeSync, mkdirSync, openSync, writeFileSync, writeSync } from 'node:fs';
 import { dirname, resolve } from 'node:path';
 
 /** An error the command line reports as one sentence on stderr, with its exit code. */
@@ -36,4 +36,34 @@ export function writeOutputFile(file: string, text: string): void {
   } catch (error) {
     throw new CliError(`cannot write ${file}: ${(error as Error).message}`, 1);
   }
+}
+
+/** A file the user asked for, written piece by piece; a failure is one sentence naming it. */
+export function openOutputFile(file: string): { write(text: string): void; close(): void } {
+  const fail = (error: unknown): never => {
+    throw new CliError(`cannot write ${file}: ${(error as Error).message}`, 1);
+  };
+  let fd = -1;
+  try {
+    mkdirSync(dirname(resolve(file)), { recursive: true });
+    fd = openSync(file, 'w');
+  } catch (error) {
+    fail(error);
+  }
+  return {
+    write(text) {
+      try {
+        writeSync(fd, text);
+      } catch (error) {
+        fail(error);
+      }
+    },
+    close() {
+      try {
+        closeSync(fd);
+      } catch {
+        // Already reported by the write that failed, or nothing left to lose.
+      }
+    },
+  };
 }

@@ -1,5 +1,7 @@
 /** The `fringe` command line: one sub-command per job, errors as one sentence on stderr. */
 import { ConfigError } from '../config/validation.ts';
+import { JournalError } from '../journal/journal-reader.ts';
+import { JournalWriteError } from '../journal/journal-writer.ts';
 import { OpticalModelError } from '../model/optics/optical-model.ts';
 import { CliError } from './cli-error.ts';
 import { processIo, type CommandIo } from './command-io.ts';
@@ -62,7 +64,7 @@ export async function main(argv: string[], io: CommandIo = processIo): Promise<n
       io.err(`fringe ${name}: ${error.message}`);
       return error.exitCode;
     }
-    if (error instanceof ConfigError || error instanceof OpticalModelError) {
+    if (error instanceof ConfigError || error instanceof OpticalModelError || error instanceof JournalError || error instanceof JournalWriteError) {
       io.err(`fringe ${name}: ${error.message}`);
       return 1;
     }

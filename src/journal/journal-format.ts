@@ -6,6 +6,11 @@
  *   {"k":"r","c":"o","t":12.3,"v":0.91234,"a":12.3}     reading (c: o optical, x crystal)
  *   {"k":"i","t":12.4,"input":{…}}                      another input (operator, fault, ack)
  *   {"k":"e","event":{…}}                                 an event the controller decided
+ *   {"k":"m","t":80.2,"mark":"resumed","at":"…","meta":{…}}   a note on the run itself (not an
+ *                                                        input): where a resumed session took it up
+ *
+ * Readers skip a damaged line (not JSON, or none of these shapes) and say how many they skipped:
+ * one torn write must not cost the rest of the run.
  */
 import type { RunEvent } from '../pipeline/events.ts';
 import type { PipelineInput, Reading } from '../pipeline/types.ts';
@@ -32,10 +37,59 @@ export function journalConfirmsCloses(header: JournalHeader): boolean {
   return header.meta.confirmCloses === true;
 }
 
+/** A note on the run itself, not fed to the controller: where a resumed session took it up. */
+export interface JournalMark {
+  readonly k: 'm';
+  /** Run time, s: where the resumed session continued. */
+  readonly t: number;
+  readonly mark: 'resumed';
+  /** Wall time of the new session (ISO 8601). */
+  readonly at: string;
+  /** The new session's facts (chamber, clock, estimator), as a header's meta. */
+  readonly meta: Readonly<Record<string, unknown>>;
+}
+
 export type JournalRecord =
   | { readonly k: 'r'; readonly c: 'o' | 'x'; readonly t: number; readonly v: number; readonly a: number }
   | { readonly k: 'i'; readonly t: number; readonly input: Exclude<PipelineInput, Reading> }
-  | { readonly k: 'e'; readonly event: RunEvent };
+  | { readonly k: 'e'; readonly event: RunEvent }
+  | JournalMark;
+
+const isObject = (v: unknown): v is Record<string, unknown> => typeof v === 'object' && v !== null && !Array.isArray(v);
+
+/**
+ * What is wrong with a parsed first line as a journal header, in words that never quote it (it
+ * may be binary junk), or null when it is a header of this version.
+ */
+export function headerProblem(value: unknown): string | null {
+  if (!isObject(value) || value.journal !== 'fringe') return 'is not a fringe journal (its first line is no journal header)';
+  if (value.version !== JOURNAL_VERSION) {
+    const version = typeof value.version === 'number' ? String(value.version) : 'of no known version';
+    return `is journal version ${version}; this fringe reads version ${JOURNAL_VERSION}`;
+  }
+  for (const field of ['runId', 'startedAt', 'recipe'] as const) {
+    if (typeof value[field] !== 'string') return `has a damaged header: its ${field} is not a string`;
+  }
+  if (!isObject(value.meta)) return 'has a damaged header: its meta is not an object';
+  return null;
+}
+
+/** True when a parsed line has the shape of one of the records above (the fields replay reads). */
+export function isJournalRecord(value: unknown): value is JournalRecord {
+  if (!isObject(value)) return false;
+  switch (value.k) {
+    case 'r':
+      return (value.c === 'o' || value.c === 'x') && typeof value.t === 'number' && typeof value.v === 'number' && typeof value.a === 'number';
+    case 'i':
+      return typeof value.t === 'number' && isObject(value.input) && typeof value.input.kind === 'string' && value.input.kind !== 'reading';
+    case 'e':
+      return isObject(value.event) && typeof value.event.type === 'string' && typeof value.event.timeS === 'number';
+    case 'm':
+      return typeof value.t === 'number' && typeof value.mark === 'string' && typeof value.at === 'string' && isObject(value.meta);
+    default:
+      return false;
+  }
+}
 
 export function readingRecord(r: Reading): JournalRecord {
   return { k: 'r', c: r.channel === 'optical' ? 'o' : 'x', t: r.timeS, v: r.value, a: r.arrivalS };
@@ -58,6 +112,10 @@ export function stringifyRecord(record: JournalRecord | JournalHeader): string {
 
 const NON_FINITE: Record<string, number> = { NaN: Number.NaN, Infinity: Number.POSITIVE_INFINITY, '-Infinity': Number.NEGATIVE_INFINITY };
 
+const reviveNonFinite = (_key: string, value: unknown): unknown => (typeof value === 'string' && Object.hasOwn(NON_FINITE, value) ? NON_FINITE[value] : value);
+const QUOTED_NON_FINITE = /"(?:NaN|-?Infinity)"/;
+
+/** The reviver costs ~3× the parse: used only on lines that hold a quoted NaN or ±Infinity. */
 export function parseRecord(line: string): unknown {
-  return JSON.parse(line, (_key, value: unknown) => (typeof value === 'string' && value in NON_FINITE ? NON_FINITE[value] : value));
+  return QUOTED_NON_FINITE.test(line) ? JSON.parse(line, reviveNonFinite) : JSON.parse(line);
 }

@@ -1,44 +1,187 @@
-/** Reading a journal back, up to its last complete line (a crash may cut the last one short). */
-import { readFileSync } from 'node:fs';
-import { JOURNAL_VERSION, parseRecord, type JournalHeader, type JournalRecord } from './journal-format.ts';
+/**
+ * Reading a journal back as a stream: the file is read in chunks and its records yielded one by
+ * one, so no string ever holds the file (a JavaScript string stops near 512 MiB) and a caller
+ * that does not keep the records never holds them all. A crash may cut the last line short: it
+ * is dropped. A damaged line inside (a torn write a resumed run wrote after, junk) is skipped and
+ * counted, and the reader says which lines it skipped.
+ */
+import { closeSync, openSync, readSync } from 'node:fs';
+import { headerProblem, isJournalRecord, parseRecord, type JournalHeader, type JournalRecord } from './journal-format.ts';
 
-export interface JournalContents {
-  header: JournalHeader;
-  records: JournalRecord[];
+export interface JournalReadOptions {
+  /** Bytes read from the file at a time (default 1 MiB). */
+  chunkBytes?: number;
+  /** A line longer than this is damaged and skipped without being held (default 16 MiB). */
+  maxLineBytes?: number;
+}
+
+export interface DamagedLine {
+  /** 1-based line number in the file. */
+  line: number;
+  reason: 'not JSON' | 'not a journal record' | 'too long';
+}
+
+/** What a pass over the records found; complete once the records have been read to the end. */
+export interface JournalReadReport {
   /** True when the file ended inside a line (the part after the last newline was dropped). */
   truncated: boolean;
+  damagedLines: number;
+  /** The first few damaged lines. */
+  firstDamaged: DamagedLine[];
+}
+
+/** A journal whose header has been read and checked; its records are read as they are asked for. */
+export interface JournalStream {
+  readonly file: string;
+  readonly header: JournalHeader;
+  /** The records in file order, read afresh on each iteration (the report starts over with it). */
+  readonly records: Iterable<JournalRecord>;
+  readonly report: JournalReadReport;
+}
+
+export interface JournalContents extends JournalReadReport {
+  header: JournalHeader;
+  records: JournalRecord[];
 }
 
 export class JournalError extends Error {
   override name = 'JournalError';
 }
 
-export function readJournal(file: string): JournalContents {
-  let text: string;
+const FIRST_DAMAGED_KEPT = 5;
+/** A header is a few hundred bytes; a first line longer than this is no header. */
+const MAX_HEADER_BYTES = 1 << 20;
+
+/** Opens `file` and reads its header; throws a JournalError naming the file when it is no journal of this version. */
+export function openJournal(file: string, options: JournalReadOptions = {}): JournalStream {
+  const chunkBytes = options.chunkBytes ?? 1 << 20;
+  const maxLineBytes = options.maxLineBytes ?? 16 << 20;
+  if (!(Number.isInteger(chunkBytes) && chunkBytes > 0)) throw new RangeError(`chunkBytes must be a positive integer, got ${chunkBytes}`);
+  const header = readHeader(file, Math.min(chunkBytes, MAX_HEADER_BYTES));
+  const report: JournalReadReport = { truncated: false, damagedLines: 0, firstDamaged: [] };
+  const damaged = (line: number, reason: DamagedLine['reason']): void => {
+    report.damagedLines++;
+    if (report.firstDamaged.length < FIRST_DAMAGED_KEPT) report.firstDamaged.push({ line, reason });
+  };
+  function* records(): Generator<JournalRecord> {
+    report.truncated = false;
+    report.damagedLines = 0;
+    report.firstDamaged = [];
+    const tail = { bytes: 0 };
+    for (const { number, text } of scanLines(file, chunkBytes, maxLineBytes, tail)) {
+      if (number === 1 || text === '') continue;
+      if (text === null) {
+        damaged(number, 'too long');
+        continue;
+      }
+      let value: unknown;
+      try {
+        value = parseRecord(text);
+      } catch {
+        damaged(number, 'not JSON');
+        continue;
+      }
+      if (isJournalRecord(value)) yield value;
+      else damaged(number, 'not a journal record');
+    }
+    report.truncated = tail.bytes > 0;
+  }
+  return { file, header, records: { [Symbol.iterator]: records }, report };
+}
+
+/** The whole journal in memory (small journals, tests); `openJournal` streams. */
+export function readJournal(file: string, options: JournalReadOptions = {}): JournalContents {
+  const journal = openJournal(file, options);
+  const records = [...journal.records];
+  return { header: journal.header, records, ...journal.report };
+}
+
+/** One line saying which damaged lines were skipped, or null when none were. */
+export function describeDamage(file: string, report: JournalReadReport): string | null {
+  if (report.damagedLines === 0) return null;
+  const lines = report.firstDamaged.map((d) => `${d.line} (${d.reason})`).join(', ');
+  const more = report.damagedLines > report.firstDamaged.length ? ', …' : '';
+  const n = report.damagedLines;
+  return `${file}: skipped ${n} damaged line${n === 1 ? '' : 's'}: line${n === 1 ? '' : 's'} ${lines}${more}`;
+}
+
+/** The header of `file`, checked; a JournalError in one sentence naming the file otherwise. */
+function readHeader(file: string, chunkBytes: number): JournalHeader {
+  let first: string | null | undefined;
   try {
-    text = readFileSync(file, 'utf8');
+    for (const line of scanLines(file, chunkBytes, MAX_HEADER_BYTES, { bytes: 0 }, true)) {
+      first = line.text;
+      break;
+    }
   } catch (error) {
-    throw new JournalError(`${file} cannot be read: ${(error as NodeJS.ErrnoException).code === 'ENOENT' ? 'no such file' : (error as Error).message}`);
+    const code = (error as NodeJS.ErrnoException).code;
+    const why = code === 'ENOENT' ? 'no such file' : code === 'EISDIR' ? 'it is a folder' : (error as Error).message;
+    throw new JournalError(`${file} cannot be read: ${why}`);
   }
-  const end = text.lastIndexOf('\n');
-  const truncated = end !== text.length - 1;
-  const lines = (end < 0 ? '' : text.slice(0, end)).split('\n');
-  const first = lines[0];
   if (first === undefined || first === '') throw new JournalError(`${file} holds no complete line`);
-  const header = parseRecord(first) as JournalHeader;
-  if (header.journal !== 'fringe') throw new JournalError(`${file} is not a fringe journal`);
-  if (header.version !== JOURNAL_VERSION) {
-    throw new JournalError(`${file} is journal version ${header.version}; this fringe reads version ${JOURNAL_VERSION}`);
-  }
-  const records: JournalRecord[] = [];
-  for (let i = 1; i < lines.length; i++) {
-    const line = lines[i] as string;
-    if (line === '') continue;
+  let value: unknown = null;
+  if (first !== null) {
     try {
-      records.push(parseRecord(line) as JournalRecord);
+      value = parseRecord(first);
     } catch {
-      throw new JournalError(`${file} line ${i + 1} is not valid JSON`);
+      // Not JSON: no header (said below without quoting it: it may be binary).
     }
   }
-  return { header, records, truncated };
+  const problem = headerProblem(value);
+  if (problem) throw new JournalError(`${file} ${problem}`);
+  return value as JournalHeader;
+}
+
+/**
+ * The complete lines of `file`, numbered from 1, read `chunkBytes` at a time. Lines are cut on
+ * the newline byte before decoding (UTF-8 never uses it inside a character), so a character split
+ * across chunks decodes whole. A line over `maxLineBytes` is yielded as null and not held (or ends
+ * the scan, `stopAtLongLine`: a header is never that long, so no need to read on). The bytes
+ * after the last newline are not a line: their count is left in `tail.bytes`.
+ */
+function* scanLines(
+  file: string,
+  chunkBytes: number,
+  maxLineBytes: number,
+  tail: { bytes: number },
+  stopAtLongLine = false,
+): Generator<{ number: number; text: string | null }> {
+  const fd = openSync(file, 'r');
+  try {
+    const chunk = Buffer.allocUnsafe(chunkBytes);
+    let parts: Buffer[] = [];
+    let partBytes = 0;
+    let number = 1;
+    let position = 0;
+    for (;;) {
+      const n = readSync(fd, chunk, 0, chunkBytes, position);
+      if (n === 0) break;
+      position += n;
+      let start = 0;
+      for (let nl = chunk.indexOf(10, start); nl >= 0 && nl < n; nl = chunk.indexOf(10, start)) {
+        const length = partBytes + nl - start;
+        let text: string | null = null;
+        if (length <= maxLineBytes) {
+          text = parts.length === 0 ? chunk.toString('utf8', start, nl) : Buffer.concat([...parts, chunk.subarray(start, nl)]).toString('utf8');
+        }
+        yield { number, text };
+        number++;
+        parts = [];
+        partBytes = 0;
+        start = nl + 1;
+      }
+      if (start < n) {
+        partBytes += n - start;
+        // Past the limit the line's bytes are only counted (it is yielded as null).
+        if (partBytes <= maxLineBytes) parts.push(Buffer.from(chunk.subarray(start, n)));
+        else if (stopAtLongLine) {
+          yield { number, text: null };
+          return;
+        } else parts = [];
+      }
+    }
+    tail.bytes = partBytes;
+  } finally {
+    closeSync(fd);
+  }
 }

@@ -2,8 +2,13 @@
  * Writing a run to `runs/<id>/`: the journal is appended in batches, flushed at least once a
  * second and synced to disk at every cut and alert, so a crash loses at most the last second of
  * readings and never a decision. The summary is written atomically (temp file, then rename).
+ *
+ * A failed write (a full disk, an I/O error) never stops the run: the lines stay buffered and
+ * are retried at the next flush, the failure is reported once through `onWriteError` and the
+ * recovery through `onWriteRecovered`. While the disk refuses, the buffer is bounded: the oldest
+ * readings go first, counted; events are never dropped.
  */
-import { closeSync, existsSync, fsyncSync, mkdirSync, openSync, renameSync, statSync, writeFileSync, writeSync } from 'node:fs';
+import { closeSync, existsSync, fsyncSync, mkdirSync, openSync, readSync, renameSync, statSync, writeFileSync, writeSync } from 'node:fs';
 import { join } from 'node:path';
 import type { RunEvent } from '../pipeline/events.ts';
 import type { PipelineInput } from '../pipeline/types.ts';
@@ -12,78 +17,246 @@ import { JOURNAL_VERSION, readingRecord, stringifyRecord, type JournalHeader, ty
 export interface JournalWriter {
   readonly dir: string;
   readonly file: string;
-  /** Records an input: readings in compact form, others whole. */
+  /** Records an input: readings in compact form, others whole. Never throws. */
   input(input: PipelineInput): void;
-  /** Records a decision; cuts, alerts and the run's end are synced to disk at once. */
+  /** Records a decision; cuts, alerts and the run's end are synced to disk at once. Never throws. */
   event(event: RunEvent): void;
-  /** Writes what is buffered. */
+  /** Writes what is buffered. Never throws: a failure keeps the lines for the next flush. */
   flush(): void;
-  /** Writes and syncs to disk what is buffered. */
+  /** Writes and syncs to disk what is buffered. Never throws. */
   sync(): void;
-  /** Writes a file beside the journal atomically. */
+  /** Writes a file beside the journal atomically (throws when it cannot). */
   writeFile(name: string, text: string): void;
-  close(): void;
+  /** Flushes, syncs and closes; says what could not be written. */
+  close(): JournalLoss;
 }
+
+/** What the journal holds back or has lost while writes fail. */
+export interface JournalLoss {
+  /** Bytes buffered and not yet written. */
+  pendingBytes: number;
+  /** Readings dropped to keep the buffer bounded, since the writer opened. */
+  droppedReadings: number;
+}
+
+/** Writes `text` at the file's end from `offset`; returns the bytes written (may be fewer). */
+export type JournalWrite = (fd: number, data: Buffer, offset: number) => number;
 
 export interface JournalWriterOptions {
   /** Flush at least this often, ms (default 1000). */
   flushIntervalMs?: number;
   /** Flush when this many bytes are waiting (default 256 KiB). */
   maxBufferBytes?: number;
+  /** While writes fail, keep at most this many bytes; the oldest readings are dropped past it (default 64 MiB). */
+  maxPendingBytes?: number;
+  /**
+   * Appending to an existing journal: the resumed run's time, s. The writer then starts on a
+   * fresh line (a crash may have left half of one) and records a `resumed` mark. Without it, an
+   * existing journal is refused: it belongs to another run.
+   */
+  resumedAtS?: number;
+  /** The first failed write of an episode (later failures in it are not reported again). */
+  onWriteError?: (error: Error, loss: JournalLoss) => void;
+  /** The first write that succeeds after a failure: everything held back is on disk. */
+  onWriteRecovered?: (loss: JournalLoss) => void;
+  /** The write itself (default fs.writeSync); tests inject failures here. */
+  write?: JournalWrite;
+  /** The sync to disk (default fs.fsyncSync). */
+  fsync?: (fd: number) => void;
 }
 
 const SYNCED_EVENTS = new Set<RunEvent['type']>(['cut', 'alert', 'layer-finished', 'run-finished', 'mode-changed']);
 
+interface PendingLine {
+  readonly text: string;
+  readonly bytes: number;
+  /** Readings may be dropped when the buffer overflows; nothing else may. */
+  readonly reading: boolean;
+}
+
 /**
  * Creates `dir` (and parents) and opens its journal for appending, first line the header. An
- * existing journal (a resumed run) is appended to as it is: it keeps its one header.
+ * existing journal is appended to only when resuming (`resumedAtS`): it keeps its one header.
+ * Opening throws (a JournalWriteError, one sentence) when the journal cannot be started at all.
  */
 export function createJournalWriter(
   dir: string,
   header: Omit<JournalHeader, 'journal' | 'version'>,
   options: JournalWriterOptions = {},
 ): JournalWriter {
-  mkdirSync(dir, { recursive: true });
   const file = join(dir, 'journal.ndjson');
-  const resuming = existsSync(file) && statSync(file).size > 0;
-  const fd = openSync(file, 'a');
+  const write: JournalWrite = options.write ?? ((fd, data, offset) => writeSync(fd, data, offset));
+  const fsync = options.fsync ?? fsyncSync;
   const maxBytes = options.maxBufferBytes ?? 256 * 1024;
-  let buffer: string[] = [];
-  let bytes = 0;
+  const maxPendingBytes = options.maxPendingBytes ?? 64 * 1024 * 1024;
+  let fd: number;
+  let resuming: boolean;
+  let endsMidLine = false;
+  try {
+    mkdirSync(dir, { recursive: true });
+    resuming = existsSync(file) && statSync(file).size > 0;
+    if (resuming && options.resumedAtS === undefined) throw new Error('it already holds a journal of another run');
+    fd = openSync(file, 'a+');
+    if (resuming) endsMidLine = lastByte(fd, statSync(file).size) !== 0x0a;
+  } catch (error) {
+    throw new JournalWriteError(`${file} cannot be opened for the journal: ${(error as Error).message}`);
+  }
+
+  let queue: PendingLine[] = [];
+  let queueBytes = 0;
+  /** The rest of a line a failed write cut short: written first, never dropped. */
+  let partial: Buffer | null = null;
+  let droppedReadings = 0;
+  /** What is failing now: writes (lines held back) or only syncs (lines written, maybe not on disk). */
+  let failing: 'write' | 'sync' | null = null;
+  /** While opening, failures are thrown, not reported. */
+  let opening = true;
+  let firstError: Error | undefined;
   let closed = false;
 
+  const loss = (): JournalLoss => ({ pendingBytes: queueBytes + (partial?.length ?? 0), droppedReadings });
+  const report = (callback: (() => void) | undefined): void => {
+    try {
+      callback?.();
+    } catch {
+      // A failing reporter must not stop the journal (nor the run).
+    }
+  };
+  const failed = (cause: unknown, what: 'write' | 'sync'): void => {
+    const error = cause instanceof Error ? cause : new Error(String(cause));
+    firstError ??= error;
+    const known = failing !== null;
+    if (failing !== 'write') failing = what;
+    if (!known && !opening) report(() => options.onWriteError?.(error, loss()));
+  };
+  const recovered = (): void => {
+    failing = null;
+    report(() => options.onWriteRecovered?.(loss()));
+  };
+
+  /** Writes `data` whole, or throws with `written` bytes of it on disk. */
+  const writeAll = (data: Buffer): void => {
+    let written = 0;
+    try {
+      while (written < data.length) written += write(fd, data, written);
+    } catch (error) {
+      throw new WriteFailure(error, written);
+    }
+  };
+
+  /** Writes what is buffered; true when nothing is left. */
+  const writeOut = (): boolean => {
+    const rest = partial;
+    if (rest) {
+      try {
+        writeAll(rest);
+        partial = null;
+      } catch (failure) {
+        partial = rest.subarray((failure as WriteFailure).written);
+        failed((failure as WriteFailure).reason, 'write');
+        return false;
+      }
+    }
+    if (queue.length === 0) return true;
+    const data = Buffer.from(queue.map((l) => l.text).join(''));
+    try {
+      writeAll(data);
+      queue = [];
+      queueBytes = 0;
+      return true;
+    } catch (failure) {
+      // Keep the lines not written whole; the rest of the one cut short goes first next time.
+      let written = (failure as WriteFailure).written;
+      let done = 0;
+      while (done < queue.length && written >= (queue[done] as PendingLine).bytes) {
+        written -= (queue[done] as PendingLine).bytes;
+        queueBytes -= (queue[done] as PendingLine).bytes;
+        done++;
+      }
+      if (written > 0) {
+        const cut = queue[done] as PendingLine;
+        partial = Buffer.from(cut.text).subarray(written);
+        queueBytes -= cut.bytes;
+        done++;
+      }
+      queue = queue.slice(done);
+      failed((failure as WriteFailure).reason, 'write');
+      return false;
+    }
+  };
+
   const flush = (): void => {
-    if (buffer.length === 0 || closed) return;
-    writeSync(fd, buffer.join(''));
-    buffer = [];
-    bytes = 0;
+    if (closed) return;
+    if (writeOut() && failing === 'write') recovered();
   };
   const sync = (): void => {
+    if (closed) return;
     flush();
-    if (!closed) fsyncSync(fd);
+    if (failing === 'write') return;
+    try {
+      fsync(fd);
+      if (failing === 'sync') recovered();
+    } catch (error) {
+      // The lines reached the system but may not reach the disk: say so; the next sync may do.
+      failed(error, 'sync');
+    }
   };
-  const push = (record: JournalRecord | JournalHeader): void => {
-    const line = `${stringifyRecord(record)}\n`;
-    buffer.push(line);
-    bytes += line.length;
-    if (bytes >= maxBytes) flush();
+
+  /** Past the bound while writes fail, drop the oldest readings (down to 7/8 of it, so rarely). */
+  const bound = (): void => {
+    if (queueBytes <= maxPendingBytes) return;
+    const target = (maxPendingBytes * 7) / 8;
+    const kept: PendingLine[] = [];
+    for (const line of queue) {
+      if (line.reading && queueBytes > target) {
+        queueBytes -= line.bytes;
+        droppedReadings++;
+      } else kept.push(line);
+    }
+    queue = kept;
   };
+
+  const push = (record: JournalRecord | JournalHeader, reading: boolean): void => {
+    if (closed) return;
+    const text = `${stringifyRecord(record)}\n`;
+    const bytes = Buffer.byteLength(text);
+    queue.push({ text, bytes, reading });
+    queueBytes += bytes;
+    if (failing === 'write') bound();
+    // While the disk refuses, retry at the flush timer and at syncs, not at every reading.
+    else if (queueBytes >= maxBytes) flush();
+  };
+
   const timer = setInterval(flush, options.flushIntervalMs ?? 1000);
   timer.unref();
 
-  if (!resuming) {
-    push({ journal: 'fringe', version: JOURNAL_VERSION, ...header });
-    sync();
+  if (!resuming) push({ journal: 'fringe', version: JOURNAL_VERSION, ...header }, false);
+  else {
+    // A crash may have cut the last line short: start on a fresh one (the half line is then one
+    // damaged line that readers skip), and note where the run was taken up again.
+    if (endsMidLine) {
+      queue.push({ text: '\n', bytes: 1, reading: false });
+      queueBytes += 1;
+    }
+    const atS = options.resumedAtS as number;
+    push({ k: 'm', t: Number.isFinite(atS) ? atS : 0, mark: 'resumed', at: header.startedAt, meta: header.meta }, false);
+  }
+  sync();
+  opening = false;
+  if (failing) {
+    clearInterval(timer);
+    closeQuietly(fd);
+    throw new JournalWriteError(`${file} cannot be written: ${firstError?.message ?? 'unknown error'}`);
   }
 
   return {
     dir,
     file,
     input(input) {
-      push(input.kind === 'reading' ? readingRecord(input) : { k: 'i', t: input.kind === 'fault' ? input.arrivalS : input.timeS, input });
+      push(input.kind === 'reading' ? readingRecord(input) : { k: 'i', t: input.kind === 'fault' ? input.arrivalS : input.timeS, input }, input.kind === 'reading');
     },
     event(event) {
-      push({ k: 'e', event });
+      push({ k: 'e', event }, false);
       if (SYNCED_EVENTS.has(event.type)) sync();
     },
     flush,
@@ -98,11 +271,46 @@ export function createJournalWriter(
       renameSync(temp, target);
     },
     close() {
-      if (closed) return;
+      if (closed) return loss();
       clearInterval(timer);
       sync();
       closed = true;
-      closeSync(fd);
+      closeQuietly(fd);
+      return loss();
     },
   };
+}
+
+/** The journal could not be opened or started: one sentence naming the file. */
+export class JournalWriteError extends Error {
+  override name = 'JournalWriteError';
+}
+
+/** A write that failed part-way: why, and how much of its data reached the file. */
+class WriteFailure extends Error {
+  constructor(
+    readonly reason: unknown,
+    readonly written: number,
+  ) {
+    super(reason instanceof Error ? reason.message : String(reason));
+  }
+}
+
+/** "3.2 MiB held back, 1200 readings dropped", for a message. */
+export function describeLoss(loss: JournalLoss): string {
+  const held = `${(loss.pendingBytes / 1024).toFixed(0)} KiB held back`;
+  return loss.droppedReadings > 0 ? `${held}, ${loss.droppedReadings} readings dropped` : held;
+}
+
+function lastByte(fd: number, size: number): number {
+  const one = Buffer.alloc(1);
+  return readSync(fd, one, 0, 1, size - 1) === 1 ? (one[0] as number) : -1;
+}
+
+function closeQuietly(fd: number): void {
+  try {
+    closeSync(fd);
+  } catch {
+    // Nothing more can be saved through it.
+  }
 }

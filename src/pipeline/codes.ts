@@ -24,7 +24,9 @@ export type AlertCode =
   | 'close-confirmed'
   | 'operator-confirmed-close'
   | 'source-lost'
-  | 'source-restored';
+  | 'source-restored'
+  | 'journal-write-failed'
+  | 'journal-recovered';
 
 export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: string }>> = {
   'fault-not-a-number': { severity: 'warning', sentence: 'A reading was not a number and was not used.' },
@@ -53,4 +55,9 @@ export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: 
   'operator-confirmed-close': { severity: 'warning', sentence: 'The operator resumed with a shutter’s close unconfirmed, vouching that it is shut.' },
   'source-lost': { severity: 'critical', sentence: 'An instrument connection was lost; fringe is reconnecting.' },
   'source-restored': { severity: 'info', sentence: 'An instrument connection is back.' },
+  'journal-write-failed': {
+    severity: 'critical',
+    sentence: 'The journal cannot be written (disk full or failing): the run goes on, its lines are held in memory and retried; free space now.',
+  },
+  'journal-recovered': { severity: 'info', sentence: 'The journal is being written again; what was held back is on disk.' },
 };

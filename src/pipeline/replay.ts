@@ -4,7 +4,7 @@
  * With the recorded recipe every decision is reproduced exactly: the controller is a pure
  * function of its inputs, and the journal holds all of them, ticks included.
  */
-import { recordToInput, type JournalRecord } from '../journal/journal-format.ts';
+import { recordToInput, type JournalMark, type JournalRecord } from '../journal/journal-format.ts';
 import type { Controller, ControllerState } from './controller.ts';
 import type { RunEvent } from './events.ts';
 import { runPaced, type SteppedRun } from './run-stepped.ts';
@@ -26,6 +26,8 @@ export interface ReplayResult {
   state: ControllerState;
   events: RunEvent[];
   recordedEvents: RunEvent[];
+  /** The journal's notes on the run itself: where resumed sessions took it up. */
+  marks: JournalMark[];
   cuts: CutComparison[];
   /** Readings and other inputs fed. */
   inputs: number;
@@ -36,9 +38,10 @@ export interface ReplayResult {
 /**
  * Feeds every input of `records` to `controller`. The journal's own readings do not answer the
  * replayed controller's shutter commands — the chamber's response is what was recorded — so a
- * changed recipe shows where it would have cut on the same signal.
+ * changed recipe shows where it would have cut on the same signal. The records are taken one by
+ * one (a journal read as a stream is never held whole); the recorded events are kept.
  */
-export function replayJournal(records: readonly JournalRecord[], controller: Controller, onEvent?: (event: RunEvent) => void): ReplayResult {
+export function replayJournal(records: Iterable<JournalRecord>, controller: Controller, onEvent?: (event: RunEvent) => void): ReplayResult {
   const replay = collect(records, controller, onEvent);
   replay.run.runUntil(Number.POSITIVE_INFINITY);
   return replay.result();
@@ -49,7 +52,7 @@ export function replayJournal(records: readonly JournalRecord[], controller: Con
  * its recorded time (the dashboard watches a replay as it would a run).
  */
 export async function replayJournalPaced(
-  records: readonly JournalRecord[],
+  records: Iterable<JournalRecord>,
   controller: Controller,
   speed: number,
   onEvent?: (event: RunEvent) => void,
@@ -59,17 +62,22 @@ export async function replayJournalPaced(
   return replay.result();
 }
 
+type InputRecord = Extract<JournalRecord, { k: 'r' | 'i' }>;
+
 /**
- * A journal's inputs as a stepped run (recorded events skipped), to be run at full speed or
- * spread over wall time by `runPaced`.
+ * A journal's inputs as a stepped run (recorded events and marks passed to `onRecord`, not fed),
+ * to be run at full speed or spread over wall time by `runPaced`. Records are pulled from
+ * `records` one ahead of the run.
  */
 export function createJournalRun(
-  records: readonly JournalRecord[],
+  records: Iterable<JournalRecord>,
   controller: Controller,
-  callbacks: { onInput?: (input: PipelineInput) => void; onEvent?: (event: RunEvent) => void } = {},
+  callbacks: { onInput?: (input: PipelineInput) => void; onEvent?: (event: RunEvent) => void; onRecord?: (record: Exclude<JournalRecord, InputRecord>) => void } = {},
 ): SteppedRun {
+  const iterator = records[Symbol.iterator]();
   let state: ControllerState = controller.initial();
-  let next = 0;
+  let next: InputRecord | undefined;
+  let ended = false;
   let now = 0;
   const apply = (input: PipelineInput): void => {
     callbacks.onInput?.(input);
@@ -77,13 +85,16 @@ export function createJournalRun(
     state = result.state;
     for (const event of result.events) callbacks.onEvent?.(event);
   };
-  const skipEvents = (): void => {
-    while (next < records.length && (records[next] as JournalRecord).k === 'e') next++;
+  const peek = (): InputRecord | undefined => {
+    while (next === undefined && !ended) {
+      const item = iterator.next();
+      if (item.done) ended = true;
+      else if (item.value.k === 'r' || item.value.k === 'i') next = item.value;
+      else callbacks.onRecord?.(item.value);
+    }
+    return next;
   };
-  const running = (): boolean => {
-    skipEvents();
-    return next < records.length && state.phase !== 'finished' && state.phase !== 'aborted';
-  };
+  const running = (): boolean => peek() !== undefined && state.phase !== 'finished' && state.phase !== 'aborted';
   return {
     get state() {
       return state;
@@ -97,9 +108,9 @@ export function createJournalRun(
     apply,
     runUntil(untilS) {
       while (running()) {
-        const record = records[next] as Exclude<JournalRecord, { k: 'e' }>;
+        const record = next as InputRecord;
         if (record.t > untilS) break;
-        next++;
+        next = undefined;
         const input = recordToInput(record);
         if (input) apply(input);
         now = Math.max(now, record.t);
@@ -109,21 +120,31 @@ export function createJournalRun(
   };
 }
 
-
-function collect(records: readonly JournalRecord[], controller: Controller, onEvent?: (event: RunEvent) => void): { run: SteppedRun; result(): ReplayResult } {
+function collect(records: Iterable<JournalRecord>, controller: Controller, onEvent?: (event: RunEvent) => void): { run: SteppedRun; result(): ReplayResult } {
   const events: RunEvent[] = [];
+  const recordedEvents: RunEvent[] = [];
+  const marks: JournalMark[] = [];
   let inputs = 0;
-  const run = createJournalRun(records, controller, {
+  const onRecord = (r: Exclude<JournalRecord, InputRecord>): void => {
+    if (r.k === 'e') recordedEvents.push(r.event);
+    else marks.push(r);
+  };
+  // One pass over the records: what the run leaves unread (after its end) is read for its events.
+  const iterator = records[Symbol.iterator]();
+  const run = createJournalRun({ [Symbol.iterator]: () => iterator }, controller, {
     onInput: () => inputs++,
     onEvent: (e) => {
       events.push(e);
       onEvent?.(e);
     },
+    onRecord,
   });
-  const recordedEvents = records.flatMap((r): RunEvent[] => (r.k === 'e' ? [r.event] : []));
   return {
     run,
-    result: () => ({ state: run.state, events, recordedEvents, cuts: compareCuts(recordedEvents, events), inputs, firstDifference: firstDifference(recordedEvents, events) }),
+    result: () => {
+      for (let item = iterator.next(); !item.done; item = iterator.next()) if (item.value.k === 'e' || item.value.k === 'm') onRecord(item.value);
+      return { state: run.state, events, recordedEvents, marks, cuts: compareCuts(recordedEvents, events), inputs, firstDifference: firstDifference(recordedEvents, events) };
+    },
   };
 }
 

@@ -6,7 +6,7 @@
  */
 import { readFileSync } from 'node:fs';
 import { journalConfirmsCloses, journalEstimator } from '../journal/journal-format.ts';
-import { readJournal } from '../journal/journal-reader.ts';
+import { openJournal } from '../journal/journal-reader.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import { createController } from '../pipeline/controller.ts';
 import { createJournalRun } from '../pipeline/replay.ts';
@@ -20,9 +20,9 @@ export interface JournalReplay {
   readonly done: Promise<void>;
 }
 
-/** Replays a run folder (it needs its `recipe.json`) at `speed` × real time into a fresh hub. */
+/** Replays a run folder (it needs its `recipe.json`) at `speed` × real time into a fresh hub, reading its journal as it goes. */
 export function startJournalReplay(folder: RunFolder, speed: number, signal?: AbortSignal): JournalReplay {
-  const journal = readJournal(folder.journalFile);
+  const journal = openJournal(folder.journalFile);
   const recipe = JSON.parse(readFileSync(folder.recipeFile, 'utf8')) as ResolvedRecipe;
   const hub = createRunHub({ recipe, source: 'replay', runId: folder.id, speed });
   const run = createJournalRun(journal.records, createController(recipe, { estimator: journalEstimator(journal.header), confirmCloses: journalConfirmsCloses(journal.header) }), { onInput: hub.feed.input, onEvent: hub.feed.event });

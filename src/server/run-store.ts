@@ -5,7 +5,7 @@
  */
 import { closeSync, existsSync, openSync, readdirSync, readFileSync, readSync, statSync } from 'node:fs';
 import { join, resolve, sep } from 'node:path';
-import { parseRecord, type JournalHeader } from '../journal/journal-format.ts';
+import { headerProblem, parseRecord, type JournalHeader } from '../journal/journal-format.ts';
 
 /** Run ids are folder names: letters, digits, dot, dash and underscore, not starting with a dot. */
 export const RUN_ID_PATTERN = '^[A-Za-z0-9][A-Za-z0-9._-]{0,127}$';
@@ -47,7 +47,7 @@ export function runFolder(runsDir: string, id: string): RunFolder | null {
   return { id, dir, journalFile, summaryFile: join(dir, 'summary.json'), recipeFile: join(dir, 'recipe.json') };
 }
 
-/** The journal's first line, read without loading the file. */
+/** The journal's first line, read without loading the file; null unless it is a header this fringe reads. */
 export function readJournalHeader(file: string): JournalHeader | null {
   let fd: number | undefined;
   try {
@@ -57,8 +57,9 @@ export function readJournalHeader(file: string): JournalHeader | null {
     const text = buffer.subarray(0, n).toString('utf8');
     const end = text.indexOf('\n');
     if (end < 0) return null;
-    const header = parseRecord(text.slice(0, end)) as Partial<JournalHeader> | null;
-    return header && header.journal === 'fringe' ? (header as JournalHeader) : null;
+    const header = parseRecord(text.slice(0, end));
+    // A damaged header (no meta, say) must not break the listing of the others.
+    return headerProblem(header) === null ? (header as JournalHeader) : null;
   } catch {
     return null;
   } finally {

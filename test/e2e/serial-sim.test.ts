@@ -2,7 +2,7 @@
 // (Debian socat), fringe's serialport driver on the other; then whole runs of the command line,
 // a crash (SIGKILL) in the middle of one, and its resumption.
 import { spawn, spawnSync, type ChildProcess } from 'node:child_process';
-import { existsSync, mkdtempSync, readdirSync, writeFileSync } from 'node:fs';
+import { appendFileSync, existsSync, mkdtempSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -142,14 +142,31 @@ needsSocat('the virtual chamber through a real serial port', () => {
     const lastReading = Math.max(...journal.records.flatMap((r) => (r.k === 'r' ? [r.t] : [])));
     const lastPrinted = Math.max(...[...printed.matchAll(/^\s*([\d.]+) s /gm)].map((m) => Number(m[1])));
     expect(lastReading).toBeGreaterThan(lastPrinted - 1.5 * 50);
-    // --resume continues layer 3 and finishes the run.
-    const resumed = fringe(['run', '--resume', runDir, '--clock', 'instrument']);
+    // A kill in the middle of a write leaves half a line: the resumed run must start on a fresh one.
+    const journalFile = join(runDir, 'journal.ndjson');
+    appendFileSync(journalFile, '{"k":"r","c":"o","t":12');
+    const tornLine = readFileSync(journalFile, 'utf8').split('\n').length;
+    // --resume continues layer 3 on the recorded (instrument) clock and finishes the run.
+    const resumed = fringe(['run', '--resume', runDir]);
     const code = await resumed.done;
     serve.child.kill('SIGTERM');
     expect(code, resumed.out()).toBe(0);
     expect(resumed.out()).toMatch(/resuming .* at layer 3/);
-    const after = readJournal(join(runDir, 'journal.ndjson'));
+    const after = readJournal(journalFile);
+    expect(after.firstDamaged).toEqual([{ line: tornLine, reason: 'not JSON' }]);
     const cutLayers = after.records.flatMap((r) => (r.k === 'e' && r.event.type === 'cut' ? [r.event.layer] : []));
     expect(cutLayers).toEqual([1, 2, 3, 4]);
-  });
+    // The journal says where the run was taken up, and the readings after it are on the
+    // instrument's clock (on the arrival clock their time would be their arrival).
+    const mark = after.records.findIndex((r) => r.k === 'm');
+    expect(after.records[mark]).toMatchObject({ k: 'm', mark: 'resumed', meta: { clock: 'instrument', estimator: 'fit' } });
+    const readingsAfter = after.records.slice(mark).flatMap((r) => (r.k === 'r' ? [r] : []));
+    expect(readingsAfter.length).toBeGreaterThan(100);
+    expect(readingsAfter.filter((r) => r.t === r.a)).toEqual([]);
+    // And the whole run still replays, saying what it skipped and where it was resumed.
+    const replay = fringe(['replay', runDir]);
+    expect(await replay.done, replay.out()).toBe(0);
+    expect(replay.out()).toMatch(/skipped 1 damaged line: line \d+ \(not JSON\)/);
+    expect(replay.out()).toMatch(/resumed at \d+\.\d s/);
+  }, 120000);
 });

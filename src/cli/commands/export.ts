@@ -1,14 +1,14 @@
 /** `fringe export RUN --csv`: a run's readings and events as CSV for a spreadsheet. */
 import { parseCommandArgs } from '../parse-command-args.ts';
 import type { RunEvent } from '../../pipeline/events.ts';
-import { CliError, writeOutputFile } from '../cli-error.ts';
+import { CliError, openOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
-import { readRecordedRun } from '../run-folder.ts';
+import { readRecordedRun, warnOfDamage } from '../run-folder.ts';
 
 export const exportUsage = `Usage: fringe export RUN --csv [--out FILE]
 
-Writes a run's readings (time_s, channel, value, arrival_s) and events (time_s, event, layer,
-detail) as CSV: to FILE, or to standard output.
+Writes a run's readings (time_s, channel, value, arrival_s), events (time_s, event, layer,
+detail) and marks (where the run was resumed) as CSV: to FILE, or to standard output.
 `;
 
 export function runExport(argv: string[], io: CommandIo): number {
@@ -24,18 +24,32 @@ export function runExport(argv: string[], io: CommandIo): number {
   }
   if (positionals.length !== 1) throw new CliError('export needs exactly one RUN (a run folder or a journal file)');
   if (!values.csv) throw new CliError('say which format: --csv');
-  const { journal } = readRecordedRun(positionals[0] as string);
-  const rows = ['time_s,kind,channel_or_event,value,arrival_s,layer,detail'];
-  for (const r of journal.records) {
-    if (r.k === 'r') rows.push(`${r.t},reading,${r.c === 'o' ? 'optical' : 'crystal'},${r.v},${r.a},,`);
-    else if (r.k === 'i' && r.input.kind !== 'tick') rows.push(`${r.t},input,${r.input.kind},,,,${csvText(JSON.stringify(r.input))}`);
-    else if (r.k === 'e' && r.event.type !== 'replanned') rows.push(`${r.event.timeS},event,${r.event.type},${valueOf(r.event)},,${'layer' in r.event ? (r.event.layer ?? '') : ''},${csvText(detailOf(r.event))}`);
+  const recorded = readRecordedRun(positionals[0] as string);
+  // Rows go out in batches as the journal is read: a long run's CSV is never one string.
+  const out = values.out ? openOutputFile(values.out) : { write: (text: string) => io.out(text), close: () => undefined };
+  let batch: string[] = ['time_s,kind,channel_or_event,value,arrival_s,layer,detail'];
+  let rows = 0;
+  const emit = (row: string): void => {
+    batch.push(row);
+    rows++;
+    if (batch.length >= 8192) {
+      out.write(`${batch.join('\n')}\n`);
+      batch = [];
+    }
+  };
+  try {
+    for (const r of recorded.journal.records) {
+      if (r.k === 'r') emit(`${r.t},reading,${r.c === 'o' ? 'optical' : 'crystal'},${r.v},${r.a},,`);
+      else if (r.k === 'i' && r.input.kind !== 'tick') emit(`${r.t},input,${r.input.kind},,,,${csvText(JSON.stringify(r.input))}`);
+      else if (r.k === 'e' && r.event.type !== 'replanned') emit(`${r.event.timeS},event,${r.event.type},${valueOf(r.event)},,${'layer' in r.event ? (r.event.layer ?? '') : ''},${csvText(detailOf(r.event))}`);
+      else if (r.k === 'm') emit(`${r.t},mark,${r.mark},,,,${csvText(`at ${r.at}`)}`);
+    }
+    if (batch.length > 0) out.write(`${batch.join('\n')}\n`);
+  } finally {
+    out.close();
   }
-  const text = `${rows.join('\n')}\n`;
-  if (values.out) {
-    writeOutputFile(values.out, text);
-    io.err(`wrote ${values.out} (${rows.length - 1} rows)`);
-  } else io.out(text);
+  warnOfDamage(recorded, io);
+  if (values.out) io.err(`wrote ${values.out} (${rows} rows)`);
   return 0;
 }
 

@@ -13,7 +13,7 @@ import { replayJournal, replayJournalPaced, type CutComparison } from '../../pip
 import { startJournalReplay } from '../../server/journal-run.ts';
 import { journalConfirmsCloses, journalEstimator } from '../../journal/journal-format.ts';
 import { CliError, estimatorOption } from '../cli-error.ts';
-import { readRecordedRecipe, readRecordedRun } from '../run-folder.ts';
+import { readRecordedRecipe, readRecordedRun, warnOfDamage } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
 import type { CommandIo } from '../command-io.ts';
 
@@ -52,7 +52,8 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
     return 0;
   }
   if (positionals.length !== 1) throw new CliError('replay needs exactly one RUN (a run folder or a journal file)');
-  const { dir, journalFile, journal } = readRecordedRun(positionals[0] as string);
+  const recorded = readRecordedRun(positionals[0] as string);
+  const { dir, journalFile, journal } = recorded;
   const recipe: ResolvedRecipe = values.recipe
     ? loadRecipe(values.recipe, loadMaterialLibrary(values.materials))
     : readRecordedRecipe(dir, 'give one with --recipe');
@@ -83,18 +84,22 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
         if (e.type === 'cut' && !values.json) io.out(`${e.timeS.toFixed(1).padStart(8)} s  layer ${e.layer} cut (${e.reason}), about ${e.estimatedNm.toFixed(2)} nm`);
       })
     : replayJournal(journal.records, controller);
+  warnOfDamage(recorded, io);
+  const { truncated, damagedLines } = journal.report;
+  const resumedAtS = result.marks.filter((m) => m.mark === 'resumed').map((m) => m.t);
   const differing = result.cuts.filter((c) => c.differs).length;
   if (values.json) {
-    io.out(JSON.stringify({ run: journal.header.runId, recipe: recipe.name, truncated: journal.truncated, inputs: result.inputs, differing, layers: result.cuts, firstDifference: result.firstDifference }));
+    io.out(JSON.stringify({ run: journal.header.runId, recipe: recipe.name, truncated, damagedLines, resumedAtS, inputs: result.inputs, differing, layers: result.cuts, firstDifference: result.firstDifference }));
   } else {
-    io.out(formatComparison(journal.header.runId, recipe.name, result.inputs, journal.truncated, result.cuts));
+    io.out(formatComparison(journal.header.runId, recipe.name, result.inputs, truncated, resumedAtS, result.cuts));
   }
   return 0;
 }
 
-function formatComparison(runId: string, recipe: string, inputs: number, truncated: boolean, cuts: CutComparison[]): string {
+function formatComparison(runId: string, recipe: string, inputs: number, truncated: boolean, resumedAtS: number[], cuts: CutComparison[]): string {
+  const resumed = resumedAtS.length === 0 ? '' : `; resumed at ${resumedAtS.map((t) => `${t.toFixed(1)} s`).join(', ')}`;
   const rows = [
-    `replay of ${runId} with "${recipe}": ${inputs} inputs${truncated ? ' (the journal ends mid-line: read to its last complete line)' : ''}`,
+    `replay of ${runId} with "${recipe}": ${inputs} inputs${truncated ? ' (the journal ends mid-line: read to its last complete line)' : ''}${resumed}`,
     '',
     ' #   recorded cut s   replayed cut s    Δt s   recorded nm  replayed nm   reason',
   ];

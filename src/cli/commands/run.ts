@@ -10,16 +10,17 @@ import { loadChamber, openChamber } from '../../../drivers/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import { journalConfirmsCloses, journalEstimator } from '../../journal/journal-format.ts';
-import { createJournalWriter } from '../../journal/journal-writer.ts';
+import { createJournalWriter, describeLoss, JournalWriteError, type JournalWriter, type JournalWriterOptions } from '../../journal/journal-writer.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
+import { ALERTS } from '../../pipeline/codes.ts';
 import { createController, type ControllerState } from '../../pipeline/controller.ts';
 import type { RunEvent } from '../../pipeline/events.ts';
 import { createLiveRun } from '../../pipeline/live-run.ts';
 import { replayJournal } from '../../pipeline/replay.ts';
 import type { OperatorAction, ReadingSource } from '../../pipeline/types.ts';
-import { createRunHub } from '../../server/run-hub.ts';
+import { createRunHub, type RunHub } from '../../server/run-hub.ts';
 import { CliError, estimatorOption } from '../cli-error.ts';
-import { readRecordedRecipe, readRecordedRun } from '../run-folder.ts';
+import { readRecordedRecipe, readRecordedRun, warnOfDamage } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
 import { driveRun } from '../drive-run.ts';
 import type { CommandIo } from '../command-io.ts';
@@ -36,13 +37,20 @@ and interlocks stay in charge.
   --chamber FILE        the chamber file: instruments, ports, line formats, shutters
   --runs DIR            where runs are kept (default: runs)
   --clock arrival|instrument   decide on the host's clock (default) or the readings' own
+                        (a resumed run keeps the clock and the estimator it was recorded with)
   --estimator fit|plain  cut optical layers on the model fit (default) or the plain rules
   --resume RUN          continue the run in RUN (a run folder) after a crash
   --serve               serve the live dashboard on 127.0.0.1 (--port N, default 7300; --host wider warns)
   --materials FILE      material library (default: the shipped config/materials.yaml)
 `;
 
-export async function runLive(argv: string[], io: CommandIo): Promise<number> {
+/** What a test may put in place of the real thing. */
+export interface RunLiveDeps {
+  /** The journal's own write and sync to disk (a test makes them fail). */
+  journal?: Pick<JournalWriterOptions, 'write' | 'fsync'>;
+}
+
+export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps = {}): Promise<number> {
   const { values, positionals } = parseCommandArgs({
     args: argv,
     allowPositionals: true,
@@ -64,8 +72,9 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
     io.out(runUsage);
     return 0;
   }
-  const runClock = values.clock ?? 'arrival';
-  if (runClock !== 'arrival' && runClock !== 'instrument') throw new CliError(`--clock must be arrival or instrument, got "${runClock}"`);
+  const clockOption = values.clock ?? 'arrival';
+  if (clockOption !== 'arrival' && clockOption !== 'instrument') throw new CliError(`--clock must be arrival or instrument, got "${clockOption}"`);
+  let runClock: 'arrival' | 'instrument' = clockOption;
 
   let estimator = estimatorOption(values.estimator);
   let recipe: ResolvedRecipe;
@@ -84,7 +93,14 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
       throw new CliError(`the run in ${runDir} cuts with the ${recordedEstimator === 'fit' ? 'model fit' : 'plain rules'}; it resumes the same way (leave out --estimator)`);
     }
     estimator = recordedEstimator;
+    // And on its recorded clock (journals from before it was recorded: the arrival clock, then the only one).
+    const recordedClock = journal.header.meta.clock === 'instrument' ? 'instrument' : 'arrival';
+    if (values.clock !== undefined && runClock !== recordedClock) {
+      throw new CliError(`the run in ${runDir} decides on the ${recordedClock} clock; it resumes on it (leave out --clock)`);
+    }
+    runClock = recordedClock;
     resumeFrom = replayJournal(journal.records, createController(recipe, { estimator, confirmCloses: journalConfirmsCloses(journal.header) })).state;
+    warnOfDamage(recorded, io);
     if (resumeFrom.phase === 'finished' || resumeFrom.phase === 'aborted') throw new CliError(`the run in ${runDir} has already ${resumeFrom.phase === 'finished' ? 'finished' : 'been aborted'}`, 1);
     chamberFile ??= join(runDir, 'chamber.yaml');
     io.err(`resuming ${runDir} at layer ${resumeFrom.index + 1} (${resumeFrom.phase}), run time ${resumeFrom.nowS.toFixed(1)} s`);
@@ -101,12 +117,19 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
     await drivers.close();
     throw new CliError(`${chamberFile} names no shutters: fringe cannot cut without them`, 1);
   }
-  const journal = createJournalWriter(runDir, {
-    runId: runDir.split(/[\\/]/).pop() ?? runDir,
-    startedAt: new Date().toISOString(),
-    recipe: recipe.name,
-    meta: { source: 'live', chamber: chamber.name, clock: runClock, estimator, confirmCloses: true, ...(resumeFrom ? { resumedAtS: resumeFrom.nowS } : {}) },
-  });
+  // A journal the disk refuses is an alert to the operator and the dashboard, not the run's end.
+  const journalAlerts = createJournalAlerts(io);
+  let journal: JournalWriter;
+  try {
+    journal = createJournalWriter(
+      runDir,
+      { runId: runDir.split(/[\\/]/).pop() ?? runDir, startedAt: new Date().toISOString(), recipe: recipe.name, meta: { source: 'live', chamber: chamber.name, clock: runClock, estimator, confirmCloses: true } },
+      { ...deps.journal, ...journalAlerts.writerOptions, ...(resumeFrom ? { resumedAtS: resumeFrom.nowS } : {}) },
+    );
+  } catch (error) {
+    await drivers.close();
+    throw error instanceof JournalWriteError ? new CliError(error.message, 1) : error;
+  }
   if (!resumeFrom) {
     journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
     journal.writeFile('chamber.yaml', readFileSync(chamberFile, 'utf8'));
@@ -132,6 +155,7 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
   // The dashboard sees the live run through a hub; its commands step the controller at once.
   let lastState: ControllerState = resumeFrom ?? controller.initial();
   const hub = values.serve ? createRunHub({ recipe, source: 'live', runId: runDir.split(/[\\/]/).pop() ?? null }) : undefined;
+  journalAlerts.attach(journal, () => (Number.isFinite(lastState.nowS) ? lastState.nowS : 0), hub);
   hub?.attach({
     get state() {
       return lastState;
@@ -176,11 +200,42 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
     },
   });
   for (const s of statusSubs) s.unsubscribe();
-  journal.close();
+  const lost = journal.close();
+  if (lost.pendingBytes > 0 || lost.droppedReadings > 0) io.err(`the journal is incomplete: ${describeLoss(lost)}`);
   await drivers.close();
   await dashboard?.close();
   io.err(`journal: ${runDir}`);
   return result.outcome === 'complete' ? 0 : 1;
+}
+
+/**
+ * The journal's write failures and recoveries as alerts: printed at once, and — once attached —
+ * journalled (they reach the disk with the lines held back) and fed to the dashboard.
+ */
+function createJournalAlerts(io: CommandIo): {
+  writerOptions: Pick<JournalWriterOptions, 'onWriteError' | 'onWriteRecovered'>;
+  attach(journal: JournalWriter, nowS: () => number, hub: RunHub | undefined): void;
+} {
+  let count = 0;
+  let target: { journal: JournalWriter; nowS: () => number; hub: RunHub | undefined } | undefined;
+  const raise = (code: 'journal-write-failed' | 'journal-recovered', detail: string): void => {
+    const { severity, sentence } = ALERTS[code];
+    const message = `${sentence} (${detail})`;
+    io.out(`ALERT ${severity} ${code}: ${message}`);
+    if (!target) return;
+    const event: RunEvent = { type: 'alert', timeS: target.nowS(), id: `J${++count}`, severity, code, message, layer: null };
+    target.journal.event(event);
+    target.hub?.feed.event(event);
+  };
+  return {
+    writerOptions: {
+      onWriteError: (error, loss) => raise('journal-write-failed', `${error.message}; ${describeLoss(loss)}`),
+      onWriteRecovered: (loss) => raise('journal-recovered', describeLoss(loss)),
+    },
+    attach: (journal, nowS, hub) => {
+      target = { journal, nowS, hub };
+    },
+  };
 }
 
 /** Resolves when every source has delivered a reading; rejects naming the silent ones after `timeoutMs`. */
