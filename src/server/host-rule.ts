@@ -41,6 +41,11 @@ interface HostName {
 
 const AUTHORITY = /^(\[[0-9a-f:.]+\]|[^\s:/?#@[\]\\]+)(?::(\d{1,5}))?$/i;
 
+/** Whether `text` is a host as a Host header gives it: `NAME`, `NAME:PORT`, `[IPv6]` or `[IPv6]:PORT`. */
+export function isHostName(text: string): boolean {
+  return parseAuthority(text) !== null;
+}
+
 function parseAuthority(text: string): HostName | null {
   const match = AUTHORITY.exec(text);
   if (!match) return null;

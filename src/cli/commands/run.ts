@@ -19,7 +19,7 @@ import { createLiveRun } from '../../pipeline/live-run.ts';
 import { replayJournal } from '../../pipeline/replay.ts';
 import type { OperatorAction, ReadingSource } from '../../pipeline/types.ts';
 import { createRunHub } from '../../server/run-hub.ts';
-import { CliError, estimatorOption } from '../cli-error.ts';
+import { allowHostOption, CliError, estimatorOption } from '../cli-error.ts';
 import { readRecordedRecipe, readRecordedRun } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
 import type { CommandIo } from '../command-io.ts';
@@ -36,7 +36,8 @@ control, not a safety system: the manual shutter controls and interlocks stay in
   --clock arrival|instrument   decide on the host's clock (default) or the readings' own
   --estimator fit|plain  cut optical layers on the model fit (default) or the plain rules
   --resume RUN          continue the run in RUN (a run folder) after a crash
-  --serve               serve the live dashboard on 127.0.0.1 (--port N, default 7300; --host wider warns)
+  --serve               serve the live dashboard on 127.0.0.1 (--port N, default 7300; --host wider warns;
+                        --allow-host NAME for another name it answers to, as in fringe demo --help)
   --materials FILE      material library (default: the shipped config/materials.yaml)
 `;
 
@@ -54,6 +55,7 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
       serve: { type: 'boolean' },
       port: { type: 'string' },
       host: { type: 'string' },
+      'allow-host': { type: 'string', multiple: true },
       materials: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
     },
@@ -62,6 +64,7 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
     io.out(runUsage);
     return 0;
   }
+  const allowedHosts = allowHostOption(values['allow-host']);
   const runClock = values.clock ?? 'arrival';
   if (runClock !== 'arrival' && runClock !== 'instrument') throw new CliError(`--clock must be arrival or instrument, got "${runClock}"`);
 
@@ -150,7 +153,7 @@ export async function runLive(argv: string[], io: CommandIo): Promise<number> {
       if (input.kind === 'operator') commands.next(input.alertId === undefined ? { action: input.action } : { action: input.action, alertId: input.alertId });
     },
   });
-  const dashboard = hub ? await serveDashboard(hub, join(runDir, '..'), values, io) : undefined;
+  const dashboard = hub ? await serveDashboard(hub, join(runDir, '..'), values, allowedHosts, io) : undefined;
 
   let outcome: 'complete' | 'aborted' | undefined;
   let subscription: { unsubscribe(): void } | undefined;
