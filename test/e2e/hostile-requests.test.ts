@@ -1,7 +1,7 @@
 // `fringe demo` in its own process, mid-run, under a bounded batch of hostile requests over raw
 // TCP on 127.0.0.1: malformed percent-encodings, absolute-form targets, bad and forged Hosts,
 // huge headers, odd methods, broken bodies, upgrade requests to every path with bad input,
-// connections reset right after asking, and paths and Hosts made up by fast-check. Afterwards
+// connections reset right after asking (upgrades and plain requests), and paths and Hosts made up by fast-check. Afterwards
 // the process must still be running with nothing on stderr, still answer /api/health and still
 // open the live feed; no request may have been answered with a server error.
 import { spawn, type ChildProcess } from 'node:child_process';
@@ -137,6 +137,10 @@ function hostileRequests(): { request: string | Buffer; reset?: boolean }[] {
     requests.push({ request: `GET ${path} HTTP/1.1\r\n${host}Connection: Upgrade\r\nUpgrade: websocket\r\nSec-WebSocket-Version: 99\r\n\r\n` });
     requests.push({ request: up(path), reset: true });
   }
+
+  // Plain requests reset right after asking, one with its body half sent.
+  requests.push({ request: get('/api/runs/%E0%A4%A'), reset: true }, { request: get('/api/run/snapshot'), reset: true });
+  requests.push({ request: post('/api/commands/hold', '{"pad":"x"}').slice(0, -4), reset: true });
 
   // Made-up paths and Hosts, each sent as a plain request and as an upgrade.
   const piece = fc.constantFrom('api', 'runs', 'live', 'replay', 'journal', 'health', 'commands', 'hold', '%', '%E0%A4%A', '%ff', '%2F', '%00', '..', '[', ']', '?', '#', '&viewer=', 'speed=', '%%', '\\', ':', '@', 'é');
