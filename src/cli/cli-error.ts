@@ -1,5 +1,6 @@
 import { closeSync, mkdirSync, openSync, writeFileSync, writeSync } from 'node:fs';
 import { dirname, resolve } from 'node:path';
+import { isHostName } from '../server/host-rule.ts';
 
 /** An error the command line reports as one sentence on stderr, with its exit code. */
 export class CliError extends Error {
@@ -26,6 +27,14 @@ export function estimatorOption(value: string | undefined, fallback: 'fit' | 'pl
   const estimator = value ?? fallback;
   if (estimator !== 'plain' && estimator !== 'fit') throw new CliError(`--estimator must be fit or plain, got "${estimator}"`);
   return estimator;
+}
+
+/** The names given with `--allow-host` (repeated, or separated by commas), each checked. */
+export function allowHostOption(values: readonly string[] | undefined): string[] {
+  const names = (values ?? []).flatMap((v) => v.split(',')).map((v) => v.trim()).filter((v) => v !== '');
+  const bad = names.find((name) => !isHostName(name));
+  if (bad !== undefined) throw new CliError(`--allow-host expects a host name, NAME or NAME:PORT (such as coater-pc.lab.example), got "${bad}"`);
+  return names;
 }
 
 /** Writes a file the user asked for (creating its folder), or says in one sentence why not. */

@@ -14,6 +14,8 @@ export async function serveDashboard(
   hub: RunHub,
   runsDir: string,
   values: { port?: string | undefined; host?: string | undefined },
+  /** Further names it answers to, from `allowHostOption` (checked before the run starts). */
+  allowedHosts: readonly string[],
   io: CommandIo,
 ): Promise<ServedDashboard> {
   const port = numberOption('port', values.port) ?? 7300;
@@ -21,7 +23,7 @@ export async function serveDashboard(
   const host = values.host ?? '127.0.0.1';
   const token = generateToken();
   const viewerToken = isLoopback(host) ? undefined : generateToken();
-  const app = buildServer({ hub, runsDir }, { token, viewerToken, host });
+  const app = buildServer({ hub, runsDir }, { token, viewerToken, host, allowedHosts });
   let address: string;
   try {
     address = await app.listen({ port, host });

@@ -10,6 +10,7 @@ import type { Writable } from 'node:stream';
 import fastifyStatic from '@fastify/static';
 import Fastify, { type FastifyInstance, type FastifyServerOptions } from 'fastify';
 import { isLoopback, redactUrl } from './auth.ts';
+import { createHostRule, splitTarget, type HostRule } from './host-rule.ts';
 import { commandsPlugin } from './plugins/commands.ts';
 import { healthPlugin } from './plugins/health.ts';
 import { livePlugin, type LiveOptions, type LiveStats } from './plugins/live.ts';
@@ -30,6 +31,13 @@ export interface ServerOptions {
   viewerToken?: string | undefined;
   /** Where the server will be bound; wider than loopback is reported by `exposed`. */
   host: string;
+  /**
+   * Further names the server answers to (`NAME`, or `NAME:PORT` for a forwarded port), beyond
+   * 127.0.0.1, localhost, [::1], the bound host and the address a connection was made to. Any
+   * other Host is refused with 421, so that a page of another site cannot reach the server
+   * under a name of its own.
+   */
+  allowedHosts?: readonly string[] | undefined;
   /** Fastify logging: off by default; `{ level, stream }` to capture. Tokens are never logged. */
   logger?: boolean | { level?: string; stream?: Writable };
   live?: Partial<LiveOptions>;
@@ -44,6 +52,8 @@ export interface ServerContext {
   readonly host: string;
   /** True when bound beyond this machine. */
   readonly exposed: boolean;
+  /** The names the server answers to (checked before anything else, for every route and feed). */
+  readonly hostRule: HostRule;
   /** Counters of the live feed (kept by the live plugin). */
   readonly liveStats: LiveStats;
 }
@@ -90,9 +100,17 @@ export function buildServer(deps: ServerDeps, options: ServerOptions): FastifyIn
     viewerToken: options.viewerToken,
     host: options.host,
     exposed: !isLoopback(options.host),
-    liveStats: { clients: 0, replays: 0, dropped: 0, resyncs: 0 },
+    hostRule: createHostRule(options.host, options.allowedHosts ?? []),
+    liveStats: { clients: 0, replays: 0, dropped: 0, resyncs: 0, evicted: 0 },
   } satisfies ServerContext);
 
+  app.addHook('onRequest', async (request, reply) => {
+    const { hostRule } = app.fringe;
+    const connection = request.raw.socket;
+    if (!hostRule.allows(splitTarget(request.raw.url ?? '/').authority ?? request.headers.host, connection)) {
+      await reply.code(421).send({ statusCode: 421, error: 'Misdirected Request', message: hostRule.refusal(connection) });
+    }
+  });
   app.addHook('onSend', async (request, reply, payload) => {
     reply.header('x-content-type-options', 'nosniff');
     reply.header('referrer-policy', 'no-referrer');

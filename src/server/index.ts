@@ -3,6 +3,8 @@ export { bearerToken, generateToken, isLoopback, mayView, redactUrl, tokensMatch
 export { buildServer, PUBLIC_DIR } from './build-server.ts';
 export type { ServerContext, ServerDeps, ServerOptions } from './build-server.ts';
 export { BoundedHistory } from './bounded-history.ts';
+export { createHostRule, decodeComponent, isHostName, splitTarget } from './host-rule.ts';
+export type { Connection, HostRule, RequestTarget } from './host-rule.ts';
 export { Decimator } from './decimator.ts';
 export type { DecimatedPoint } from './decimator.ts';
 export { startJournalReplay } from './journal-run.ts';

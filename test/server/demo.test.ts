@@ -1,6 +1,7 @@
 // `fringe demo`: a simulated run served on 127.0.0.1 with a fresh command token printed once,
 // still serving after the run ends, recorded in the runs folder.
 import { existsSync, readdirSync } from 'node:fs';
+import { get } from 'node:http';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { describe, expect, it } from 'vitest';
@@ -23,7 +24,7 @@ describe('fringe demo', () => {
     const io = captureIo();
     const stop = new AbortController();
     let info: { url: string; token: string } | undefined;
-    const exit = runDemo(['--recipe', AR4, '--speed', '5000', '--port', '0', '--runs', runs], io, {
+    const exit = runDemo(['--recipe', AR4, '--speed', '5000', '--port', '0', '--runs', runs, '--allow-host', 'coater-pc,coater-pc.lab.example', '--allow-host', 'localhost:8080'], io, {
       signal: stop.signal,
       onListening: (i) => {
         info = i;
@@ -49,6 +50,14 @@ describe('fringe demo', () => {
     expect(refused.status).toBe(401);
     const late = await fetch(`${info.url}api/commands/abort`, { method: 'POST', headers: { authorization: `Bearer ${info.token}` } });
     expect(late.status).toBe(409); // the token works; the run has already ended
+    // It answers to the names it was given, and to no other.
+    const port = new URL(info.url).port;
+    const statusFor = (host: string): Promise<number | undefined> =>
+      new Promise((resolve, reject) => get(`${info?.url}api/health`, { headers: { host } }, (res) => resolve(res.resume().statusCode)).on('error', reject));
+    expect(await statusFor(`coater-pc:${port}`)).toBe(200);
+    expect(await statusFor(`coater-pc.lab.example:${port}`)).toBe(200);
+    expect(await statusFor('localhost:8080')).toBe(200);
+    expect(await statusFor(`printer.lab.example:${port}`)).toBe(421);
     const [runId] = readdirSync(runs);
     expect(existsSync(join(runs, runId ?? '', 'summary.json'))).toBe(true);
     expect(io.outText()).toMatch(/run complete after \d+ s of run time/);
@@ -65,5 +74,6 @@ describe('fringe demo', () => {
     await expect(runDemo(['--speed=-3'], io)).rejects.toThrow(CliError);
     await expect(runDemo(['--port', '70000'], io)).rejects.toThrow(/--port/);
     await expect(runDemo(['extra'], io)).rejects.toThrow(/positional/);
+    await expect(runDemo(['--allow-host', 'coater-pc,coater pc'], io)).rejects.toThrow('--allow-host expects a host name, NAME or NAME:PORT (such as coater-pc.lab.example), got "coater pc"');
   });
 });

@@ -2,7 +2,7 @@
 // and decimated readings; a slow client dropped to the latest state; a recorded run replayed;
 // refusals at the door.
 import type { IncomingMessage } from 'node:http';
-import type { AddressInfo, Socket } from 'node:net';
+import { connect as connectTcp, type AddressInfo, type Socket } from 'node:net';
 import type { FastifyInstance } from 'fastify';
 import { afterEach, describe, expect, it } from 'vitest';
 import { WebSocket } from 'ws';
@@ -38,15 +38,18 @@ async function listen(m: Pick<ManualRun, 'hub'>, runsDir: string, options: Parti
 interface Client {
   socket: WebSocket;
   messages: Message[];
+  /** Resolves when the first ping from the server has arrived (and been answered). */
+  pinged: Promise<unknown>;
   /** Resolves when a message satisfying `test` has arrived (or has already). */
   until(test: (m: Message) => boolean, timeoutMs?: number): Promise<Message>;
 }
 
-function connect(url: string, hooks: { origin?: string; onUpgrade?: (socket: WebSocket, res: IncomingMessage) => void } = {}): Promise<Client> {
-  const socket = new WebSocket(url, hooks.origin === undefined ? {} : { origin: hooks.origin });
+function connect(url: string, hooks: { origin?: string; host?: string; onUpgrade?: (socket: WebSocket, res: IncomingMessage) => void } = {}): Promise<Client> {
+  const socket = new WebSocket(url, { ...(hooks.origin === undefined ? {} : { origin: hooks.origin }), ...(hooks.host === undefined ? {} : { headers: { host: hooks.host } }) });
   sockets.push(socket);
   const messages: Message[] = [];
   const waiters: { test: (m: Message) => boolean; resolve: (m: Message) => void }[] = [];
+  const pinged = new Promise((resolve) => socket.once('ping', resolve));
   socket.on('upgrade', (res) => hooks.onUpgrade?.(socket, res));
   socket.on('message', (data: Buffer) => {
     const m = JSON.parse(data.toString('utf8')) as Message;
@@ -61,6 +64,7 @@ function connect(url: string, hooks: { origin?: string; onUpgrade?: (socket: Web
   const client: Client = {
     socket,
     messages,
+    pinged,
     until(test, timeoutMs = 5000) {
       const found = messages.find(test);
       if (found) return Promise.resolve(found);
@@ -83,12 +87,32 @@ function connect(url: string, hooks: { origin?: string; onUpgrade?: (socket: Web
 }
 
 /** The HTTP status with which the server refused an upgrade. */
-function refusal(url: string, origin?: string): Promise<number> {
+function refusal(url: string, origin?: string, host?: string): Promise<number> {
   return new Promise((resolve, reject) => {
-    const socket = new WebSocket(url, origin === undefined ? {} : { origin });
+    const socket = new WebSocket(url, { ...(origin === undefined ? {} : { origin }), ...(host === undefined ? {} : { headers: { host } }) });
     socket.on('unexpected-response', (_req, res) => resolve(res.statusCode ?? 0));
     socket.on('open', () => reject(new Error('the upgrade was accepted')));
     socket.on('error', () => undefined);
+  });
+}
+
+const UPGRADE_HEADERS = 'Connection: Upgrade\r\nUpgrade: websocket\r\nSec-WebSocket-Version: 13\r\nSec-WebSocket-Key: dGhlIHNhbXBsZSBub25jZQ==\r\n';
+
+/** Sends `request` as written over a raw TCP connection; resolves with the status line of the answer. */
+function rawStatus(url: string, request: string): Promise<string> {
+  const port = Number(new URL(url).port);
+  return new Promise((resolve, reject) => {
+    const socket = connectTcp(port, '127.0.0.1', () => socket.write(request));
+    let answer = '';
+    socket.on('data', (chunk: Buffer) => {
+      answer += chunk.toString('latin1');
+      if (answer.includes('\r\n')) {
+        socket.destroy();
+        resolve(answer.slice(0, answer.indexOf('\r\n')));
+      }
+    });
+    socket.on('error', reject);
+    socket.on('close', () => resolve(answer));
   });
 }
 
@@ -205,5 +229,127 @@ describe('the live feed', () => {
     expect(await refusal(`${guarded}/api/live`)).toBe(401);
     const client = await connect(`${guarded}/api/live?viewer=${VIEWER_TOKEN}`);
     expect((await client.until(() => true)).type).toBe('snapshot');
+  });
+
+  it('refuses a Host that does not name this server with 421, even with an Origin to match it', async () => {
+    const url = await listen(manualRun(ar4), tempDir('host'));
+    const port = new URL(url).port;
+    // The forged pair that used to open the feed.
+    expect(await refusal(`${url}/api/live`, `http://evil.example:${port}`, `evil.example:${port}`)).toBe(421);
+    expect(await refusal(`${url}/api/live`, undefined, `127.0.0.1:${Number(port) + 1}`)).toBe(421);
+    expect(await refusal(`${url}/api/runs/any/replay`, undefined, 'evil.example')).toBe(421);
+    // An absolute-form target names the host in place of the Host header.
+    expect(await rawStatus(url, `GET http://evil.example:${port}/api/live HTTP/1.1\r\nHost: 127.0.0.1:${port}\r\n${UPGRADE_HEADERS}\r\n`)).toBe('HTTP/1.1 421 Misdirected Request');
+    expect(await rawStatus(url, `GET http://evil.example:${port}/api/runs HTTP/1.1\r\nHost: 127.0.0.1:${port}\r\n\r\n`)).toBe('HTTP/1.1 421 Misdirected Request');
+    expect(await rawStatus(url, `GET http://127.0.0.1:${port}/api/health HTTP/1.1\r\nHost: 127.0.0.1:${port}\r\n\r\n`)).toBe('HTTP/1.1 200 OK');
+    const own = await connect(`${url}/api/live`, { origin: `http://localhost:${port}`, host: `localhost:${port}` });
+    expect((await own.until(() => true)).type).toBe('snapshot');
+  });
+
+  it('answers to a name it was given, on its own port or on the port given with it', async () => {
+    const url = await listen(manualRun(ar4), tempDir('host'), { host: '0.0.0.0', allowedHosts: ['coater-pc', 'localhost:8080'] });
+    const port = new URL(url).port;
+    expect((await (await connect(`${url}/api/live`, { host: `coater-pc:${port}` })).until(() => true)).type).toBe('snapshot');
+    expect((await (await connect(`${url}/api/live`, { host: 'localhost:8080', origin: 'http://localhost:8080' })).until(() => true)).type).toBe('snapshot');
+    expect(await refusal(`${url}/api/live`, undefined, 'coater-pc:8080')).toBe(421);
+    expect(await refusal(`${url}/api/live`, undefined, `printer:${port}`)).toBe(421);
+  });
+
+  it('survives upgrade requests it cannot read: a malformed run id, a bad absolute-form host, a reset', async () => {
+    const m = manualRun(ar4);
+    const url = await listen(m, tempDir('hostile'));
+    const port = new URL(url).port;
+    const host = `Host: 127.0.0.1:${port}\r\n`;
+    expect(await rawStatus(url, `GET /api/runs/%E0%A4%A/replay HTTP/1.1\r\n${host}${UPGRADE_HEADERS}\r\n`)).toBe('HTTP/1.1 404 Not Found');
+    expect(await rawStatus(url, `GET /api/runs/%/replay?speed=%%% HTTP/1.1\r\n${host}${UPGRADE_HEADERS}\r\n`)).toBe('HTTP/1.1 404 Not Found');
+    expect(await rawStatus(url, `GET http://[x/api/live HTTP/1.1\r\n${host}${UPGRADE_HEADERS}\r\n`)).toBe('HTTP/1.1 421 Misdirected Request');
+    expect(await rawStatus(url, `GET /api/live HTTP/1.1\r\nHost: [x\r\n${UPGRADE_HEADERS}\r\n`)).toBe('HTTP/1.1 421 Misdirected Request');
+    // A client that resets the connection right after asking: the refusal's write fails, quietly.
+    for (let i = 0; i < 20; i++) {
+      await new Promise<void>((resolve) => {
+        const socket = connectTcp(Number(port), '127.0.0.1', () => {
+          socket.write(`GET /nowhere HTTP/1.1\r\n${host}${UPGRADE_HEADERS}\r\n`);
+          socket.resetAndDestroy();
+          resolve();
+        });
+        socket.on('error', () => resolve());
+      });
+    }
+    // Still serving.
+    const client = await connect(`${url}/api/live`);
+    expect((await client.until(() => true)).type).toBe('snapshot');
+    expect(await rawStatus(url, `GET /api/health HTTP/1.1\r\n${host}\r\n`)).toBe('HTTP/1.1 200 OK');
+  });
+});
+
+describe('viewers that stop reading', () => {
+  /** A viewer that stops reading its socket as soon as it has connected. */
+  async function stalled(url: string): Promise<{ client: Client; socket: Socket }> {
+    let socket: Socket | undefined;
+    const client = await connect(url, {
+      onUpgrade: (_ws, res) => {
+        socket = res.socket;
+        socket.pause();
+      },
+    });
+    if (!socket) throw new Error('no socket');
+    return { client, socket };
+  }
+
+  /** Resolves once the server has had this client's answer to the ping it sent on connecting. */
+  async function answeredPing(client: Client): Promise<void> {
+    // The client answers the server's ping before it sees it; its own ping follows that answer,
+    // so the server's pong to it proves the answer arrived.
+    await client.pinged;
+    await new Promise((resolve) => {
+      client.socket.once('pong', resolve);
+      client.socket.ping();
+    });
+  }
+
+  it('do not lock others out: at the limit a newcomer takes the place of the longest stalled', async () => {
+    const m = manualRun(ar4);
+    // No periodic pings during the test: only the ping on connecting tells who has stalled.
+    const url = await listen(m, tempDir('stall'), { live: { flushMs: 20, pingMs: 600_000 } });
+    const stalledViewers: { client: Client; socket: Socket }[] = [];
+    for (let i = 0; i < 32; i++) stalledViewers.push(await stalled(`${url}/api/live`));
+    const stats = apps[0]?.fringe.liveStats;
+    expect(stats?.clients).toBe(32);
+    const newcomer = await connect(`${url}/api/live`);
+    expect((await newcomer.until(() => true)).type).toBe('snapshot');
+    expect(stats?.clients).toBe(32);
+    expect(stats?.evicted).toBe(1);
+    // The first to stall was the one to go; the second is still served once it reads again.
+    const [first, second] = stalledViewers;
+    if (!first || !second) throw new Error('no viewers');
+    const closed = new Promise((resolve) => first.client.socket.once('close', resolve));
+    first.socket.resume();
+    await closed;
+    second.socket.resume();
+    await answeredPing(second.client);
+    expect(second.client.socket.readyState).toBe(WebSocket.OPEN);
+  });
+
+  it('never push out the operator, however many stalled viewers come after', async () => {
+    const m = manualRun(ar4);
+    const url = await listen(m, tempDir('stall'), { live: { flushMs: 20, pingMs: 600_000 } });
+    const operator = await connect(`${url}/api/live`);
+    await answeredPing(operator);
+    for (let i = 0; i < 31 + 40; i++) await stalled(`${url}/api/live`);
+    const stats = apps[0]?.fringe.liveStats;
+    expect(stats?.clients).toBe(32);
+    expect(stats?.evicted).toBe(40);
+    expect(operator.socket.readyState).toBe(WebSocket.OPEN);
+    // And the operator still follows the run.
+    m.run.runUntil(150);
+    await operator.until((msg) => msg.type === 'event' && msg.event.type === 'cut');
+  });
+
+  it('still fill the door when every viewer reads: the newcomer is told to try later', async () => {
+    const m = manualRun(ar4);
+    const url = await listen(m, tempDir('stall'), { live: { flushMs: 20, pingMs: 600_000, maxClients: 3 } });
+    for (let i = 0; i < 3; i++) await answeredPing(await connect(`${url}/api/live`));
+    expect(await refusal(`${url}/api/live`)).toBe(503);
+    expect(apps[0]?.fringe.liveStats.evicted).toBe(0);
   });
 });

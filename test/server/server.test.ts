@@ -229,6 +229,35 @@ describe('the viewer token', () => {
   });
 });
 
+describe('the Host', () => {
+  it('must name this server: any other is refused with 421 and one sentence, on every route and before any token', async () => {
+    const m = manualRun(ar4);
+    const app = serve(m, runsDir);
+    for (const host of ['evil.example', 'evil.example:80', '[x', 'localhost.evil.example', '127.0.0.1.nip.example:80']) {
+      for (const url of ['/api/health', '/api/runs', '/api/run/snapshot', `/api/runs/${recordedId}/journal`, '/', '/app.js', '/nowhere']) {
+        const r = await app.inject({ method: 'GET', url, headers: { host } });
+        expect(r.statusCode, `${host} ${url}`).toBe(421);
+        expect(r.json<{ message: string }>().message).toMatch(/^this server answers only to its own address .*--allow-host[^.]*$/);
+      }
+    }
+    // A command with the right token under a forged Host is refused, and does not reach the run.
+    const forged = await app.inject({ method: 'POST', url: '/api/commands/hold', headers: { ...bearer(TOKEN), host: 'evil.example' }, payload: {} });
+    expect(forged.statusCode).toBe(421);
+    expect(m.run.state.phase).toBe('depositing');
+    for (const host of ['localhost:80', '127.0.0.1:80', '[::1]:80', 'LocalHost:80']) expect((await app.inject({ method: 'GET', url: '/api/health', headers: { host } })).statusCode, host).toBe(200);
+  });
+
+  it('may be another name the server was given, or the bound host', async () => {
+    const named = serve(manualRun(ar4), runsDir, { host: '0.0.0.0', viewerToken: VIEWER_TOKEN, allowedHosts: ['coater-pc', 'coater-pc.lab.example'] });
+    expect((await named.inject({ method: 'GET', url: '/api/health', headers: { host: 'coater-pc:80' } })).statusCode).toBe(200);
+    expect((await named.inject({ method: 'GET', url: '/api/health', headers: { host: 'coater-pc.lab.example' } })).statusCode).toBe(200);
+    expect((await named.inject({ method: 'GET', url: '/api/health', headers: { host: 'printer.lab.example' } })).statusCode).toBe(421);
+    const bound = serve(manualRun(ar4), runsDir, { host: 'coater-pc.lab.example', viewerToken: VIEWER_TOKEN });
+    expect((await bound.inject({ method: 'GET', url: '/api/health', headers: { host: 'coater-pc.lab.example:80' } })).statusCode).toBe(200);
+    expect(() => serve(manualRun(ar4), runsDir, { allowedHosts: ['coater pc'] })).toThrow('options.allowedHosts: "coater pc" is not a host name');
+  });
+});
+
 describe('logs', () => {
   it('never carry the command token or the viewer token', async () => {
     const lines: string[] = [];

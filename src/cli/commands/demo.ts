@@ -11,7 +11,7 @@ import { loadRecipe } from '../../config/load-recipe.ts';
 import { generateToken, isLoopback } from '../../server/auth.ts';
 import { buildServer } from '../../server/build-server.ts';
 import { startSimulatedRun } from '../../server/simulated-run.ts';
-import { CliError, estimatorOption, numberOption } from '../cli-error.ts';
+import { allowHostOption, CliError, estimatorOption, numberOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 import { DEFAULT_PROFILE } from './simulate.ts';
 
@@ -31,6 +31,9 @@ with the controls. The run is kept in the runs folder; the server stays up after
   --speed X             run at X times real time (default 60)
   --port N              port to listen on (default 7300; 0 picks a free one)
   --host ADDRESS        address to bind (default 127.0.0.1); anything wider needs a viewer token
+  --allow-host NAME     another name the dashboard answers to (repeat, or NAME,NAME; NAME:PORT for
+                        a forwarded port): it answers only to 127.0.0.1, localhost, [::1], the
+                        bound address and the address it was reached at; any other Host gets 421
   --runs DIR            runs folder: where this run is kept and past runs are listed (default runs)
   --materials FILE      material library (default: the shipped config/materials.yaml)
 
@@ -57,6 +60,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
       speed: { type: 'string' },
       port: { type: 'string' },
       host: { type: 'string' },
+      'allow-host': { type: 'string', multiple: true },
       runs: { type: 'string' },
       materials: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
@@ -74,6 +78,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   const seed = numberOption('seed', values.seed) ?? 1;
   if (!Number.isInteger(seed) || seed < 0 || seed > 2 ** 32 - 1) throw new CliError(`--seed must be a whole number from 0 to 4294967295, got ${seed}`);
   const host = values.host ?? '127.0.0.1';
+  const allowedHosts = allowHostOption(values['allow-host']);
   const runsDir = values.runs ?? 'runs';
 
   const recipe = loadRecipe(values.recipe ?? DEFAULT_DEMO_RECIPE, loadMaterialLibrary(values.materials));
@@ -86,7 +91,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   const stop = new AbortController();
   const estimator = estimatorOption(values.estimator);
   const simulated = startSimulatedRun({ recipe, profile, profileName: profileFile, seed, speed, journalDir: runsDir, signal: stop.signal, controller: { estimator } });
-  const app = buildServer({ hub: simulated.hub, runsDir }, { token, viewerToken, host });
+  const app = buildServer({ hub: simulated.hub, runsDir }, { token, viewerToken, host, allowedHosts });
 
   let address: string;
   try {

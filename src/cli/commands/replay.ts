@@ -12,7 +12,7 @@ import { createController } from '../../pipeline/controller.ts';
 import { replayJournal, replayJournalPaced, type CutComparison } from '../../pipeline/replay.ts';
 import { startJournalReplay } from '../../server/journal-run.ts';
 import { journalConfirmsCloses, journalEstimator } from '../../journal/journal-format.ts';
-import { CliError, estimatorOption } from '../cli-error.ts';
+import { allowHostOption, CliError, estimatorOption } from '../cli-error.ts';
 import { readRecordedRecipe, readRecordedRun, warnOfDamage } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
 import type { CommandIo } from '../command-io.ts';
@@ -25,7 +25,8 @@ every cut with the recorded one. With the recipe as run, every decision must com
   --recipe FILE         replay with this recipe instead of the one recorded with the run
   --estimator fit|plain replay with this estimator instead of the recorded one (the cuts then differ)
   --speed X|max         replay at X times the recorded pace, printing each cut as it comes (default max)
-  --serve               watch the replay on the dashboard (at --speed, default 60; --port N, default 7300)
+  --serve               watch the replay on the dashboard (at --speed, default 60; --port N, default 7300;
+                        --host, --allow-host NAME as in fringe demo --help)
   --json                print the comparison as one object with a "layers" array
   --materials FILE      material library for --recipe (default: the shipped one)
 `;
@@ -43,6 +44,7 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
       serve: { type: 'boolean' },
       port: { type: 'string' },
       host: { type: 'string' },
+      'allow-host': { type: 'string', multiple: true },
       materials: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
     },
@@ -51,6 +53,7 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
     io.out(replayUsage);
     return 0;
   }
+  const allowedHosts = allowHostOption(values['allow-host']);
   if (positionals.length !== 1) throw new CliError('replay needs exactly one RUN (a run folder or a journal file)');
   const recorded = readRecordedRun(positionals[0] as string);
   const { dir, journalFile, journal } = recorded;
@@ -63,7 +66,7 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
     const speed = values.speed === undefined || values.speed === 'max' ? 60 : Number(values.speed);
     if (!(speed > 0 && Number.isFinite(speed))) throw new CliError(`--speed must be a positive number with --serve, got "${values.speed}"`);
     const replay = startJournalReplay(folder, speed);
-    const dashboard = await serveDashboard(replay.hub, join(dir, '..'), values, io);
+    const dashboard = await serveDashboard(replay.hub, join(dir, '..'), values, allowedHosts, io);
     io.out(`replaying ${folder.id} at ${speed}× on ${dashboard.url}; Ctrl-C ends`);
     await new Promise<void>((resolve) => {
       process.once('SIGINT', resolve);

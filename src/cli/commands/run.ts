@@ -19,7 +19,7 @@ import { createLiveRun } from '../../pipeline/live-run.ts';
 import { replayJournal } from '../../pipeline/replay.ts';
 import type { OperatorAction, ReadingSource } from '../../pipeline/types.ts';
 import { createRunHub, type RunHub } from '../../server/run-hub.ts';
-import { CliError, estimatorOption } from '../cli-error.ts';
+import { allowHostOption, CliError, estimatorOption } from '../cli-error.ts';
 import { readRecordedRecipe, readRecordedRun, warnOfDamage } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
 import { driveRun } from '../drive-run.ts';
@@ -40,7 +40,8 @@ and interlocks stay in charge.
                         (a resumed run keeps the clock and the estimator it was recorded with)
   --estimator fit|plain  cut optical layers on the model fit (default) or the plain rules
   --resume RUN          continue the run in RUN (a run folder) after a crash
-  --serve               serve the live dashboard on 127.0.0.1 (--port N, default 7300; --host wider warns)
+  --serve               serve the live dashboard on 127.0.0.1 (--port N, default 7300; --host wider warns;
+                        --allow-host NAME for another name it answers to, as in fringe demo --help)
   --materials FILE      material library (default: the shipped config/materials.yaml)
 `;
 
@@ -64,6 +65,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
       serve: { type: 'boolean' },
       port: { type: 'string' },
       host: { type: 'string' },
+      'allow-host': { type: 'string', multiple: true },
       materials: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
     },
@@ -72,6 +74,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
     io.out(runUsage);
     return 0;
   }
+  const allowedHosts = allowHostOption(values['allow-host']);
   const clockOption = values.clock ?? 'arrival';
   if (clockOption !== 'arrival' && clockOption !== 'instrument') throw new CliError(`--clock must be arrival or instrument, got "${clockOption}"`);
   let runClock: 'arrival' | 'instrument' = clockOption;
@@ -170,7 +173,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
       if (input.kind === 'operator') commands.next(input.alertId === undefined ? { action: input.action } : { action: input.action, alertId: input.alertId });
     },
   });
-  const dashboard = hub ? await serveDashboard(hub, join(runDir, '..'), values, io) : undefined;
+  const dashboard = hub ? await serveDashboard(hub, join(runDir, '..'), values, allowedHosts, io) : undefined;
 
   // Start only when every instrument has been speaking for a second: a shutter command sent
   // before its port is open is refused, a run must not begin blind, and lines the port held

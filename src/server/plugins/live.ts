@@ -10,9 +10,11 @@
  *   {type:'optical', layer, points:[[t, signal, chipNm]…]}             decimated readings, batched
  *   {type:'crystal', points:[[t, rate, lo, hi]…], partNm, frequencyHz, lifeUsed}
  *   {type:'status', status}                                          on every change of the status line
- * Browsers may connect only from this server's own pages (the Origin must name this host).
- * A client whose socket holds more than `maxBufferedBytes` unsent is not buffered without
- * bound: it is skipped until it has drained, then sent a fresh snapshot (the latest state).
+ * The Host must name this server (as for every route), and browsers may connect only from its
+ * own pages (the Origin must name this host). A client whose socket holds more than
+ * `maxBufferedBytes` unsent is not buffered without bound: it is skipped until it has drained,
+ * then sent a fresh snapshot (the latest state). At `maxClients`, a newcomer who passed every
+ * check takes the place of the viewer that has owed a pong the longest.
  */
 import { existsSync } from 'node:fs';
 import { STATUS_CODES, type IncomingMessage } from 'node:http';
@@ -20,6 +22,7 @@ import type { Duplex } from 'node:stream';
 import type { FastifyInstance } from 'fastify';
 import { WebSocket, WebSocketServer } from 'ws';
 import { mayView } from '../auth.ts';
+import { decodeComponent, splitTarget } from '../host-rule.ts';
 import { startJournalReplay } from '../journal-run.ts';
 import type { RunHub } from '../run-hub.ts';
 import { runFolder } from '../run-store.ts';
@@ -30,15 +33,23 @@ export interface LiveOptions {
   maxBufferedBytes: number;
   /** Wall-clock period of batching points and refreshing the status line, ms (default 100). */
   flushMs: number;
-  /** Clients at once, replays included (default 32). */
+  /** Clients at once, replays included (default 32); at the limit a viewer that has stopped reading makes room for a new one. */
   maxClients: number;
   /** Replays at once (default 4). */
   maxReplays: number;
-  /** Ping period; a client that misses a pong is closed, ms (default 15000). */
+  /** Ping period; a client that has not answered the last ping by the next is closed, ms (default 15000). */
   pingMs: number;
 }
 
 export const DEFAULT_LIVE_OPTIONS: LiveOptions = { maxBufferedBytes: 1 << 20, flushMs: 100, maxClients: 32, maxReplays: 4, pingMs: 15000 };
+
+/** A connected viewer, as the door sees it. */
+interface Viewer {
+  /** Order number of the ping it has not answered yet, or null. */
+  owesPongSince: number | null;
+  /** Closes it now to make room. */
+  evict(): void;
+}
 
 /** Counters for health and tests. */
 export interface LiveStats {
@@ -48,6 +59,8 @@ export interface LiveStats {
   dropped: number;
   /** Fresh snapshots sent to clients that had fallen behind. */
   resyncs: number;
+  /** Viewers closed to let a new one in, the client limit being reached. */
+  evicted: number;
 }
 
 /** Speeds a replay may ask for (× real time). */
@@ -57,29 +70,49 @@ export function livePlugin(app: FastifyInstance, options: Partial<LiveOptions>, 
   const opts: LiveOptions = { ...DEFAULT_LIVE_OPTIONS, ...pick(options) };
   const stats = app.fringe.liveStats;
   const wss = new WebSocketServer({ noServer: true, maxPayload: 1024, perMessageDeflate: false });
-  const sockets = new Set<WebSocket>();
+  const viewers = new Map<WebSocket, Viewer>();
+  /** Orders pings: a smaller number owed is a pong owed for longer. */
+  let pingsSent = 0;
   const livePath = `${app.prefix}/live`;
   const replayPath = new RegExp(`^${app.prefix}/runs/([^/]+)/replay$`);
 
   const onUpgrade = (request: IncomingMessage, socket: Duplex, head: Buffer): void => {
-    const url = new URL(request.url ?? '/', 'http://localhost');
-    const replay = replayPath.exec(url.pathname);
-    if (url.pathname !== livePath && !replay) return reject(socket, 404, 'no feed at this address');
+    // The socket is ours from here: a client that resets it must not raise an unhandled 'error'.
+    socket.on('error', () => socket.destroy());
+    try {
+      admit(request, socket, head);
+    } catch (error) {
+      // Nothing a request carries may end the process; this is the last line of defence.
+      app.log.error({ err: error }, 'live feed: upgrade failed');
+      reject(socket, 400, 'this request could not be read');
+    }
+  };
+
+  function admit(request: IncomingMessage, socket: Duplex, head: Buffer): void {
+    const target = splitTarget(request.url ?? '/');
+    const { hostRule } = app.fringe;
+    const connection = request.socket;
+    if (!hostRule.allows(target.authority ?? request.headers.host, connection)) return reject(socket, 421, hostRule.refusal(connection));
+    const replay = replayPath.exec(target.path);
+    if (target.path !== livePath && !replay) return reject(socket, 404, 'no feed at this address');
     // A page from another site must not read the feed through the operator's browser.
     if (!sameOrigin(request.headers.origin, request.headers.host)) return reject(socket, 403, 'feeds are for pages of this server only');
-    if (!mayView(app.fringe, request.headers, url.searchParams)) return reject(socket, 401, 'viewing this server needs its viewer token (?viewer=)');
-    if (sockets.size >= opts.maxClients) return reject(socket, 503, 'too many viewers; try again later');
+    const query = new URLSearchParams(target.query);
+    if (!mayView(app.fringe, request.headers, query)) return reject(socket, 401, 'viewing this server needs its viewer token (?viewer=)');
     if (!replay) {
+      if (!makeRoom()) return reject(socket, 503, 'too many viewers; try again later');
       wss.handleUpgrade(request, socket, head, (ws) => serve(ws, app.fringe.hub));
       return;
     }
-    const folder = runFolder(app.fringe.runsDir, decodeURIComponent(replay[1] as string));
+    const id = decodeComponent(replay[1] as string);
+    const folder = id === null ? null : runFolder(app.fringe.runsDir, id);
     if (!folder) return reject(socket, 404, 'no such run');
     if (!existsSync(folder.recipeFile)) return reject(socket, 409, 'this run has no recipe.json; it cannot be replayed');
-    const speedText = url.searchParams.get('speed') ?? '60';
+    const speedText = query.get('speed') ?? '60';
     const speed = Number(speedText);
     if (!(speed >= SPEED_RANGE[0] && speed <= SPEED_RANGE[1])) return reject(socket, 400, `speed must be a number from ${SPEED_RANGE[0]} to ${SPEED_RANGE[1]}`);
     if (stats.replays >= opts.maxReplays) return reject(socket, 503, 'too many replays at once; try again later');
+    if (!makeRoom()) return reject(socket, 503, 'too many viewers; try again later');
     wss.handleUpgrade(request, socket, head, (ws) => {
       const abort = new AbortController();
       let replayed;
@@ -96,18 +129,41 @@ export function livePlugin(app: FastifyInstance, options: Partial<LiveOptions>, 
         abort.abort();
       });
     });
-  };
+  }
+
+  /**
+   * Room for one more viewer. At the limit, the viewer that has owed a pong the longest goes: one
+   * that has stopped reading its socket never answers the ping sent when it connected, so stalled
+   * viewers cannot lock out a new one (or the operator). False when every viewer is answering.
+   */
+  function makeRoom(): boolean {
+    if (viewers.size < opts.maxClients) return true;
+    let stalest: Viewer | undefined;
+    for (const viewer of viewers.values()) {
+      if (viewer.owesPongSince !== null && (stalest?.owesPongSince ?? Infinity) > viewer.owesPongSince) stalest = viewer;
+    }
+    if (!stalest) return false;
+    stalest.evict();
+    stats.evicted++;
+    return true;
+  }
 
   function serve(ws: WebSocket, hub: RunHub, onEnd?: () => void): void {
-    sockets.add(ws);
-    stats.clients = sockets.size;
+    const viewer: Viewer = {
+      owesPongSince: null,
+      evict: () => {
+        ws.terminate();
+        end();
+      },
+    };
+    viewers.set(ws, viewer);
+    stats.clients = viewers.size;
     let behind = false;
     let lastStatus = '';
     let opticalLayer: number | null = null;
     let optical: (readonly [number, number, number])[] = [];
     let crystal: (readonly [number, number, number, number])[] = [];
     let crystalFigures: { partNm: number | null; frequencyHz: number | null; lifeUsed: number | null } = { partNm: null, frequencyHz: null, lifeUsed: null };
-    let alive = true;
 
     const send = (text: string): void => {
       if (behind || ws.readyState !== WebSocket.OPEN) return;
@@ -181,13 +237,16 @@ export function livePlugin(app: FastifyInstance, options: Partial<LiveOptions>, 
         send(`{"type":"status","status":${status}}`);
       }
     }, opts.flushMs);
+    const ping = (): void => {
+      viewer.owesPongSince = ++pingsSent;
+      ws.ping();
+    };
     const pingTimer = setInterval(() => {
-      if (!alive) {
+      if (viewer.owesPongSince !== null) {
         ws.terminate();
         return;
       }
-      alive = false;
-      ws.ping();
+      ping();
     }, opts.pingMs);
     flushTimer.unref();
     pingTimer.unref();
@@ -199,24 +258,26 @@ export function livePlugin(app: FastifyInstance, options: Partial<LiveOptions>, 
       clearInterval(flushTimer);
       clearInterval(pingTimer);
       unsubscribe();
-      sockets.delete(ws);
-      stats.clients = sockets.size;
+      viewers.delete(ws);
+      stats.clients = viewers.size;
       onEnd?.();
     };
     ws.on('pong', () => {
-      alive = true;
+      viewer.owesPongSince = null;
     });
     // The feed is one-way; anything a client sends is ignored.
     ws.on('message', () => undefined);
     ws.on('close', end);
     ws.on('error', end);
     sendSnapshot('connect');
+    // Pinged at once, so that a viewer that never reads is known as one before the next period.
+    ping();
   }
 
   app.server.on('upgrade', onUpgrade);
   app.addHook('onClose', (_instance, next) => {
     app.server.off('upgrade', onUpgrade);
-    for (const ws of sockets) ws.terminate();
+    for (const ws of viewers.keys()) ws.terminate();
     wss.close(() => next());
   });
   done();
