@@ -60,6 +60,15 @@ function lineOf(text: string, offset: number): number {
   return line;
 }
 
+/** Index of the first C0 control character other than tab, LF and CR (or DEL), else −1. */
+function firstControlCharacter(text: string): number {
+  for (let i = 0; i < text.length; i++) {
+    const c = text.charCodeAt(i);
+    if ((c < 0x20 && c !== 0x09 && c !== 0x0a && c !== 0x0d) || c === 0x7f) return i;
+  }
+  return -1;
+}
+
 /** Parses configuration text; throws {@link ConfigError} naming `file`. */
 export function parseYamlText(text: string, file: string): unknown {
   const refuse = (message: string, at = ''): never => {
@@ -72,10 +81,10 @@ export function parseYamlText(text: string, file: string): unknown {
     return `line ${line}, column ${col}`;
   };
   // Control characters other than tab and line ends are not text: YAML would keep them in strings.
-  const control = /[\0-\x08\x0B\x0C\x0E-\x1F\x7F]/.exec(text);
-  if (control) {
-    const code = control[0].charCodeAt(0).toString(16).toUpperCase().padStart(4, '0');
-    refuse(`holds the control character U+${code}, which is not text (a binary file?)`, `line ${lineOf(text, control.index)}`);
+  const control = firstControlCharacter(text);
+  if (control >= 0) {
+    const code = text.charCodeAt(control).toString(16).toUpperCase().padStart(4, '0');
+    refuse(`holds the control character U+${code}, which is not text (a binary file?)`, `line ${lineOf(text, control)}`);
   }
   let doc: Document.Parsed;
   try {
