@@ -212,7 +212,8 @@ export interface TcpServedChamber {
  * A second host while one is connected is told `ERROR busy` and closed, unless the connected
  * host has stopped reading for `staleAfterMs` (a dead peer behind a half-open connection, whose
  * end the operating system may not notice for many minutes): then the newer connection takes
- * its place.
+ * its place. A newcomer first waits a moment (0.5 s) for the connected host's end, which a host
+ * reconnecting at once can overtake.
  */
 export async function serveOnTcp(options: TcpServeOptions): Promise<TcpServedChamber> {
   const staleAfterMs = options.staleAfterMs ?? 2000;
