@@ -88,7 +88,7 @@ export function parseYamlText(text: string, file: string): unknown {
   }
   let doc: Document.Parsed;
   try {
-    doc = parseDocument(text, { prettyErrors: true, uniqueKeys: true, lineCounter: lines });
+    doc = parseDocument(text, { prettyErrors: true, uniqueKeys: true, lineCounter: lines, logLevel: 'error' });
   } catch (error) {
     return refuse(yamlFailure(error));
   }
@@ -132,8 +132,8 @@ interface Extent {
 
 /**
  * Walks the parsed document once, in document order (the order in which YAML resolves an alias
- * to the last anchor of its name before it), and returns the first problem: an alias with no
- * anchor before it, an alias inside the node it names (a loop), nesting deeper than
+ * to the last anchor of its name before it), and returns the first problem: a key that is a
+ * mapping or a list, an alias with no anchor before it, an alias inside the node it names (a loop), nesting deeper than
  * {@link MAX_CONFIG_DEPTH} or more than {@link MAX_CONFIG_VALUES} values once aliases are
  * expanded. Iterative, so a deep file cannot overflow the stack here.
  */
@@ -178,6 +178,9 @@ function checkShape(doc: Document.Parsed): { message: string; offset: number | u
       return undefined;
     }
     if (isPair(node)) {
+      // Such a key would reach the schema as its YAML text; say what is wrong instead.
+      const key = isAlias(node.key) ? anchors.get(node.key.source) : node.key;
+      if (isCollection(key)) return { message: 'a key is a mapping or a list; keys are plain names', offset: offsetOf(node.key) };
       stack.push({ node, children: [node.key, node.value], next: 0, extent: { values: 0, depth: 0 } });
       return undefined;
     }

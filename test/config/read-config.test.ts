@@ -157,6 +157,22 @@ describe('readYamlFile: files that are not one YAML document', () => {
     expect(refusal(() => parseYamlText(`${blockMapping} 1\n`, 'mapping.yaml')).at).toBe(`line ${MAX_CONFIG_DEPTH + 1}, column ${2 * MAX_CONFIG_DEPTH + 1}`);
   });
 
+  it('refuses a key that is a mapping or a list, written out or by alias, without a warning from the YAML library', async () => {
+    const warnings: string[] = [];
+    const onWarning = (warning: Error): void => void warnings.push(warning.message);
+    process.on('warning', onWarning);
+    try {
+      expect(refusal(() => parseYamlText('name: a\n? [x, y]\n: 1\n', 'key.yaml'))).toMatchObject({ at: 'line 2, column 3', message: 'a key is a mapping or a list; keys are plain names' });
+      expect(refusal(() => parseYamlText('a: &m { b: 1 }\n*m : 2\n', 'key.yaml'))).toMatchObject({ at: 'line 2, column 1' });
+      expect(refusal(() => parseYamlText('{ { b: 1 }: 2 }\n', 'key.yaml')).message).toBe('a key is a mapping or a list; keys are plain names');
+      // Node emits warnings on a later tick.
+      await new Promise((resolve) => setImmediate(resolve));
+    } finally {
+      process.off('warning', onWarning);
+    }
+    expect(warnings).toEqual([]);
+  });
+
   it('reports one syntax error, the first, not its echoes', () => {
     const r = refusal(() => parseYamlText('a: [1, 2\nb: "open\nc: }\n', 'syntax.yaml'));
     expect(r.text.split('\n')).toHaveLength(1);
@@ -216,7 +232,7 @@ describe('reading arbitrary input', () => {
   }
 
   const yamlPieces = fc.constantFrom(
-    ...['&a ', '&b ', '*a', '*b', '*c', '[', ']', '{', '}', ': ', ', ', '- ', '? ', '\n', '\n  ', '\n    ', '---\n', '...\n', 'name', '1', '-2.5e3', '"q', "'s'", '!!str ', '!!binary ', '!tag ', '#c', '|\n', '>\n', '<<: ', '~', '\t', '%YAML 1.2\n', '\uFEFF', '\r\n', 'é', '\u0000'],
+    ...['&a ', '&b ', '*a', '*b', '*c', '[', ']', '{', '}', ': ', ', ', '- ', '? ', '\n', '\n  ', '\n    ', '---\n', '...\n', 'name', '1', '-2.5e3', '"q', "'s'", '!!str ', '!!binary ', '!tag ', '#c', '|\n', '>\n', '<<: ', '~', '\t', '%YAML 1.2\n', '%YAML 1.1\n', '!!set ', '!!omap ', '!!timestamp ', '!!int ', '!!float ', '.inf', '.nan', '0x1F', '\uFEFF', '\r\n', 'é', '\u0000'],
   );
 
   it('random YAML-like text gives a value or one sentence', () => {

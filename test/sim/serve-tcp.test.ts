@@ -3,6 +3,9 @@
 // is turned away while the first reads, and takes the place of one that stopped reading.
 import { connect, type Socket } from 'node:net';
 import { afterEach, describe, expect, it } from 'vitest';
+import { createLineSource } from '../../drivers/line-source.ts';
+import { createTcpTransport } from '../../drivers/transport.ts';
+import type { Reading, SourceStatus } from '../../src/pipeline/types.ts';
 import { serveOnTcp, type TcpServedChamber } from '../../sim/index.ts';
 import { startFaultRelay } from '../support/fault-relay.ts';
 import { profiles, recipes } from './support.ts';
@@ -105,6 +108,39 @@ describe('serveOnTcp: a host reconnecting', () => {
       host.socket.end();
       await until(() => host.closed, 'the chamber ending its side too');
     }, served.port, served);
+  });
+});
+
+describe("serveOnTcp with fringe's own TCP link", () => {
+  it('the link reconnects through the relay after a drop and while the link was down, to the same run', async () => {
+    const served = await serve();
+    const relay = await startFaultRelay({ upstream: { port: served.port } });
+    cleanups.push(() => relay.close());
+    const source = createLineSource({
+      transport: () => createTcpTransport({ host: '127.0.0.1', port: relay.port, connectTimeoutMs: 2000 }),
+      retry: { initialDelayMs: 20, maxDelayMs: 100, factor: 2 },
+    });
+    cleanups.push(() => source.close());
+    const readings: Reading[] = [];
+    const statuses: SourceStatus[] = [];
+    source.readings.subscribe((r) => {
+      if (r.kind === 'reading') readings.push(r);
+    });
+    source.status.subscribe((s) => statuses.push(s));
+    await until(() => readings.length >= 20, 'readings over the first connection');
+    // Link down: the connection cut and new ones refused for a while, then up again.
+    await relay.refuseConnections(true);
+    relay.dropConnection();
+    await relay.waitFor(() => relay.refused >= 2, 'the link retrying while refused');
+    const lastBeforeS = Math.max(...readings.map((r) => r.timeS));
+    const countBefore = readings.length;
+    await relay.refuseConnections(false);
+    await until(() => readings.length >= countBefore + 20, 'readings after the reconnection');
+    const after = readings.slice(countBefore);
+    expect(Math.min(...after.map((r) => r.timeS))).toBeGreaterThan(lastBeforeS);
+    expect(relay.lines('toClient').some((e) => e.line.startsWith('ERROR'))).toBe(false);
+    expect(served.hostConnections).toBe(2);
+    expect(statuses.some((s) => s.state === 'lost')).toBe(true);
   });
 });
 
