@@ -49,6 +49,6 @@ export {
   parseShutterCommand,
 } from './line-format.ts';
 export { createPtyPair, serveOnPty, serveOnStream, serveOnTcp } from './serve.ts';
-export type { PtyPair, ServedChamber, ServeOptions } from './serve.ts';
+export type { PtyPair, ServedChamber, ServeOptions, TcpServedChamber, TcpServeOptions } from './serve.ts';
 export { createChamberSource } from './chamber-source.ts';
 export type { ChamberSourceOptions } from './chamber-source.ts';

@@ -34,48 +34,108 @@ export interface ServedChamber {
   close(): Promise<void>;
 }
 
+/** Bytes a host may leave unread before the chamber drops its lines, as a full output buffer of an instrument would. */
+const MAX_UNREAD_BYTES = 1024 * 1024;
+/** Longest partial line kept from the host. */
+const MAX_PENDING_CHARS = 4096;
+
+/** One host's byte stream, attached to a running chamber. */
+interface HostLink {
+  readonly stream: Duplex;
+  /** performance.now() when the host stopped reading what the chamber writes (undefined: it reads). */
+  unreadSinceMs: number | undefined;
+  detach(): void;
+}
+
 /**
- * Serves the chamber on one byte stream (an open pseudo-terminal or a socket). The chamber's
- * clock starts now; readings are written as they fall due.
+ * A chamber running on wall time at `speed`, writing its lines to whichever host stream is
+ * attached. With none attached the chamber goes on (readings and acknowledgements are lost, as
+ * on a cut cable), so a host that reconnects finds the same run, later.
  */
-export function serveOnStream(stream: Duplex, options: ServeOptions): ServedChamber {
+function startChamberOnWire(options: ServeOptions) {
   const chamber = createVirtualChamber(options.recipe, options.profile, options.seed);
   const speed = options.speed ?? 1;
   const applied: ShutterCommand[] = [];
   const refusedLines: string[] = [];
   const startMs = performance.now();
-  let pending = '';
-  const onData = (chunk: Buffer): void => {
-    pending += chunk.toString('latin1');
-    let nl: number;
-    while ((nl = pending.indexOf('\n')) >= 0) {
-      const line = pending.slice(0, nl).replace(/\r$/, '');
-      pending = pending.slice(nl + 1);
-      if (line === '') continue;
-      const parsed = parseShutterCommand(line, chamber.timeS);
-      if (parsed.kind === 'shutter') {
-        chamber.command(parsed);
-        applied.push(parsed);
-      } else refusedLines.push(line);
-    }
-    if (pending.length > 4096) pending = '';
+  let host: HostLink | undefined;
+
+  const attach = (stream: Duplex): HostLink => {
+    host?.detach();
+    let pending = '';
+    const onData = (chunk: Buffer): void => {
+      pending += chunk.toString('latin1');
+      let nl: number;
+      while ((nl = pending.indexOf('\n')) >= 0) {
+        const line = pending.slice(0, nl).replace(/\r$/, '');
+        pending = pending.slice(nl + 1);
+        if (line === '') continue;
+        const parsed = parseShutterCommand(line, chamber.timeS);
+        if (parsed.kind === 'shutter') {
+          chamber.command(parsed);
+          applied.push(parsed);
+        } else refusedLines.push(line);
+      }
+      if (pending.length > MAX_PENDING_CHARS) pending = '';
+    };
+    const onDrain = (): void => {
+      link.unreadSinceMs = undefined;
+    };
+    const ignoreError = (): void => undefined; // a vanished host: keep the chamber going, as a real one would
+    stream.on('data', onData);
+    stream.on('drain', onDrain);
+    stream.on('error', ignoreError);
+    const link: HostLink = {
+      stream,
+      unreadSinceMs: undefined,
+      detach: () => {
+        stream.off('data', onData);
+        stream.off('drain', onDrain);
+        if (host === link) host = undefined;
+      },
+    };
+    host = link;
+    return link;
   };
-  stream.on('data', onData);
-  stream.on('error', () => undefined); // a vanished host: keep the chamber going, as a real one would
+
   const timer = setInterval(() => {
     const untilS = ((performance.now() - startMs) / 1000) * speed;
     const lines: string[] = [];
     chamber.advance(untilS, (reading) => lines.push(formatReading(reading)));
     for (const ack of chamber.takeAcks()) lines.push(formatAck(ack));
-    if (lines.length > 0 && stream.writable) stream.write(lines.join(''));
+    const stream = host?.stream;
+    if (lines.length === 0 || !host || !stream?.writable) return;
+    // A host that stopped reading must not make the chamber's memory grow without end.
+    if (stream.writableLength > MAX_UNREAD_BYTES) return;
+    if (!stream.write(lines.join('')) && host.unreadSinceMs === undefined) host.unreadSinceMs = performance.now();
   }, options.periodMs ?? 20);
+
   return {
     chamber,
     applied,
     refusedLines,
+    attach,
+    get host(): HostLink | undefined {
+      return host;
+    },
+    stop: () => clearInterval(timer),
+  };
+}
+
+/**
+ * Serves the chamber on one byte stream (an open pseudo-terminal or a socket). The chamber's
+ * clock starts now; readings are written as they fall due.
+ */
+export function serveOnStream(stream: Duplex, options: ServeOptions): ServedChamber {
+  const wire = startChamberOnWire(options);
+  wire.attach(stream);
+  return {
+    chamber: wire.chamber,
+    applied: wire.applied,
+    refusedLines: wire.refusedLines,
     close: async () => {
-      clearInterval(timer);
-      stream.off('data', onData);
+      wire.stop();
+      wire.host?.detach();
       await new Promise<void>((resolve) => stream.end(resolve));
     },
   };
@@ -121,33 +181,124 @@ export async function serveOnPty(pair: PtyPair, options: ServeOptions): Promise<
   return serveOnStream(port, options);
 }
 
+/** How long a newcomer waits for the connected host's end to be noticed, ms of wall time. */
+const RECONNECT_GRACE_MS = 500;
+
+export interface TcpServeOptions extends ServeOptions {
+  host?: string;
+  port: number;
+  /**
+   * How long a host must have left the chamber's lines unread before a newer connection may
+   * take its place, ms of wall time (default 2000). A host that reads is never displaced.
+   */
+  staleAfterMs?: number;
+}
+
+export interface TcpServedChamber {
+  readonly server: Server;
+  readonly port: number;
+  /** The chamber, once the first host has connected. */
+  readonly served: Promise<ServedChamber>;
+  /** Connections the chamber has served, reconnections included. */
+  readonly hostConnections: number;
+  close(): Promise<void>;
+}
+
 /**
- * Serves the chamber to one TCP client at a time on `host:port` (port 0: any free port); the
- * chamber's clock starts with the first client.
+ * Serves the chamber to one TCP host at a time on `host:port` (port 0: any free port); the
+ * chamber's clock starts with the first host and runs on when the host goes (the connection
+ * closed, reset or half-closed), so a host that reconnects is served the same run, later.
+ *
+ * A second host while one is connected is told `ERROR busy` and closed, unless the connected
+ * host has stopped reading for `staleAfterMs` (a dead peer behind a half-open connection, whose
+ * end the operating system may not notice for many minutes): then the newer connection takes
+ * its place. A newcomer first waits a moment (0.5 s) for the connected host's end, which a host
+ * reconnecting at once can overtake.
  */
-export async function serveOnTcp(
-  options: ServeOptions & { host?: string; port: number },
-): Promise<{ server: Server; port: number; served: Promise<ServedChamber>; close(): Promise<void> }> {
-  let current: ServedChamber | undefined;
+export async function serveOnTcp(options: TcpServeOptions): Promise<TcpServedChamber> {
+  const staleAfterMs = options.staleAfterMs ?? 2000;
+  let wire: ReturnType<typeof startChamberOnWire> | undefined;
+  let hostConnections = 0;
   let resolveServed: (s: ServedChamber) => void = () => undefined;
   const served = new Promise<ServedChamber>((resolve) => (resolveServed = resolve));
-  const server = createServer((socket: Socket) => {
-    if (current) {
-      socket.end('ERROR busy: one host at a time\n');
+  const sockets = new Set<Socket>();
+  let closing = false;
+  /** Serves `socket`, replaces a stale host with it, or turns it away. */
+  const admit = (socket: Socket): void => {
+    if (closing || socket.destroyed) {
+      socket.destroy();
       return;
     }
+    const current = wire?.host;
+    if (current) {
+      const unreadSinceMs = current.unreadSinceMs;
+      if (unreadSinceMs === undefined || performance.now() - unreadSinceMs < staleAfterMs) {
+        socket.end('ERROR busy: one host at a time\n');
+        return;
+      }
+      current.detach();
+      current.stream.destroy();
+    }
     socket.setNoDelay(true);
-    current = serveOnStream(socket, options);
-    resolveServed(current);
+    if (!wire) {
+      wire = startChamberOnWire(options);
+      const started = wire;
+      resolveServed({
+        chamber: started.chamber,
+        applied: started.applied,
+        refusedLines: started.refusedLines,
+        close: async () => {
+          started.stop();
+          started.host?.stream.destroy();
+          started.host?.detach();
+          await Promise.resolve();
+        },
+      });
+    }
+    hostConnections++;
+    const link = wire.attach(socket);
+    // Any end of the connection frees the place for the next host; the chamber goes on.
+    socket.once('close', () => link.detach());
+  };
+
+  const server = createServer((socket: Socket) => {
+    sockets.add(socket);
+    socket.once('close', () => sockets.delete(socket));
+    socket.on('error', () => undefined);
+    const current = wire?.host;
+    if (!current || closing) {
+      admit(socket);
+      return;
+    }
+    // A host that reconnects at once can arrive before the end of its old connection has been
+    // read: give that end a moment to come in before calling the chamber busy.
+    const decide = (): void => {
+      clearTimeout(grace);
+      current.stream.off('close', decide);
+      admit(socket);
+    };
+    const grace = setTimeout(decide, RECONNECT_GRACE_MS);
+    current.stream.once('close', decide);
   });
-  await new Promise<void>((resolve) => server.listen(options.port, options.host ?? '127.0.0.1', resolve));
+  await new Promise<void>((resolve, reject) => {
+    server.once('error', reject);
+    server.listen(options.port, options.host ?? '127.0.0.1', () => {
+      server.off('error', reject);
+      resolve();
+    });
+  });
   const address = server.address();
   return {
     server,
     port: typeof address === 'object' && address ? address.port : options.port,
     served,
+    get hostConnections() {
+      return hostConnections;
+    },
     close: async () => {
-      await current?.close();
+      closing = true;
+      wire?.stop();
+      for (const socket of sockets) socket.destroy();
       await new Promise<void>((resolve) => server.close(() => resolve()));
     },
   };

@@ -49,13 +49,19 @@ export function describeValue(value: unknown): string {
   return `a ${typeof value}`;
 }
 
+/** Names in quotes, the first few only: a file of stray keys must not make a page-long sentence. */
+function listNames(names: readonly string[], shown = 8): string {
+  const quoted = names.slice(0, shown).map((name) => JSON.stringify(name.length > 40 ? `${name.slice(0, 37)}...` : name));
+  return names.length > shown ? `${quoted.join(', ')} and ${names.length - shown} more` : quoted.join(', ');
+}
+
 function describeIssue(issue: z.core.$ZodIssue): string {
   const found = 'input' in issue ? describeValue(issue.input) : undefined;
   switch (issue.code) {
     case 'invalid_type':
       return `expected ${issue.expected}, found ${found ?? 'nothing'}`;
     case 'unrecognized_keys':
-      return `unknown key${issue.keys.length > 1 ? 's' : ''} ${issue.keys.map((k) => `"${k}"`).join(', ')} (a typo?)`;
+      return `unknown key${issue.keys.length > 1 ? 's' : ''} ${listNames(issue.keys)} (a typo?)`;
     case 'invalid_value':
       return `expected one of ${issue.values.map((v) => JSON.stringify(v)).join(', ')}, found ${found ?? 'nothing'}`;
     case 'invalid_union':
