@@ -1,13 +1,16 @@
 // `fringe run` as a process over TCP against the virtual chamber served in this test: Ctrl-C
-// mid-layer reaches the chamber as a close of every shutter, confirmed, and said so.
+// mid-layer reaches the chamber as a close of every shutter, confirmed, and said so; and a close
+// lost with the link is sent again once the link is back, the next layer held until then.
 import { spawn, type ChildProcess } from 'node:child_process';
-import { mkdtempSync, writeFileSync } from 'node:fs';
+import { mkdtempSync, readdirSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { afterAll, describe, expect, it } from 'vitest';
 import { loadSimProfile, serveOnTcp } from '../../sim/index.ts';
 import { loadRecipe } from '../../src/config/load-recipe.ts';
+import { readJournal } from '../../src/journal/journal-reader.ts';
+import { startFaultRelay } from '../support/fault-relay.ts';
 
 const root = fileURLToPath(new URL('../../', import.meta.url));
 const recipeFile = join(root, 'config/recipes/ar4-visible.yaml');
@@ -71,5 +74,50 @@ describe('fringe run: the ways out', () => {
     expect(run.out()).toMatch(/aborting: every shutter is asked to close/);
     expect(run.out()).toMatch(new RegExp(`every shutter confirmed closed \\(${sources.join(', ')}\\)|every shutter confirmed closed`));
     expect(run.out()).not.toMatch(/NOT confirmed/);
+  });
+
+  it('sends a close lost with the link again when the link is back, and holds the next layer until it is confirmed', async () => {
+    const dir = mkdtempSync(join(tmpdir(), 'fringe-relay-'));
+    const server = await serveOnTcp({ recipe, profile, seed: 7, speed: 20, port: 0 });
+    cleanups.push(() => server.close());
+    const relay = await startFaultRelay({ upstream: { port: server.port } });
+    cleanups.push(() => relay.close());
+    const first = recipe.layers[0] as (typeof recipe.layers)[number];
+    const closeOfFirst = `SHUTTER ${first.materialName} CLOSE 1`;
+    let lost = false;
+    // The first close of layer 1 vanishes with the link, which stays down for two seconds.
+    relay.toUpstream.transform = (line) => {
+      if (lost || line.trim() !== closeOfFirst) return line;
+      lost = true;
+      setImmediate(() => {
+        void relay.refuseConnections(true).then(() => {
+          relay.dropConnection();
+          setTimeout(() => void relay.refuseConnections(false), 2000);
+        });
+      });
+      return null;
+    };
+    const runs = join(dir, 'runs');
+    const run = fringe(['run', '--chamber', tcpChamber(dir, relay.port), '--clock', 'instrument', '--runs', runs, recipeFile]);
+    const code = await run.done;
+    expect(code, run.out()).toBe(0);
+    // Upstream, the close of layer 1 arrived (re-sent, on a later connection) before layer 2 opened.
+    const upstream = relay.lines('toUpstream').filter((l) => l.sent.length > 0).map((l) => ({ line: l.line.trim(), connection: l.connection }));
+    const resent = upstream.findIndex((l) => l.line === closeOfFirst);
+    const open2 = upstream.findIndex((l) => /^SHUTTER \S+ OPEN 2$/.test(l.line));
+    expect(lost).toBe(true);
+    expect(resent).toBeGreaterThanOrEqual(0);
+    expect(upstream[resent]?.connection).toBeGreaterThan(1);
+    expect(open2).toBeGreaterThan(resent);
+    const served = await server.served;
+    const applied = served.applied.map((c) => `${c.action} ${c.layer}`);
+    expect(applied.indexOf('close 1')).toBeLessThan(applied.indexOf('open 2'));
+    // What the operator was told, and what the journal keeps.
+    const journal = readJournal(join(runs, readdirSync(runs)[0] as string, 'journal.ndjson'));
+    const alerts = journal.records.flatMap((r) => (r.k === 'e' && r.event.type === 'alert' ? [r.event.code] : []));
+    expect(alerts).toEqual(expect.arrayContaining(['source-lost', 'source-restored', 'close-unconfirmed', 'close-confirmed']));
+    expect(alerts.some((c) => c === 'shutter-no-ack' || c === 'shutter-not-sent')).toBe(true);
+    const cuts = journal.records.flatMap((r) => (r.k === 'e' && r.event.type === 'cut' ? [r.event.layer] : []));
+    expect(cuts).toEqual([1, 2, 3, 4]);
   });
 });
