@@ -51,15 +51,14 @@ export function createLiveRun(options: LiveRunOptions): LiveRun {
   const tickTime = (): number => lastRunS + (clock() - lastArrivalS);
 
   const decisions = merge(readings, acks, commands).pipe(
-    tap((input) => {
-      if (input.kind === 'reading') {
-        lastRunS = Math.max(lastRunS, input.timeS);
-        lastArrivalS = clock();
-      }
-    }),
     withTicks(options.tickMs ?? 500, tickTime, options.scheduler ?? asyncScheduler),
     decide(options.controller, options.resumeFrom),
     tap((decision) => {
+      // The run clock is the controller's: a reading it refused (a time that jumped) moves neither it nor the ticks.
+      if (decision.state.nowS > lastRunS) {
+        lastRunS = decision.state.nowS;
+        lastArrivalS = clock();
+      }
       for (const event of decision.events) if (event.type === 'shutter') options.shutter.send(event.command);
     }),
     share(),
