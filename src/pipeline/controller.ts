@@ -135,11 +135,13 @@ const CRYSTAL_RISE_HZ = 5;
 const FRESH_CRYSTAL_BAND = 0.005;
 /**
  * An optical reading may not jump from the last one by more than twice the layer's whole planned
- * curve range (0–120 % of the target) and 20σ: no chip does that in one reading. The first of a
- * layer is held to the plan's start signal with half the full scale more for gain and chip errors.
+ * curve range (0–120 % of the target) and 20σ: no chip does that in one reading. Any reading
+ * must lie within half the full scale beyond 0..1 (no transmittance or reflectance does).
  */
 const OPTICAL_JUMP_SIGMAS = 20;
-const OPTICAL_FIRST_ALLOWANCE = 0.5;
+/** Nor by less than a tenth of full scale: a monitor that noisy would be of no use at all. */
+const OPTICAL_JUMP_FLOOR = 0.1;
+const OPTICAL_SIGNAL_ALLOWANCE = 0.5;
 /** After a fault's first alert, at most one summary of its code per this much run time, s. */
 const FAULT_SUMMARY_S = 30;
 
@@ -229,8 +231,14 @@ interface OpticalTrack {
   readonly gapFromS: number;
   /** Twice the range of the layer's planned curve: a jump beyond it (and 20σ) is implausible. */
   readonly jumpLimit: number;
-  /** Consecutive implausible readings; at SUSPECT_READINGS the monitor is set aside for the layer. */
+  /**
+   * Consecutive implausible readings, the last of them, and whether they jumped among themselves
+   * too; at SUSPECT_READINGS, readings that agree are the signal's new level, erratic ones set the
+   * monitor aside for the layer.
+   */
   readonly suspects: number;
+  readonly suspectValue: number;
+  readonly erratic: boolean;
   readonly distrusted: boolean;
 }
 
@@ -523,9 +531,17 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     if (growing && o.distrusted) return withReading(s, r.timeS, s.lastOpticalS, s.lastCrystalS, o, s.crystal, s.layerCrystalNm);
     if (growing) {
       // Plausibility: no chip moves its signal by twice its layer's whole curve in one reading.
-      const first = Number.isNaN(o.value);
-      const jump = Math.abs(r.value - (first ? layerPlan(s).startSignal : o.value));
-      if (jump > Math.max(OPTICAL_JUMP_SIGMAS * noise, o.jumpLimit) + (first ? OPTICAL_FIRST_ALLOWANCE : 0)) return opticalSuspect(s, events, r);
+      // In a layer's first second, or the first after a gap, the last reading is no reference (a
+      // monitor changing wavelength, a signal moving through the gap): a reading there only has
+      // to be a signal at all. Five readings that agree take over from a wrong reference.
+      const limit = Math.max(OPTICAL_JUMP_SIGMAS * noise, o.jumpLimit, OPTICAL_JUMP_FLOOR);
+      const settled = r.timeS - o.since >= opts.recoverS;
+      const noSignal = Math.abs(r.value - 0.5) > 0.5 + OPTICAL_SIGNAL_ALLOWANCE;
+      if (noSignal || (settled && Math.abs(r.value - o.value) > limit)) {
+        s = opticalSuspect(s, events, r, limit, noSignal);
+        // Readings that agree among themselves are the signal's level (the reference was the wrong one).
+        if (s.optical.suspects < SUSPECT_READINGS || s.optical.distrusted) return s;
+      }
     }
     if (s.fit && growing) {
       s.fit.fit.add(fitClockAt(recipe, s, r.timeS), r.value);
@@ -562,18 +578,27 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       gapFromS: unbroken ? o.gapFromS : lastS,
       jumpLimit: o.jumpLimit,
       suspects: 0,
+      suspectValue: Number.NaN,
+      erratic: false,
       distrusted: false,
     };
     return withReading(s, r.timeS, r.timeS, s.lastCrystalS, optical, s.crystal, s.layerCrystalNm);
   }
 
-  /** An implausible optical reading: a fault, not used; SUSPECT_READINGS in a row set the monitor aside for the layer. */
-  function opticalSuspect(s: ControllerState, events: RunEvent[], r: Reading): ControllerState {
+  /**
+   * An implausible optical reading: a fault, not used. The SUSPECT_READINGSth in a row is used if
+   * they all agree and are signals at all (the caller goes on with it); else the monitor is set
+   * aside for the layer.
+   */
+  function opticalSuspect(s: ControllerState, events: RunEvent[], r: Reading, limit: number, noSignal: boolean): ControllerState {
+    const o = s.optical;
+    const suspects = o.suspects + 1;
+    const erratic = noSignal || (o.suspects > 0 && (o.erratic || Math.abs(r.value - o.suspectValue) > limit));
+    if (suspects >= SUSPECT_READINGS && !erratic) return { ...s, optical: { ...o, suspects } };
     s = fault({ ...s, nowS: r.timeS }, events, 'implausible-jump', `optical ${r.value} at ${r.timeS} s`);
     if (s.phase !== 'depositing') return s;
-    const suspects = s.optical.suspects + 1;
-    if (suspects < SUSPECT_READINGS) return { ...s, optical: { ...s.optical, suspects } };
-    s = { ...s, optical: { ...s.optical, suspects: 0, distrusted: true } };
+    if (suspects < SUSPECT_READINGS) return { ...s, optical: { ...o, suspects, suspectValue: r.value, erratic } };
+    s = { ...s, optical: { ...o, suspects: 0, suspectValue: Number.NaN, erratic: false, distrusted: true } };
     return alert(s, events, 'optical-implausible', ALERTS['optical-implausible'].sentence);
   }
 
@@ -1238,6 +1263,8 @@ function freshOptical(plan: LayerPlan | undefined, confirm: number): OpticalTrac
     gapFromS: Number.NaN,
     jumpLimit,
     suspects: 0,
+    suspectValue: Number.NaN,
+    erratic: false,
     distrusted: false,
   };
 }

@@ -228,7 +228,8 @@ describe('a flood of bad lines', () => {
   it('3,000 garbled lines over 300 s: the first raises its alert, then a few summaries that count the rest', () => {
     const inject = Array.from({ length: 3000 }, (_, k) => {
       const atS = 10 + k * 0.1;
-      return { atS, input: { kind: 'fault', channel: 'optical', code: 'garbled', line: `#${k}~~`, offset: 0, arrivalS: atS } };
+      const input: PipelineInput = { kind: 'fault', channel: 'optical', code: 'garbled', line: `#${k}~~`, offset: 0, arrivalS: atS };
+      return { atS, input };
     });
     const run = runIdeal(ar4, createController(ar4), { inject });
     expect(run.state.faults.garbled).toBe(3000);
