@@ -59,6 +59,8 @@ function expectSameCuts(run: IdealRunResult, reference: IdealRunResult, toleranc
 
 // One reading's growth on ar4's layers (0.4 nm/s at 10 Hz), nm.
 const READING_NM = 0.04;
+// Implausible readings in a row that are the instrument's, not a line's (controller.ts).
+const SUSPECTS = 5;
 
 describe('one plausible wrong line', () => {
   for (const estimator of ['plain', 'fit'] as const) {
@@ -105,6 +107,34 @@ describe('one plausible wrong line', () => {
     const run = runIdeal(ar4, behind(createController(ar4), once('optical', atS, (r) => ({ ...r, value: 57.3 }))));
     expect(run.state.faults['implausible-jump']).toBe(1);
     expectSameCuts(run, reference, READING_NM);
+  });
+
+  it('an optical monitor that jumps about erratically is set aside for the layer: the crystal cuts it', () => {
+    // ar4 layer 3's planned curve spans 0.735–0.887 at 760 nm (plan): readings alternating 1.45
+    // and −0.45 jump by more than twice that from the last and from each other.
+    const reference = baseline(ar4, {});
+    const fromS = startOf(reference, 3) + 100;
+    let k = 0;
+    const erratic = (input: PipelineInput): PipelineInput =>
+      input.kind === 'reading' && input.channel === 'optical' && input.timeS >= fromS && input.timeS < fromS + 5 ? { ...input, value: k++ % 2 === 0 ? 1.45 : -0.45 } : input;
+    const run = runIdeal(ar4, behind(createController(ar4), erratic));
+    expect(alertCodes(run)).toContain('optical-implausible');
+    expect(alertCodes(run)).toContain('crystal-fallback');
+    expect(alertCodes(run)).not.toContain('mode-restored');
+    const layer = ar4.layers[2] as ResolvedRecipe['layers'][number];
+    expect(ofType(run.events, 'cut').find((c) => c.layer === 3)?.reason).toBe('crystal-thickness');
+    expect(Math.abs((run.trueNm[2] as number) - layer.targetNm)).toBeLessThan(2 * READING_NM);
+  });
+
+  it('an optical level that steps and stays (a monitor changing range) is taken up after five readings', () => {
+    const reference = baseline(ar4, {});
+    const fromS = startOf(reference, 3) + 100;
+    const stepped = (input: PipelineInput): PipelineInput =>
+      input.kind === 'reading' && input.channel === 'optical' && input.timeS >= fromS ? { ...input, value: input.value + 0.35 } : input;
+    const run = runIdeal(ar4, behind(createController(ar4), stepped), { maxS: fromS + 10 });
+    expect(run.state.faults['implausible-jump']).toBe(SUSPECTS - 1);
+    expect(alertCodes(run)).not.toContain('optical-implausible');
+    expect(run.state.optical.value).toBeGreaterThan(1);
   });
 
   it('property: one wild reading anywhere in a run moves no cut by more than a reading’s growth', () => {
@@ -222,6 +252,23 @@ describe('a short monitor gap', () => {
       expect(Math.abs((run.trueNm[1] as number) - (reference.trueNm[1] as number))).toBeLessThan(0.1);
     });
   }
+});
+
+describe('a long monitor gap', () => {
+  it('with the plain rule, a gap that hid two turning points keeps the layer on the crystal; one that hid one does not', () => {
+    // edge layer 27 (level, 170.7 nm on the chip, 244 s) turns at 50.0 and 151.6 nm (plan).
+    const options = { replan: false };
+    const reference = baseline(edge, options);
+    const startS = startOf(reference, 27);
+    const modes = (silentS: [number, number]): string[] => {
+      const run = runIdeal(edge, createController(edge, options), { opticalSilentS: silentS });
+      return ofType(run.events, 'mode-changed')
+        .filter((e) => e.layer === 27)
+        .map((e) => e.to);
+    };
+    expect(modes([startS + 60, startS + 225])).toEqual(['crystal']);
+    expect(modes([startS + 60, startS + 100])).toEqual(['crystal', 'level']);
+  });
 });
 
 describe('a flood of bad lines', () => {
