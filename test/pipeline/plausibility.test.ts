@@ -167,18 +167,20 @@ describe('one plausible wrong line', () => {
 });
 
 describe('a fresh crystal mid-layer', () => {
-  it('is recognised and bridged: the optical layer is armed and cut on its level, the crystal layers after it on target', () => {
-    const reference = baseline(ar4, {});
-    const atS = startOf(reference, 3) + 40;
-    const run = runIdeal(ar4, createController(ar4), { crystalChange: { atS, bareHz: 5_999_700 } });
-    expect(alertCodes(run)).toContain('crystal-changed');
-    expect(alertCodes(run)).not.toContain('crystal-lost');
-    expectSameCuts(run, reference, 2 * READING_NM);
-    // The layer's crystal record is the whole layer: what grew on the old crystal and on the new.
-    const finished = ofType(run.events, 'layer-finished').find((e) => e.layer === 3);
-    const before = ofType(reference.events, 'layer-finished').find((e) => e.layer === 3);
-    expect(Math.abs((finished?.crystalNm ?? 0) - (before?.crystalNm ?? 0))).toBeLessThan(2 * READING_NM);
-  });
+  for (const estimator of ['plain', 'fit'] as const) {
+    it(`is recognised and bridged: the optical layer is armed and cut as planned, the layers after it on target (${estimator})`, () => {
+      const reference = baseline(ar4, { estimator });
+      const atS = startOf(reference, 3) + 40;
+      const run = runIdeal(ar4, createController(ar4, { estimator }), { crystalChange: { atS, bareHz: 5_999_700 } });
+      expect(alertCodes(run)).toContain('crystal-changed');
+      expect(alertCodes(run)).not.toContain('crystal-lost');
+      expectSameCuts(run, reference, 2 * READING_NM);
+      // The layer's crystal record is the whole layer: what grew on the old crystal and on the new.
+      const finished = ofType(run.events, 'layer-finished').find((e) => e.layer === 3);
+      const before = ofType(reference.events, 'layer-finished').find((e) => e.layer === 3);
+      expect(Math.abs((finished?.crystalNm ?? 0) - (before?.crystalNm ?? 0))).toBeLessThan(2 * READING_NM);
+    });
+  }
 
   it('a crystal-cut layer carries on across the change and is cut within two readings’ growth of its target', () => {
     const layer = edge.layers[0] as ResolvedRecipe['layers'][number];
