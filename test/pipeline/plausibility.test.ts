@@ -256,6 +256,20 @@ describe('a short monitor gap', () => {
   }
 });
 
+describe('a crystal that comes back', () => {
+  it('takes its crystal-cut layer back from the clock, which would have cut it on the planned rate', () => {
+    // ar4 layer 1 (crystal, 12.1 nm at 0.4 nm/s): the crystal is silent from 5 s to 8 s, and the
+    // true rate is 10 % above the plan's, so the clock alone would cut it 10 % thick.
+    const run = runIdeal(ar4, createController(ar4), { crystalSilentS: [5, 8], rateFactor: 1.1, maxS: 40 });
+    const changes = ofType(run.events, 'mode-changed').filter((e) => e.layer === 1);
+    expect(changes.map((c) => c.to)).toEqual(['time', 'crystal']);
+    expect(alertCodes(run)).toContain('mode-restored');
+    const layer = ar4.layers[0] as ResolvedRecipe['layers'][number];
+    expect(ofType(run.events, 'cut')[0]?.reason).toBe('crystal-thickness');
+    expect(Math.abs((run.trueNm[0] as number) - layer.targetNm)).toBeLessThan(2 * 1.1 * READING_NM);
+  });
+});
+
 describe('a long monitor gap', () => {
   it('with the plain rule, a gap that hid two turning points keeps the layer on the crystal; one that hid one does not', () => {
     // edge layer 27 (level, 170.7 nm on the chip, 244 s) turns at 50.0 and 151.6 nm (plan).
