@@ -15,6 +15,11 @@ export type AlertCode =
   | 'thickness-ceiling'
   | 'time-ceiling'
   | 'rate-out-of-band'
+  | 'mode-restored'
+  | 'crystal-changed'
+  | 'crystal-implausible'
+  | 'optical-implausible'
+  | 'clock-rebased'
   | 'shutter-no-ack'
   | 'shutter-not-sent'
   | 'operator-cut'
@@ -35,6 +40,8 @@ export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: 
   'fault-line-too-long': { severity: 'warning', sentence: 'An instrument line was too long and was dropped.' },
   'fault-garbled': { severity: 'warning', sentence: 'An instrument line could not be read and was not used.' },
   'fault-unknown-channel': { severity: 'warning', sentence: 'A line named a channel this chamber does not have.' },
+  'fault-implausible-jump': { severity: 'warning', sentence: 'A reading jumped further than any deposition can from the recent readings and was not used.' },
+  'fault-time-jump': { severity: 'warning', sentence: 'A reading’s time lay too far from the run clock’s present and it was not used.' },
   'optical-lost': { severity: 'critical', sentence: 'The optical monitor has gone quiet during an optically cut layer.' },
   'crystal-lost': { severity: 'critical', sentence: 'The crystal monitor has gone quiet (crystal failed or disconnected).' },
   'crystal-fallback': { severity: 'warning', sentence: 'The layer is now cut on the crystal thickness instead of its planned mode.' },
@@ -42,6 +49,20 @@ export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: 
   'thickness-ceiling': { severity: 'critical', sentence: 'The layer reached its thickness ceiling and was cut.' },
   'time-ceiling': { severity: 'critical', sentence: 'The layer ran past its time ceiling and was cut.' },
   'rate-out-of-band': { severity: 'warning', sentence: 'The deposition rate is outside its allowed band.' },
+  'mode-restored': { severity: 'info', sentence: 'The layer’s own monitor is answering again: the layer is back on its planned cut.' },
+  'crystal-changed': { severity: 'warning', sentence: 'A fresh crystal has come into use: the layer’s thickness carries on from where the old crystal left it.' },
+  'crystal-implausible': {
+    severity: 'critical',
+    sentence: 'The crystal’s readings keep jumping as no deposition can: it is not used for the rest of the layer.',
+  },
+  'optical-implausible': {
+    severity: 'critical',
+    sentence: 'The optical monitor’s readings keep jumping as no coating can: it is not used for the rest of the layer.',
+  },
+  'clock-rebased': {
+    severity: 'warning',
+    sentence: 'An instrument’s clock jumped and stayed there: its readings are placed on the run clock from its present on.',
+  },
   'shutter-no-ack': { severity: 'critical', sentence: 'A shutter did not confirm a command in time: check it by hand.' },
   'shutter-not-sent': { severity: 'critical', sentence: 'A shutter command could not be sent (no connection, or no command for that source): act by hand.' },
   'operator-cut': { severity: 'info', sentence: 'The operator cut the layer.' },

@@ -12,7 +12,12 @@
  * - `time`: cut when the planned time less the shutter delay has passed.
  *
  * Guard rails force a cut at a thickness or time ceiling; a silent monitor hands the layer to the
- * crystal, a silent crystal to the clock, each with an alert.
+ * crystal, a silent crystal to the clock, each with an alert, and a monitor that answers again
+ * takes its layer back. Readings must be plausible before they are used: a timestamp more than
+ * `timeJumpS` from the run clock's present, a crystal frequency no deposition rate can reach
+ * from the last one, an optical value no chip can show are faults; several in a row are the
+ * instrument's: a clock re-based, a fresh crystal bridged, or the instrument set aside for the
+ * layer (see {@link SUSPECT_READINGS}).
  *
  * Shutters: a close that has not been confirmed (acknowledged, or written where the chamber
  * acknowledges nothing; with `confirmCloses`, every close until then; without, a close the shutter
@@ -21,7 +26,7 @@
  * operator, having checked the shutter by hand, resumes.
  */
 import { scaledDispersion } from '../model/optics/dispersion.ts';
-import { stackThicknessNm, type CrystalLayer } from '../model/crystal/index.ts';
+import { sauerbreySensitivity, stackThicknessNm, type CrystalLayer } from '../model/crystal/index.ts';
 import { compensate } from '../model/design/compensate.ts';
 import { buildIndexTables, createLayerFit, layerSignalTable, refitChip, type LayerFit, type RefitLayer, type RefitLayerResult } from '../model/estimate/index.ts';
 import { chipMonitorFor, planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
@@ -88,6 +93,13 @@ export interface ControllerOptions {
    * confirms every command; an in-process chamber or a test need not.
    */
   confirmCloses: boolean;
+  /**
+   * A reading whose time lies further than this from the run clock's present is a `time-jump`
+   * fault (default 5 s: readings come several times a second, and silence is ticked through).
+   */
+  timeJumpS: number;
+  /** A monitor that went quiet takes its layer back after answering this long again (default 1 s). */
+  recoverS: number;
 }
 
 export const DEFAULT_CONTROLLER_OPTIONS: ControllerOptions = {
@@ -107,7 +119,44 @@ export const DEFAULT_CONTROLLER_OPTIONS: ControllerOptions = {
   indexSigma: DEFAULT_INDEX_SIGMA,
   chipRefit: true,
   confirmCloses: false,
+  timeJumpS: 5,
+  recoverS: 1,
 };
+
+/**
+ * Implausible readings in a row, on one channel, that are the instrument's and not a line's
+ * (half a second at 10 Hz): a clock that jumped and stays, a crystal changed, or an instrument
+ * set aside for the layer.
+ */
+const SUSPECT_READINGS = 5;
+/**
+ * A crystal reading may fall from the last one by what this many times the planned (or
+ * measured, if higher) rate grows in between, plus {@link CRYSTAL_RISE_HZ}: sources can spit and
+ * rates wander by tens of per cent, never tenfold in a tenth of a second (common practice, no source).
+ */
+const CRYSTAL_RATE_FACTOR = 10;
+/**
+ * A crystal reading may rise from the last one by 10 × its noise plus this much (heat from an
+ * opened source moves a crystal by a few hertz over tens of seconds; config/sim/typical.yaml 3 Hz,
+ * harsh 15 Hz with a 30 s time constant: a fraction of a hertz a reading).
+ */
+const CRYSTAL_RISE_HZ = 5;
+/**
+ * A fresh crystal reads within this fraction of the recipe's bare frequency (6 MHz crystals are
+ * sold within a few kHz of it; from memory, allowed 30 kHz).
+ */
+const FRESH_CRYSTAL_BAND = 0.005;
+/**
+ * An optical reading may not jump from the last one by more than twice the layer's whole planned
+ * curve range (0–120 % of the target) and 20σ: no chip does that in one reading. Any reading
+ * must lie within half the full scale beyond 0..1 (no transmittance or reflectance does).
+ */
+const OPTICAL_JUMP_SIGMAS = 20;
+/** Nor by less than a tenth of full scale: a monitor that noisy would be of no use at all. */
+const OPTICAL_JUMP_FLOOR = 0.1;
+const OPTICAL_SIGNAL_ALLOWANCE = 0.5;
+/** After a fault's first alert, at most one summary of its code per this much run time, s. */
+const FAULT_SUMMARY_S = 30;
 
 /**
  * Layers refitted together: the last few on the chip, those below held at their estimates. The
@@ -191,6 +240,20 @@ interface OpticalTrack {
   readonly turnsNeeded: number;
   /** Consecutive readings beyond the trigger level. */
   readonly beyond: number;
+  /** Start of the present unbroken run of readings (gaps under staleAfterS), and where the gap before it began. */
+  readonly since: number;
+  readonly gapFromS: number;
+  /** Twice the range of the layer's planned curve: a jump beyond it (and 20σ) is implausible. */
+  readonly jumpLimit: number;
+  /**
+   * Consecutive implausible readings, the last of them, and whether they jumped among themselves
+   * too; at SUSPECT_READINGS, readings that agree are the signal's new level, erratic ones set the
+   * monitor aside for the layer.
+   */
+  readonly suspects: number;
+  readonly suspectValue: number;
+  readonly erratic: boolean;
+  readonly distrusted: boolean;
 }
 
 interface CrystalTrack {
@@ -199,6 +262,54 @@ interface CrystalTrack {
   /** This layer's thickness on the parts from the crystal, nm (NaN before the first reading). */
   readonly partNm: number;
   readonly rateNmPerS: number;
+  /** Start of the present unbroken run of accepted readings. */
+  readonly since: number;
+  /** Implausible readings in a row, or null. */
+  readonly suspect: CrystalSuspect | null;
+  /** The layer for which the crystal is set aside (its readings jumped as no deposition can), or −1. */
+  readonly distrustLayer: number;
+}
+
+interface CrystalSuspect {
+  readonly count: number;
+  readonly firstHz: number;
+  readonly firstS: number;
+  readonly lastHz: number;
+  readonly lastS: number;
+  /** Every one of them a rise to near a fresh crystal's frequency. */
+  readonly fresh: boolean;
+}
+
+/**
+ * The crystal in use: its bare frequency and the layers on it. A fresh crystal mid-run starts a
+ * new one: the finished layers' records (crystalBelow) stay, the crystal's own stack restarts
+ * empty, and the layer growing at the change carries what it had grown on the old one.
+ */
+interface CrystalUnit {
+  readonly referenceHz: number;
+  readonly stack: readonly CrystalLayer[];
+  /** The layer growing when this crystal came into use (−1 for the first), and its crystal nm until then. */
+  readonly layer: number;
+  readonly carriedNm: number;
+}
+
+/**
+ * A channel's clock: the offset it was re-based by, and the time-jumped readings in a row (the
+ * last one's time, the first one's and the run clock's present when it came).
+ */
+interface ChannelClock {
+  readonly offsetS: number;
+  readonly streak: number;
+  readonly lastS: number;
+  readonly firstS: number;
+  readonly presentS: number;
+}
+
+/** What the alerts have said of a fault code: how many they counted, when the last went out, since when more came. */
+interface FaultReport {
+  readonly reported: number;
+  readonly alertedS: number;
+  readonly sinceS: number;
 }
 
 export interface ControllerState {
@@ -213,8 +324,11 @@ export interface ControllerState {
   readonly mode: CutMode;
   readonly optical: OpticalTrack;
   readonly crystal: CrystalTrack;
-  /** Crystal thickness of each finished layer as the crystal saw it, nm. */
+  /** Crystal thickness of each finished layer as the crystal saw it, nm (whichever crystals it grew on). */
   readonly crystalBelow: readonly CrystalLayer[];
+  readonly crystalUnit: CrystalUnit;
+  /** Each channel's clock offset (an instrument whose clock jumped, re-based). */
+  readonly clocks: { readonly optical: ChannelClock; readonly crystal: ChannelClock };
   /** Estimated part thickness of each finished layer, nm. */
   readonly achievedNm: readonly number[];
   /**
@@ -248,7 +362,11 @@ export interface ControllerState {
   readonly crystalAlerted: boolean;
   readonly openAlerts: readonly string[];
   readonly alertCount: number;
+  /** Exact count of every fault code; the alerts report them, thinned (FAULT_SUMMARY_S). */
   readonly faults: Readonly<Partial<Record<FaultCode, number>>>;
+  readonly faultReports: Readonly<Partial<Record<FaultCode, FaultReport>>>;
+  /** When the next summary of faults not yet reported is due (Infinity: none waiting). */
+  readonly faultsDueS: number;
   readonly lastOpticalS: number;
   readonly lastCrystalS: number;
   readonly layerCrystalNm: number;
@@ -309,8 +427,10 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       cutAtS: Number.NaN,
       mode: plan.layers[0]?.cut ?? 'time',
       optical: freshOptical(plan.layers[0], confirmStep(plan.layers[0])),
-      crystal: { lastS: Number.NaN, frequencyHz: Number.NaN, partNm: Number.NaN, rateNmPerS: Number.NaN },
+      crystal: { lastS: Number.NaN, frequencyHz: Number.NaN, partNm: Number.NaN, rateNmPerS: Number.NaN, since: Number.NaN, suspect: null, distrustLayer: -1 },
       crystalBelow: [],
+      crystalUnit: { referenceHz: f0, stack: [], layer: -1, carriedNm: 0 },
+      clocks: { optical: STEADY_CLOCK, crystal: STEADY_CLOCK },
       achievedNm: [],
       indexFactors: [],
       opticalNm: [],
@@ -324,6 +444,8 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       openAlerts: [],
       alertCount: 0,
       faults: {},
+      faultReports: {},
+      faultsDueS: Number.POSITIVE_INFINITY,
       lastOpticalS: Number.NaN,
       lastCrystalS: Number.NaN,
       layerCrystalNm: Number.NaN,
@@ -338,13 +460,8 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const events: RunEvent[] = [];
     let s = state;
     switch (input.kind) {
-      case 'fault': {
-        const faults = { ...s.faults, [input.code]: (s.faults[input.code] ?? 0) + 1 };
-        s = { ...s, faults };
-        // One alert per code per layer would be kinder; the count keeps the rest.
-        if ((faults[input.code] ?? 0) === 1) s = alert(s, events, `fault-${input.code}`, `${ALERTS[`fault-${input.code}`].sentence} (${input.line.slice(0, 60)})`);
-        return { state: s, events };
-      }
+      case 'fault':
+        return { state: fault(s, events, input.code, input.line), events };
       case 'operator':
         return operator(s, input, events);
       case 'shutter-ack':
@@ -358,13 +475,19 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         s = withReading(s, input.timeS, s.lastOpticalS, s.lastCrystalS, s.optical, s.crystal, s.layerCrystalNm);
         break;
       case 'reading': {
-        if (input.timeS < s.nowS) {
-          return step(s, { kind: 'fault', channel: input.channel, code: 'time-backwards', line: `${input.channel} at ${input.timeS} s`, offset: 0, arrivalS: input.arrivalS });
+        const clock = s.clocks[input.channel];
+        let timeS = input.timeS - clock.offsetS;
+        if (Math.abs(timeS - s.nowS) > opts.timeJumpS && Number.isFinite(s.nowS)) {
+          s = clockJump(s, events, input, timeS);
+          if (s.clocks[input.channel].streak !== 0) return { state: s, events };
+          timeS = input.timeS - s.clocks[input.channel].offsetS;
+        } else if (clock.streak !== 0) {
+          s = { ...s, clocks: { ...s.clocks, [input.channel]: { ...STEADY_CLOCK, offsetS: clock.offsetS } } };
         }
-        if (!Number.isFinite(input.value)) {
-          return step(s, { kind: 'fault', channel: input.channel, code: 'not-a-number', line: `${input.channel} ${input.value}`, offset: 0, arrivalS: input.arrivalS });
-        }
-        s = input.channel === 'optical' ? onOptical(s, input) : onCrystal(s, input);
+        if (timeS < s.nowS) return { state: fault(s, events, 'time-backwards', `${input.channel} at ${input.timeS} s`), events };
+        if (!Number.isFinite(input.value)) return { state: fault(s, events, 'not-a-number', `${input.channel} ${input.value}`), events };
+        const reading = timeS === input.timeS ? input : { ...input, timeS };
+        s = reading.channel === 'optical' ? onOptical(s, reading, events) : onCrystal(s, reading, events);
         break;
       }
     }
@@ -372,14 +495,87 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     return { state: s, events: events.length === 0 ? NO_EVENTS : events };
   }
 
-  function onOptical(s: ControllerState, r: Reading): ControllerState {
-    if (s.fit && (s.phase === 'depositing' || s.phase === 'closing')) {
+  /**
+   * Counts a fault. The first of its code raises its alert; later ones wait for a summary at
+   * most every FAULT_SUMMARY_S of run time (advance sends it), so that a flood shows with its
+   * numbers without flooding the alerts.
+   */
+  function fault(s: ControllerState, events: RunEvent[], code: FaultCode, line: string): ControllerState {
+    const count = (s.faults[code] ?? 0) + 1;
+    const faults = { ...s.faults, [code]: count };
+    const nowS = Number.isFinite(s.nowS) ? s.nowS : 0;
+    const report = s.faultReports[code];
+    if (!report) {
+      s = { ...s, faults, faultReports: { ...s.faultReports, [code]: { reported: count, alertedS: nowS, sinceS: Number.NaN } } };
+      return alert(s, events, `fault-${code}`, `${ALERTS[`fault-${code}`].sentence} (${line.slice(0, 60)})`);
+    }
+    const waiting = report.reported < count - 1;
+    const next = waiting ? report : { reported: report.reported, alertedS: report.alertedS, sinceS: nowS };
+    return { ...s, faults, faultReports: { ...s.faultReports, [code]: next }, faultsDueS: Math.min(s.faultsDueS, report.alertedS + FAULT_SUMMARY_S) };
+  }
+
+  /** The faults counted since their code's last alert, one summary alert a code. */
+  function reportFaults(s: ControllerState, events: RunEvent[]): ControllerState {
+    const faultReports = { ...s.faultReports };
+    for (const [code, report] of Object.entries(s.faultReports) as [FaultCode, FaultReport][]) {
+      const count = s.faults[code] ?? 0;
+      if (report.reported >= count) continue;
+      const more = count - report.reported;
+      s = alert(s, events, `fault-${code}`, `${more} more ${more === 1 ? 'line' : 'lines'} not used since ${report.sinceS.toFixed(1)} s (${count} in all): ${ALERTS[`fault-${code}`].sentence}`);
+      faultReports[code] = { reported: count, alertedS: s.nowS, sinceS: Number.NaN };
+    }
+    return { ...s, faultReports, faultsDueS: Number.POSITIVE_INFINITY };
+  }
+
+  /**
+   * A reading more than timeJumpS from the run clock's present is not used and does not move
+   * the clock. SUSPECT_READINGS in a row on one channel, each a sane step from the last, mean its
+   * instrument's clock jumped (restarted, or reset): the channel is re-based, its readings from
+   * then on placed on the run clock from its present (a run clock that jumped would put every
+   * other channel out of date, and time-cut layers off by the jump).
+   */
+  function clockJump(s: ControllerState, events: RunEvent[], r: Reading, timeS: number): ControllerState {
+    const clock = s.clocks[r.channel];
+    const steady = clock.streak > 0 && timeS >= clock.lastS && timeS - clock.lastS <= opts.timeJumpS;
+    const first = steady ? { firstS: clock.firstS, presentS: clock.presentS } : { firstS: timeS, presentS: s.nowS };
+    const streak = steady ? clock.streak + 1 : 1;
+    if (streak < SUSPECT_READINGS) {
+      s = { ...s, clocks: { ...s.clocks, [r.channel]: { offsetS: clock.offsetS, streak, lastS: timeS, ...first } } };
+      return fault(s, events, 'time-jump', `${r.channel} at ${r.timeS} s`);
+    }
+    // The streak's first reading came at the present of its arrival; this one as far after it.
+    const jumpS = timeS - Math.max(s.nowS, first.presentS + (timeS - first.firstS));
+    s = { ...s, clocks: { ...s.clocks, [r.channel]: { ...STEADY_CLOCK, offsetS: clock.offsetS + jumpS } } };
+    return alert(s, events, 'clock-rebased', `${ALERTS['clock-rebased'].sentence} (${r.channel}, ${jumpS >= 0 ? '+' : ''}${jumpS.toFixed(1)} s)`);
+  }
+
+  function onOptical(s: ControllerState, r: Reading, events: RunEvent[]): ControllerState {
+    const o = s.optical;
+    const growing = s.phase === 'depositing' || s.phase === 'closing';
+    if (growing && o.distrusted) return withReading(s, r.timeS, s.lastOpticalS, s.lastCrystalS, o, s.crystal, s.layerCrystalNm);
+    if (growing) {
+      // Plausibility: no chip moves its signal by twice its layer's whole curve in one reading.
+      // In a layer's first second, or the first after a gap, the last reading is no reference (a
+      // monitor changing wavelength, a signal moving through the gap): a reading there only has
+      // to be a signal at all. Five readings that agree take over from a wrong reference.
+      const limit = Math.max(OPTICAL_JUMP_SIGMAS * noise, o.jumpLimit, OPTICAL_JUMP_FLOOR);
+      const settled = r.timeS - o.since >= opts.recoverS;
+      const noSignal = Math.abs(r.value - 0.5) > 0.5 + OPTICAL_SIGNAL_ALLOWANCE;
+      if (noSignal || (settled && Math.abs(r.value - o.value) > limit)) {
+        s = opticalSuspect(s, events, r, limit, noSignal);
+        // Readings that agree among themselves are the signal's level (the reference was the wrong one).
+        if (s.optical.suspects < SUSPECT_READINGS || s.optical.distrusted) return s;
+      }
+    }
+    if (s.fit && growing) {
       s.fit.fit.add(fitClockAt(recipe, s, r.timeS), r.value);
       s.fit.fit.update();
     }
     if (s.phase !== 'depositing') return withReading(s, r.timeS, r.timeS, s.lastCrystalS, s.optical, s.crystal, s.layerCrystalNm);
     const plan = layerPlan(s);
-    const o = s.optical;
+    // A gap resets the run of readings the monitor needs before it takes its layer back.
+    const lastS = Number.isNaN(s.lastOpticalS) ? s.openedAtS : Math.max(s.lastOpticalS, s.openedAtS);
+    const unbroken = !Number.isNaN(o.since) && r.timeS - lastS < opts.staleAfterS;
     const confirm = o.confirm;
     const smoothed = Number.isNaN(o.smoothed) ? r.value : o.smoothed + (1 - Math.exp(-(r.timeS - o.lastS) / opts.turnSmoothingS)) * (r.value - o.smoothed);
     let { extreme, trend, turnsPassed } = o;
@@ -402,32 +598,149 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       confirm: o.confirm,
       turnsNeeded: o.turnsNeeded,
       beyond,
+      since: unbroken ? o.since : r.timeS,
+      gapFromS: unbroken ? o.gapFromS : lastS,
+      jumpLimit: o.jumpLimit,
+      suspects: 0,
+      suspectValue: Number.NaN,
+      erratic: false,
+      distrusted: false,
     };
     return withReading(s, r.timeS, r.timeS, s.lastCrystalS, optical, s.crystal, s.layerCrystalNm);
   }
 
-  function onCrystal(s: ControllerState, r: Reading): ControllerState {
+  /**
+   * An implausible optical reading: a fault, not used. The SUSPECT_READINGSth in a row is used if
+   * they all agree and are signals at all (the caller goes on with it); else the monitor is set
+   * aside for the layer.
+   */
+  function opticalSuspect(s: ControllerState, events: RunEvent[], r: Reading, limit: number, noSignal: boolean): ControllerState {
+    const o = s.optical;
+    const suspects = o.suspects + 1;
+    const erratic = noSignal || (o.suspects > 0 && (o.erratic || Math.abs(r.value - o.suspectValue) > limit));
+    if (suspects >= SUSPECT_READINGS && !erratic) return { ...s, optical: { ...o, suspects } };
+    s = fault({ ...s, nowS: r.timeS }, events, 'implausible-jump', `optical ${r.value} at ${r.timeS} s`);
+    if (s.phase !== 'depositing') return s;
+    if (suspects < SUSPECT_READINGS) return { ...s, optical: { ...o, suspects, suspectValue: r.value, erratic } };
+    s = { ...s, optical: { ...o, suspects: 0, suspectValue: Number.NaN, erratic: false, distrusted: true } };
+    return alert(s, events, 'optical-implausible', ALERTS['optical-implausible'].sentence);
+  }
+
+  function onCrystal(s: ControllerState, r: Reading, events: RunEvent[]): ControllerState {
+    let c = s.crystal;
+    const inRun = s.phase === 'depositing' || s.phase === 'closing' || s.phase === 'holding';
+    if (inRun && Number.isFinite(c.frequencyHz)) {
+      if (c.distrustLayer === s.index) return withReading(s, r.timeS, s.lastOpticalS, s.lastCrystalS, s.optical, c, s.layerCrystalNm);
+      if (!crystalStepPlausible(s, c.frequencyHz, c.lastS, r.value, r.timeS)) {
+        s = crystalSuspect(s, events, r);
+        if (s.crystal.suspect !== null || s.crystal.distrustLayer === s.index) return s;
+        // A fresh crystal, recognised: this reading is its first used.
+        c = s.crystal;
+      }
+    }
+    const since = Number.isNaN(c.since) || !(r.timeS - c.lastS < opts.staleAfterS) ? r.timeS : c.since;
     if (s.phase !== 'depositing' && s.phase !== 'closing') {
-      const crystal = { lastS: r.timeS, frequencyHz: r.value, partNm: s.crystal.partNm, rateNmPerS: s.crystal.rateNmPerS };
+      const crystal = { lastS: r.timeS, frequencyHz: r.value, partNm: c.partNm, rateNmPerS: c.rateNmPerS, since, suspect: null, distrustLayer: c.distrustLayer };
       return withReading(s, r.timeS, s.lastOpticalS, r.timeS, s.optical, crystal, s.layerCrystalNm);
     }
     const layer = layerRecipe(s);
-    const crystalNm = stackThicknessNm(f0, r.value, s.crystalBelow, { densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio });
+    if (Number.isNaN(s.crystalUnit.referenceHz)) s = crystalReference(s, r);
+    const unit = s.crystalUnit;
+    const onUnit = stackThicknessNm(unit.referenceHz, r.value, unit.stack, { densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio });
     // A reading above the frequency of the layers below (noise, warming) means no film yet.
-    const partNm = (Number.isFinite(crystalNm) ? crystalNm : 0) * layer.toolingFactor;
-    const c = s.crystal;
+    const crystalNm = (Number.isFinite(onUnit) ? onUnit : 0) + (unit.layer === s.index ? unit.carriedNm : 0);
+    const partNm = crystalNm * layer.toolingFactor;
     let rate = c.rateNmPerS;
     if (Number.isFinite(c.partNm) && r.timeS > c.lastS) {
       const instant = (partNm - c.partNm) / (r.timeS - c.lastS);
       const a = Math.min(1, (r.timeS - c.lastS) / opts.rateSmoothingS);
       rate = Number.isFinite(rate) ? rate + a * (instant - rate) : layer.rateNmPerS;
     }
-    const crystal = { lastS: r.timeS, frequencyHz: r.value, partNm, rateNmPerS: rate };
-    return withReading(s, r.timeS, s.lastOpticalS, r.timeS, s.optical, crystal, Number.isFinite(crystalNm) ? crystalNm : 0);
+    const crystal = { lastS: r.timeS, frequencyHz: r.value, partNm, rateNmPerS: rate, since, suspect: null, distrustLayer: c.distrustLayer };
+    return withReading(s, r.timeS, s.lastOpticalS, r.timeS, s.optical, crystal, crystalNm);
+  }
+
+  /**
+   * The crystal's stack is unknown (it did not see a whole layer): this reading is its reference,
+   * as though a fresh crystal (the usual folding of the layers below into the reference, good to
+   * the Z-match's correction of them), and what the layer grew before it is bridged at the
+   * planned rate.
+   */
+  function crystalReference(s: ControllerState, r: Reading): ControllerState {
+    const layer = layerRecipe(s);
+    const closeS = Number.isFinite(s.cutAtS) ? s.cutAtS + layer.shutterDelayS : Number.POSITIVE_INFINITY;
+    const carriedNm = (layer.rateNmPerS / layer.toolingFactor) * Math.max(0, Math.min(r.timeS, closeS) - s.openedAtS);
+    return { ...s, crystalUnit: { referenceHz: r.value, stack: [], layer: s.index, carriedNm } };
+  }
+
+  /**
+   * Whether a crystal can go from `fromHz` at `fromS` to `toHz` at `toS`: it falls by what the
+   * film grows, at most CRYSTAL_RATE_FACTOR × the planned or measured rate (Sauerbrey at the
+   * present frequency: the Z-match moves it by far less than that factor), and rises by no more
+   * than noise and heat.
+   */
+  function crystalStepPlausible(s: ControllerState, fromHz: number, fromS: number, toHz: number, toS: number): boolean {
+    const layer = layerRecipe(s);
+    const slackHz = 10 * recipe.crystal.noiseHz + CRYSTAL_RISE_HZ;
+    const change = toHz - fromHz;
+    if (change > slackHz) return false;
+    const measured = s.crystal.rateNmPerS;
+    const partRate = Number.isFinite(measured) && measured > layer.rateNmPerS ? measured : layer.rateNmPerS;
+    // Hz per crystal nm: C_f·ρ·(1 nm in cm) (Sauerbrey 1959, crystal.ts).
+    const hzPerNm = sauerbreySensitivity(fromHz) * layer.densityGPerCm3 * 1e-7;
+    const dtS = Number.isFinite(fromS) ? Math.max(0, toS - fromS) : 0;
+    return -change <= hzPerNm * CRYSTAL_RATE_FACTOR * (partRate / layer.toolingFactor) * dtS + slackHz;
+  }
+
+  /**
+   * An implausible crystal reading: a fault, not used. SUSPECT_READINGS in a row, each a
+   * plausible step from the one before, are the instrument's: a rise to near a fresh crystal's
+   * frequency is a crystal change (bridged), anything else sets the crystal aside for the layer
+   * (it reads as silent: the fallbacks take over).
+   */
+  function crystalSuspect(s: ControllerState, events: RunEvent[], r: Reading): ControllerState {
+    const c = s.crystal;
+    const p = c.suspect;
+    const fresh = Math.abs(r.value - f0) <= FRESH_CRYSTAL_BAND * f0 && r.value > c.frequencyHz;
+    const steady = p !== null && crystalStepPlausible(s, p.lastHz, p.lastS, r.value, r.timeS);
+    const suspect: CrystalSuspect = steady
+      ? { count: p.count + 1, firstHz: p.firstHz, firstS: p.firstS, lastHz: r.value, lastS: r.timeS, fresh: p.fresh && fresh }
+      : { count: 1, firstHz: r.value, firstS: r.timeS, lastHz: r.value, lastS: r.timeS, fresh };
+    s = fault({ ...s, nowS: r.timeS }, events, 'implausible-jump', `crystal ${r.value} Hz at ${r.timeS} s`);
+    if (suspect.count < SUSPECT_READINGS) return { ...s, crystal: { ...c, suspect } };
+    if (suspect.fresh) return crystalChanged(s, events, suspect);
+    s = { ...s, crystalAlerted: true, crystal: { ...c, suspect: null, distrustLayer: s.index } };
+    return alert(s, events, 'crystal-implausible', ALERTS['crystal-implausible'].sentence);
+  }
+
+  /**
+   * A fresh crystal came into use: it is the reference from its first reading on, its stack
+   * empty; the layer growing carries what it had grown, bridged at its rate from the old
+   * crystal's last reading to the new one's first, so its thickness, rate, arming and the fit's
+   * clock carry on.
+   */
+  function crystalChanged(s: ControllerState, events: RunEvent[], suspect: CrystalSuspect): ControllerState {
+    const c = s.crystal;
+    const layer = layerRecipe(s);
+    const before = Number.isFinite(s.layerCrystalNm) ? s.layerCrystalNm : 0;
+    const closeS = Number.isFinite(s.cutAtS) ? s.cutAtS + layer.shutterDelayS : Number.POSITIVE_INFINITY;
+    const growing = s.phase === 'depositing' || s.phase === 'closing';
+    const fromS = Number.isFinite(c.lastS) ? Math.max(c.lastS, s.openedAtS) : s.openedAtS;
+    const rate = (Number.isFinite(c.rateNmPerS) ? c.rateNmPerS : layer.rateNmPerS) / layer.toolingFactor;
+    const bridgeNm = growing ? rate * Math.max(0, Math.min(suspect.firstS, closeS) - fromS) : 0;
+    const carriedNm = before + bridgeNm;
+    s = {
+      ...s,
+      crystalUnit: { referenceHz: suspect.firstHz, stack: [], layer: s.index, carriedNm },
+      layerCrystalNm: Number.isFinite(s.layerCrystalNm) ? carriedNm : s.layerCrystalNm,
+      crystal: { ...c, frequencyHz: suspect.firstHz, lastS: suspect.firstS, partNm: Number.isFinite(c.partNm) ? carriedNm * layer.toolingFactor : c.partNm, suspect: null },
+    };
+    return alert(s, events, 'crystal-changed', `${ALERTS['crystal-changed'].sentence} (${suspect.firstHz.toFixed(0)} Hz)`);
   }
 
   /** Everything that follows from the state at its current time: starts, cuts, finishes, guards. */
   function advance(s: ControllerState, events: RunEvent[]): ControllerState {
+    if (s.nowS >= s.faultsDueS) s = reportFaults(s, events);
     if (s.phase === 'closing' && s.nowS >= s.cutAtS + layerRecipe(s).shutterDelayS + opts.settleS) {
       return finishLayer(s, events, false);
     }
@@ -436,17 +749,14 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const layer = layerRecipe(s);
     const elapsed = s.nowS - s.openedAtS;
 
-    // A silent channel hands the layer on.
-    const opticalSilent = !(s.nowS - (Number.isNaN(s.lastOpticalS) ? s.openedAtS : Math.max(s.lastOpticalS, s.openedAtS)) < opts.staleAfterS);
-    const crystalSilent = !(s.nowS - (Number.isNaN(s.lastCrystalS) ? s.openedAtS : Math.max(s.lastCrystalS, s.openedAtS)) < opts.staleAfterS);
-    if ((s.mode === 'level' || s.mode === 'turning-point') && opticalSilent) {
-      s = alert(s, events, 'optical-lost', ALERTS['optical-lost'].sentence);
-      s = changeMode(s, events, crystalSilent ? 'time' : 'crystal', crystalSilent ? 'time-fallback' : 'crystal-fallback');
-    }
-    if (crystalSilent && !s.crystalAlerted) {
-      s = alert({ ...s, crystalAlerted: true }, events, 'crystal-lost', ALERTS['crystal-lost'].sentence);
-      if (s.mode === 'crystal') s = changeMode(s, events, 'time', 'time-fallback');
-    }
+    // A silent channel (or one set aside for the layer) hands the layer on; one answering again takes it back.
+    const opticalSilent = s.optical.distrusted || !(s.nowS - (Number.isNaN(s.lastOpticalS) ? s.openedAtS : Math.max(s.lastOpticalS, s.openedAtS)) < opts.staleAfterS);
+    const crystalSilent =
+      s.crystal.distrustLayer === s.index || !(s.nowS - (Number.isNaN(s.lastCrystalS) ? s.openedAtS : Math.max(s.lastCrystalS, s.openedAtS)) < opts.staleAfterS);
+    if ((s.mode === 'level' || s.mode === 'turning-point') && opticalSilent) s = alert(s, events, 'optical-lost', ALERTS['optical-lost'].sentence);
+    if (crystalSilent && !s.crystalAlerted) s = alert({ ...s, crystalAlerted: true }, events, 'crystal-lost', ALERTS['crystal-lost'].sentence);
+    const wanted = wantedMode(s, plan, opticalSilent, crystalSilent);
+    if (wanted !== s.mode) s = changeMode(s, events, wanted, wanted === plan.cut ? 'mode-restored' : wanted === 'crystal' ? 'crystal-fallback' : 'time-fallback');
 
     const rate = Number.isFinite(s.crystal.rateNmPerS) && !crystalSilent ? s.crystal.rateNmPerS : layer.rateNmPerS;
     const thickness = !crystalSilent && Number.isFinite(s.crystal.partNm) ? s.crystal.partNm : layer.rateNmPerS * elapsed;
@@ -531,6 +841,37 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     }
   }
 
+  /**
+   * The mode the layer should be cut in now: its planned one while its monitor answers, else the
+   * crystal, else the clock. Leaving a mode takes silence (staleAfterS); coming back to one takes
+   * recoverS of unbroken readings, and for an optical layer without the fit (which runs on its
+   * own clock through a gap) a gap that hid at most one turning point, which the turn detector
+   * still counts when the signal shows up past it.
+   */
+  function wantedMode(s: ControllerState, plan: LayerPlan, opticalSilent: boolean, crystalSilent: boolean): CutMode {
+    const planned = plan.cut;
+    if (planned === 'time') return s.mode;
+    const optical = planned === 'level' || planned === 'turning-point';
+    const opticalUsable = optical && !opticalSilent && (s.mode === planned || (s.nowS - s.optical.since >= opts.recoverS && (s.fit !== null || gapHidesOneTurnAtMost(s, plan, crystalSilent))));
+    if (opticalUsable) return planned;
+    const crystalUsable = !crystalSilent && (s.mode === 'crystal' || s.nowS - s.crystal.since >= opts.recoverS);
+    return crystalUsable ? 'crystal' : 'time';
+  }
+
+  /** Whether the optical gap before the present run of readings spans at most one of the layer's planned turning points. */
+  function gapHidesOneTurnAtMost(s: ControllerState, plan: LayerPlan, crystalSilent: boolean): boolean {
+    const layer = layerRecipe(s);
+    const elapsed = s.nowS - s.openedAtS;
+    const partNm = !crystalSilent && Number.isFinite(s.crystal.partNm) ? s.crystal.partNm : layer.rateNmPerS * elapsed;
+    const rate = !crystalSilent && Number.isFinite(s.crystal.rateNmPerS) ? s.crystal.rateNmPerS : layer.rateNmPerS;
+    const chip = (nm: number): number => nm * layer.chipRatio;
+    // The gap's span on the chip, widened by a tenth of the target for the rate's error.
+    const margin = 0.1 * plan.chipTargetNm;
+    const fromNm = chip(partNm - rate * (s.nowS - s.optical.gapFromS)) - margin;
+    const toNm = chip(partNm - rate * (s.nowS - s.optical.since)) + margin;
+    return plan.turningPoints.filter((tp) => tp.thicknessNm >= fromNm && tp.thicknessNm <= toNm).length <= 1;
+  }
+
   function cut(s: ControllerState, events: RunEvent[], reason: CutReason, estimatedNm: number, delayAllowanceNm: number, recordedNm = estimatedNm): ControllerState {
     const layer = layerRecipe(s);
     events.push({ type: 'cut', timeS: s.nowS, layer: layer.number, reason, estimatedNm, delayAllowanceNm, signal: s.optical.value });
@@ -575,9 +916,16 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         }
       }
     }
-    const crystalNm = Number.isFinite(s.layerCrystalNm) ? s.layerCrystalNm : 0;
+    // A crystal set aside or silent at the layer's end did not see all of it: its record is
+    // unknown, and the crystal's next reading becomes its reference (crystalReference).
+    const followed = s.crystal.distrustLayer !== s.index && s.nowS - s.lastCrystalS < opts.staleAfterS;
+    const crystalNm = !followed ? Number.NaN : Number.isFinite(s.layerCrystalNm) ? s.layerCrystalNm : 0;
     const crystalBelow = [...s.crystalBelow, { thicknessNm: crystalNm, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio }];
-    s = { ...s, indexFactors, opticalNm, materialIndex, materialRate, crystalBelow };
+    // The crystal in use carries only what grew on it.
+    const unit = s.crystalUnit;
+    const onUnitNm = Math.max(0, crystalNm - (unit.layer === s.index ? unit.carriedNm : 0));
+    const crystalUnit = followed ? { ...unit, stack: [...unit.stack, { thicknessNm: onUnitNm, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio }] } : UNKNOWN_CRYSTAL;
+    s = { ...s, indexFactors, opticalNm, materialIndex, materialRate, crystalBelow, crystalUnit };
     if (record) s = refitRecords({ ...s, chipRecords: [...s.chipRecords, record].slice(-REFIT_LAYERS) });
     const materialAfter = [...s.materialAfter];
     materialAfter[s.index] = { rate: s.materialRate, index: s.materialIndex };
@@ -589,7 +937,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       timeS: s.nowS,
       layer: layer.number,
       estimatedNm,
-      crystalNm: Number.isFinite(s.layerCrystalNm) ? s.layerCrystalNm * layer.toolingFactor : Number.NaN,
+      crystalNm: crystalNm * layer.toolingFactor,
       indexFactor: resolved.indexFactors[s.index] as number,
       skipped,
     });
@@ -964,6 +1312,8 @@ function withReading(
     optical,
     crystal,
     crystalBelow: s.crystalBelow,
+    crystalUnit: s.crystalUnit,
+    clocks: s.clocks,
     achievedNm: s.achievedNm,
     indexFactors: s.indexFactors,
     opticalNm: s.opticalNm,
@@ -977,6 +1327,8 @@ function withReading(
     openAlerts: s.openAlerts,
     alertCount: s.alertCount,
     faults: s.faults,
+    faultReports: s.faultReports,
+    faultsDueS: s.faultsDueS,
     lastOpticalS,
     lastCrystalS,
     layerCrystalNm,
@@ -987,10 +1339,38 @@ function withReading(
   };
 }
 
+const STEADY_CLOCK: ChannelClock = Object.freeze({ offsetS: 0, streak: 0, lastS: Number.NaN, firstS: Number.NaN, presentS: Number.NaN });
+/** A crystal whose stack is not known: its next reading is its reference. */
+const UNKNOWN_CRYSTAL: CrystalUnit = Object.freeze({ referenceHz: Number.NaN, stack: [], layer: -1, carriedNm: 0 });
+
 function freshOptical(plan: LayerPlan | undefined, confirm: number): OpticalTrack {
   const { trend, turnsNeeded } = visibleTurns(plan, confirm);
+  let low = Number.POSITIVE_INFINITY;
+  let high = Number.NEGATIVE_INFINITY;
+  for (const v of plan?.curve.signal ?? []) {
+    if (v < low) low = v;
+    if (v > high) high = v;
+  }
+  const jumpLimit = high >= low ? 2 * (high - low) : 0;
   // The extremum starts at the first reading, not the plan's start: gain and offset drift.
-  return { lastS: Number.NaN, value: Number.NaN, smoothed: Number.NaN, extreme: Number.NaN, trend, turnsPassed: 0, turnsNeeded, beyond: 0, confirm };
+  return {
+    lastS: Number.NaN,
+    value: Number.NaN,
+    smoothed: Number.NaN,
+    extreme: Number.NaN,
+    trend,
+    turnsPassed: 0,
+    turnsNeeded,
+    beyond: 0,
+    confirm,
+    since: Number.NaN,
+    gapFromS: Number.NaN,
+    jumpLimit,
+    suspects: 0,
+    suspectValue: Number.NaN,
+    erratic: false,
+    distrusted: false,
+  };
 }
 
 /**

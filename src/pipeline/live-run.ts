@@ -73,11 +73,9 @@ export function createLiveRun(options: LiveRunOptions): LiveRun {
     decide(options.controller, options.resumeFrom),
     tap((decision) => {
       for (const event of decision.events) if (event.type === 'shutter') options.shutter.send(event.command);
-      // The run clock moves on with the readings the controller took (a reading it refused, a
-      // time far ahead say, must not drag the ticks and the acknowledgements along).
-      const input = decision.input;
-      if (input.kind === 'reading' && decision.state.nowS === input.timeS) {
-        lastRunS = Math.max(lastRunS, input.timeS);
+      // The run clock is the controller's: a reading it refused (a time that jumped) moves neither it nor the ticks.
+      if (decision.state.nowS > lastRunS) {
+        lastRunS = decision.state.nowS;
         lastArrivalS = clock();
       }
     }),

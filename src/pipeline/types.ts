@@ -27,8 +27,13 @@ export interface Reading {
   readonly arrivalS: number;
 }
 
-/** Stable codes of input faults (documented in the code registry with the alerts). */
-export type FaultCode = 'not-a-number' | 'out-of-range' | 'time-backwards' | 'line-too-long' | 'garbled' | 'unknown-channel';
+/**
+ * Stable codes of input faults (documented in the code registry with the alerts). The decoder
+ * raises the first six; the controller the last two, for readings well formed but impossible: a
+ * value no deposition can make from the recent readings (`implausible-jump`), a timestamp more
+ * than a bounded step from the run clock's present (`time-jump`).
+ */
+export type FaultCode = 'not-a-number' | 'out-of-range' | 'time-backwards' | 'line-too-long' | 'garbled' | 'unknown-channel' | 'implausible-jump' | 'time-jump';
 
 /** A line that could not be used. Bad input is a value, never an exception. */
 export interface Fault {

@@ -3,7 +3,7 @@
 // played back as a source at its recorded pace.
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
-import { Subject, VirtualTimeScheduler, toArray } from 'rxjs';
+import { NEVER, Subject, VirtualTimeScheduler, of, toArray } from 'rxjs';
 import { describe, expect, it } from 'vitest';
 import { createJournalSource } from '../../drivers/index.ts';
 import { createChamberSource, createVirtualChamber, loadSimProfile } from '../../sim/index.ts';
@@ -12,7 +12,7 @@ import type { JournalRecord } from '../../src/journal/journal-format.ts';
 import { createController } from '../../src/pipeline/controller.ts';
 import { createLiveRun } from '../../src/pipeline/live-run.ts';
 import type { Decision } from '../../src/pipeline/operators/index.ts';
-import type { OperatorAction, Reading, ShutterAck, ShutterFault, SourceStatus } from '../../src/pipeline/types.ts';
+import type { Fault, OperatorAction, Reading, ShutterAck, ShutterFault, SourceStatus } from '../../src/pipeline/types.ts';
 
 const root = fileURLToPath(new URL('../../', import.meta.url));
 const recipe = loadRecipe(join(root, 'config/recipes/ar4-visible.yaml'));
@@ -82,6 +82,33 @@ describe('links and shutter failures as inputs', () => {
     expect(decisions.at(-1)?.state.unconfirmedCloses).toEqual(['SiO2']);
     // Inputs from outside the lines take the run clock's present, not their own time.
     expect(decisions.at(-1)?.input).toMatchObject({ kind: 'shutter-fault', timeS: 0 });
+  });
+});
+
+describe('the run clock of the live wiring', () => {
+  it('a reading 9,000 s ahead on the instrument clock moves neither the run clock nor the ticks', () => {
+    const scheduler = new VirtualTimeScheduler(undefined, 100_000);
+    const readings = new Subject<Reading | Fault>();
+    const commands = new Subject<{ action: OperatorAction }>();
+    const live = createLiveRun({
+      controller: createController(recipe),
+      sources: new Map([['monitor', { readings, status: of<SourceStatus>({ state: 'connected' }) }]]),
+      shutter: { send: () => undefined, acks: NEVER, faults: NEVER },
+      commands,
+      runClock: 'instrument',
+      clock: () => scheduler.now() / 1000,
+      scheduler,
+    });
+    const times: number[] = [];
+    const sub = live.decisions.subscribe((d) => times.push(d.state.nowS));
+    commands.next({ action: 'start' });
+    const crystal = (timeS: number): Reading => ({ kind: 'reading', channel: 'crystal', value: 6e6, timeS, arrivalS: scheduler.now() / 1000 });
+    // One reading a second of host time for 5 s, the third stamped 9,000 s ahead; then silence, ticked.
+    for (let k = 1; k <= 5; k++) scheduler.schedule(() => readings.next(crystal(k === 3 ? 9003 : k)), k * 1000);
+    scheduler.schedule(() => sub.unsubscribe(), 8000);
+    scheduler.flush();
+    expect(Math.max(...times)).toBeLessThan(9);
+    expect(times.at(-1)).toBeGreaterThan(7);
   });
 });
 

@@ -28,6 +28,11 @@ export interface IdealRunOptions {
   seed?: number;
   /** True index over the design's per material (default 1): the monitor shows the chip with these. */
   indexFactors?: Readonly<Record<string, number>>;
+  /**
+   * A fresh crystal of bare frequency `bareHz` comes into use at `atS` (a crystal changer's
+   * turn): from then on the crystal carries only what grew after the change.
+   */
+  crystalChange?: { atS: number; bareHz: number };
 }
 
 export interface IdealRunResult {
@@ -52,6 +57,9 @@ export function runIdeal(recipe: ResolvedRecipe, controller: Controller, options
   };
   const trueNm = recipe.layers.map(() => 0);
   const crystal: CrystalLayer[] = [];
+  // After a crystal change: the fresh crystal's layers, and what the layer growing then had grown before it.
+  let fresh: CrystalLayer[] | null = null;
+  let freshOffsetNm = 0;
   let monitor: ChipMonitor | undefined;
   let current = -1;
   let openUntil = Number.POSITIVE_INFINITY; // time the shutter actually closes
@@ -74,6 +82,8 @@ export function runIdeal(recipe: ResolvedRecipe, controller: Controller, options
           const factors = recipe.layers.map((l) => options.indexFactors?.[l.materialName] ?? 1);
           monitor = chipMonitorFor(recipe, current, trueNm, { indexFactors: factors, growingIndexFactor: factors[current] as number });
           crystal.push({ thicknessNm: 0, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio });
+          fresh?.push({ thicknessNm: 0, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio });
+          freshOffsetNm = 0;
         }
         open = true;
         openUntil = Number.POSITIVE_INFINITY;
@@ -95,7 +105,14 @@ export function runIdeal(recipe: ResolvedRecipe, controller: Controller, options
       const growS = Math.max(0, Math.min(t, openUntil) - (t - dt));
       trueNm[current] = (trueNm[current] as number) + layer.rateNmPerS * rateFactor(t) * growS;
       (crystal[crystal.length - 1] as { thicknessNm: number }).thicknessNm = (trueNm[current] as number) / layer.toolingFactor;
+      if (fresh) (fresh[fresh.length - 1] as { thicknessNm: number }).thicknessNm = (trueNm[current] as number) / layer.toolingFactor - freshOffsetNm;
       if (t >= openUntil) open = false;
+    }
+    const change = options.crystalChange;
+    if (change && !fresh && t >= change.atS) {
+      const top = crystal[crystal.length - 1];
+      freshOffsetNm = top?.thicknessNm ?? 0;
+      fresh = top ? [{ ...top, thicknessNm: 0 }] : [];
     }
     if (!silent(options.opticalSilentS, t) && monitor && current >= 0) {
       const chipNm = (trueNm[current] as number) * (recipe.layers[current] as { chipRatio: number }).chipRatio;
@@ -103,7 +120,8 @@ export function runIdeal(recipe: ResolvedRecipe, controller: Controller, options
       apply({ kind: 'reading', channel: 'optical', value, timeS: t, arrivalS: t });
     }
     if (!silent(options.crystalSilentS, t)) {
-      apply({ kind: 'reading', channel: 'crystal', value: stackFrequencyHz(recipe.crystal.bareFrequencyHz, crystal), timeS: t, arrivalS: t });
+      const value = fresh && options.crystalChange ? stackFrequencyHz(options.crystalChange.bareHz, fresh) : stackFrequencyHz(recipe.crystal.bareFrequencyHz, crystal);
+      apply({ kind: 'reading', channel: 'crystal', value, timeS: t, arrivalS: t });
     } else {
       apply({ kind: 'tick', timeS: t });
     }
