@@ -524,7 +524,7 @@ function refusal(action: OperatorAction, s: ControllerState, alertId: string | u
     case 'hold':
       return `only a layer being deposited can be held; the run is ${phase}`;
     case 'resume':
-      return `only a run on hold can be resumed; the run is ${phase}`;
+      return `only a run on hold or waiting for a shutter to close can be resumed; the run is ${phase}`;
     case 'cut-now':
     case 'skip-layer':
       return `no layer is being deposited; the run is ${phase}`;

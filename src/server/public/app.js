@@ -334,6 +334,13 @@ function confirmText(action, alertId) {
     case 'hold':
       return [`Hold layer ${layer}?`, `The ${material} shutter closes now; the layer waits at about ${thickness}${target} until you resume.`, false];
     case 'resume':
+      if (s.phase === 'awaiting-close') {
+        return [
+          'Go on without the shutter’s confirmation?',
+          'A shutter’s close has not been confirmed. Go on only once you have checked by hand that it is shut: the next layer then opens.',
+          true,
+        ];
+      }
       return [`Resume layer ${layer}?`, `The ${material} shutter opens again and the layer grows on to its target.`, false];
     case 'cut-now':
       return [`Cut layer ${layer} now?`, `The ${material} shutter closes at once, at about ${thickness}${target}. The next layer follows.`, true];
