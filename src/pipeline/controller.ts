@@ -380,6 +380,11 @@ export interface ControllerState {
   readonly targetsNm: readonly number[];
   /** Sources whose last close is not confirmed. */
   readonly unconfirmedCloses: readonly string[];
+  /**
+   * Awaiting a close: when the wait began; NaN once it has been alerted (after `settleS`, so that
+   * a close sent a moment ago, as a skip's, is not an alarm) or when not waiting.
+   */
+  readonly awaitingSinceS: number;
   /** Instrument links lost and not yet back. */
   readonly linksDown: readonly string[];
 }
@@ -452,6 +457,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       fit: null,
       targetsNm: recipe.layers.map((l) => l.targetNm),
       unconfirmedCloses: [],
+      awaitingSinceS: Number.NaN,
       linksDown: [],
     };
   }
@@ -744,6 +750,10 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     if (s.phase === 'closing' && s.nowS >= s.cutAtS + layerRecipe(s).shutterDelayS + opts.settleS) {
       return finishLayer(s, events, false);
     }
+    if (s.phase === 'awaiting-close' && s.nowS >= s.awaitingSinceS + opts.settleS) {
+      const names = s.unconfirmedCloses.join(', ');
+      return alert({ ...s, awaitingSinceS: Number.NaN }, events, 'close-unconfirmed', `${ALERTS['close-unconfirmed'].sentence} (${names})`);
+    }
     if (s.phase !== 'depositing') return s;
     const plan = layerPlan(s);
     const layer = layerRecipe(s);
@@ -955,14 +965,11 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
 
   /**
    * After a layer: the next one starts (or, after the last, the run completes) once every close
-   * is confirmed; until then the run waits, alerting once.
+   * is confirmed; until then the run waits, alerting once if the wait outlasts `settleS`.
    */
   function proceed(s: ControllerState, events: RunEvent[]): ControllerState {
     if (s.unconfirmedCloses.length > 0) {
-      if (s.phase === 'awaiting-close') return s;
-      const names = s.unconfirmedCloses.join(', ');
-      s = { ...s, phase: 'awaiting-close' };
-      return alert(s, events, 'close-unconfirmed', `${ALERTS['close-unconfirmed'].sentence} (${names})`);
+      return s.phase === 'awaiting-close' ? s : { ...s, phase: 'awaiting-close', awaitingSinceS: s.nowS };
     }
     // The layer at `index` has been cut (its estimate recorded): the run is over.
     if (s.achievedNm.length > s.index) {
@@ -984,8 +991,9 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     if (ack.action !== 'close' || !s.unconfirmedCloses.includes(ack.source)) return { state: s, events: NO_EVENTS };
     let next: ControllerState = { ...s, nowS: Math.max(s.nowS, ack.timeS), unconfirmedCloses: s.unconfirmedCloses.filter((n) => n !== ack.source) };
     if (next.phase === 'awaiting-close' && next.unconfirmedCloses.length === 0) {
-      next = alert(next, events, 'close-confirmed', `${ALERTS['close-confirmed'].sentence} (${ack.source})`);
-      next = proceed(next, events);
+      // Said only where the wait was alerted.
+      if (Number.isNaN(next.awaitingSinceS)) next = alert(next, events, 'close-confirmed', `${ALERTS['close-confirmed'].sentence} (${ack.source})`);
+      next = proceed({ ...next, awaitingSinceS: Number.NaN }, events);
     }
     return { state: next, events: events.length === 0 ? NO_EVENTS : events };
   }
@@ -1226,7 +1234,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         if (s.phase === 'awaiting-close') {
           // The operator has checked the shutters by hand and vouches for them.
           next = alert(next, events, 'operator-confirmed-close', `${ALERTS['operator-confirmed-close'].sentence} (${s.unconfirmedCloses.join(', ')})`);
-          next = proceed({ ...next, unconfirmedCloses: [] }, events);
+          next = proceed({ ...next, unconfirmedCloses: [], awaitingSinceS: Number.NaN }, events);
           break;
         }
         if (s.phase !== 'holding') return { state: s, events: NO_EVENTS };
@@ -1335,6 +1343,7 @@ function withReading(
     fit: s.fit,
     targetsNm: s.targetsNm,
     unconfirmedCloses: s.unconfirmedCloses,
+    awaitingSinceS: s.awaitingSinceS,
     linksDown: s.linksDown,
   };
 }

@@ -125,6 +125,23 @@ describe('shutter failures and links, on the controller alone', () => {
   const step = (s: ControllerState, input: PipelineInput) => controller.step(s, input);
   const startedState = (): ControllerState => step(controller.initial(), { kind: 'operator', action: 'start', timeS: 0 }).state;
 
+  it('waits for a skipped layer’s close without an alarm while it is fresh, and alerts once it outlasts the settling time', () => {
+    const confirming = createController(recipe, { replan: false, confirmCloses: true });
+    const started = confirming.step(confirming.initial(), { kind: 'operator', action: 'start', timeS: 0 }).state;
+    const skipped = confirming.step(started, { kind: 'operator', action: 'skip-layer', timeS: 5 });
+    expect(skipped.state.phase).toBe('awaiting-close');
+    expect(skipped.events.flatMap((e) => (e.type === 'alert' ? [e.code] : []))).toEqual(['operator-skip']);
+    // Acknowledged within the settling time: no alarm, and layer 2 opens.
+    const acked = confirming.step(confirming.step(skipped.state, { kind: 'tick', timeS: 5.5 }).state, { kind: 'shutter-ack', action: 'close', source: first.materialName, timeS: 5.6 });
+    expect(acked.events.map((e) => e.type)).toEqual(['layer-started', 'shutter']);
+    // Not acknowledged: one alert when the settling time has passed, and one when it is confirmed.
+    const late = confirming.step(skipped.state, { kind: 'tick', timeS: 5 + confirming.options.settleS });
+    expect(late.events.flatMap((e) => (e.type === 'alert' ? [e.code] : []))).toEqual(['close-unconfirmed']);
+    expect(confirming.step(late.state, { kind: 'tick', timeS: 9 }).events).toEqual([]);
+    const confirmed = confirming.step(late.state, { kind: 'shutter-ack', action: 'close', source: first.materialName, timeS: 9.5 });
+    expect(confirmed.events.map((e) => (e.type === 'alert' ? e.code : e.type))).toEqual(['close-confirmed', 'layer-started', 'shutter']);
+  });
+
   it('holds the layer, its shutter asked to close, when its open could not be sent', () => {
     const r = step(startedState(), {
       kind: 'shutter-fault',
