@@ -387,6 +387,8 @@ export interface ControllerState {
   readonly awaitingSinceS: number;
   /** Instrument links lost and not yet back. */
   readonly linksDown: readonly string[];
+  /** Run time the run was last taken up again after a stop (NaN: never): the crystal's next reading is a fresh start. */
+  readonly resumedAtS: number;
 }
 
 interface FitRun {
@@ -459,6 +461,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       unconfirmedCloses: [],
       awaitingSinceS: Number.NaN,
       linksDown: [],
+      resumedAtS: Number.NaN,
     };
   }
 
@@ -476,6 +479,8 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         return { state: onShutterFault(s, input, events), events };
       case 'link':
         return { state: onLink(s, input, events), events };
+      case 'resumed':
+        return { state: { ...s, resumedAtS: Number.isFinite(s.nowS) ? s.nowS : 0 }, events: NO_EVENTS };
       case 'tick':
         if (!(input.timeS >= s.nowS)) return { state: s, events: NO_EVENTS };
         s = withReading(s, input.timeS, s.lastOpticalS, s.lastCrystalS, s.optical, s.crystal, s.layerCrystalNm);
@@ -483,7 +488,13 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       case 'reading': {
         const clock = s.clocks[input.channel];
         let timeS = input.timeS - clock.offsetS;
-        if (Math.abs(timeS - s.nowS) > opts.timeJumpS && Number.isFinite(s.nowS)) {
+        const lastOfChannel = input.channel === 'optical' ? s.lastOpticalS : s.lastCrystalS;
+        if (Math.abs(timeS - s.nowS) > opts.timeJumpS && lastOfChannel <= s.resumedAtS) {
+          // The instrument's clock ran on while the run was down: its first reading after the resume is the present.
+          const jumpS = timeS - s.nowS;
+          s = { ...s, clocks: { ...s.clocks, [input.channel]: { ...STEADY_CLOCK, offsetS: clock.offsetS + jumpS } } };
+          timeS = input.timeS - s.clocks[input.channel].offsetS;
+        } else if (Math.abs(timeS - s.nowS) > opts.timeJumpS && Number.isFinite(s.nowS)) {
           s = clockJump(s, events, input, timeS);
           if (s.clocks[input.channel].streak !== 0) return { state: s, events };
           timeS = input.timeS - s.clocks[input.channel].offsetS;
@@ -557,7 +568,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
 
   function onOptical(s: ControllerState, r: Reading, events: RunEvent[]): ControllerState {
     const o = s.optical;
-    const growing = s.phase === 'depositing' || s.phase === 'closing';
+    const growing = isGrowing(s);
     if (growing && o.distrusted) return withReading(s, r.timeS, s.lastOpticalS, s.lastCrystalS, o, s.crystal, s.layerCrystalNm);
     if (growing) {
       // Plausibility: no chip moves its signal by twice its layer's whole curve in one reading.
@@ -573,7 +584,8 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         if (s.optical.suspects < SUSPECT_READINGS || s.optical.distrusted) return s;
       }
     }
-    if (s.fit && growing) {
+    // Across a resume the fit's clock waits for the crystal's first reading: what grew meanwhile is in it.
+    if (s.fit && growing && !(s.fit.clock === 'crystal' && s.crystal.lastS <= s.resumedAtS)) {
       s.fit.fit.add(fitClockAt(recipe, s, r.timeS), r.value);
       s.fit.fit.update();
     }
@@ -634,8 +646,10 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
 
   function onCrystal(s: ControllerState, r: Reading, events: RunEvent[]): ControllerState {
     let c = s.crystal;
-    const inRun = s.phase === 'depositing' || s.phase === 'closing' || s.phase === 'holding';
-    if (inRun && Number.isFinite(c.frequencyHz)) {
+    const inRun = isGrowing(s) || s.phase === 'holding';
+    // The first reading after a resume may show all that grew while the run was down: no step to judge, no rate to take from it.
+    const acrossResume = c.lastS <= s.resumedAtS;
+    if (inRun && Number.isFinite(c.frequencyHz) && !acrossResume) {
       if (c.distrustLayer === s.index) return withReading(s, r.timeS, s.lastOpticalS, s.lastCrystalS, s.optical, c, s.layerCrystalNm);
       if (!crystalStepPlausible(s, c.frequencyHz, c.lastS, r.value, r.timeS)) {
         s = crystalSuspect(s, events, r);
@@ -645,7 +659,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       }
     }
     const since = Number.isNaN(c.since) || !(r.timeS - c.lastS < opts.staleAfterS) ? r.timeS : c.since;
-    if (s.phase !== 'depositing' && s.phase !== 'closing') {
+    if (!isGrowing(s)) {
       const crystal = { lastS: r.timeS, frequencyHz: r.value, partNm: c.partNm, rateNmPerS: c.rateNmPerS, since, suspect: null, distrustLayer: c.distrustLayer };
       return withReading(s, r.timeS, s.lastOpticalS, r.timeS, s.optical, crystal, s.layerCrystalNm);
     }
@@ -657,7 +671,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const crystalNm = (Number.isFinite(onUnit) ? onUnit : 0) + (unit.layer === s.index ? unit.carriedNm : 0);
     const partNm = crystalNm * layer.toolingFactor;
     let rate = c.rateNmPerS;
-    if (Number.isFinite(c.partNm) && r.timeS > c.lastS) {
+    if (Number.isFinite(c.partNm) && r.timeS > c.lastS && !acrossResume) {
       const instant = (partNm - c.partNm) / (r.timeS - c.lastS);
       const a = Math.min(1, (r.timeS - c.lastS) / opts.rateSmoothingS);
       rate = Number.isFinite(rate) ? rate + a * (instant - rate) : layer.rateNmPerS;
@@ -730,7 +744,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const layer = layerRecipe(s);
     const before = Number.isFinite(s.layerCrystalNm) ? s.layerCrystalNm : 0;
     const closeS = Number.isFinite(s.cutAtS) ? s.cutAtS + layer.shutterDelayS : Number.POSITIVE_INFINITY;
-    const growing = s.phase === 'depositing' || s.phase === 'closing';
+    const growing = isGrowing(s);
     const fromS = Number.isFinite(c.lastS) ? Math.max(c.lastS, s.openedAtS) : s.openedAtS;
     const rate = (Number.isFinite(c.rateNmPerS) ? c.rateNmPerS : layer.rateNmPerS) / layer.toolingFactor;
     const bridgeNm = growing ? rate * Math.max(0, Math.min(suspect.firstS, closeS) - fromS) : 0;
@@ -747,8 +761,13 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
   /** Everything that follows from the state at its current time: starts, cuts, finishes, guards. */
   function advance(s: ControllerState, events: RunEvent[]): ControllerState {
     if (s.nowS >= s.faultsDueS) s = reportFaults(s, events);
-    if (s.phase === 'closing' && s.nowS >= s.cutAtS + layerRecipe(s).shutterDelayS + opts.settleS) {
-      return finishLayer(s, events, false);
+    if ((s.phase === 'closing' || awaitingOwnClose(s)) && s.nowS >= s.cutAtS + layerRecipe(s).shutterDelayS + opts.settleS) {
+      if (!s.unconfirmedCloses.includes(layerRecipe(s).materialName)) return finishLayer(s, events, false);
+      if (s.phase === 'awaiting-close') return s;
+      // Its shutter may still be open: the layer is not finished, and goes on growing in its
+      // records (crystal, fit) until the close is confirmed.
+      const names = s.unconfirmedCloses.join(', ');
+      return alert({ ...s, phase: 'awaiting-close', awaitingSinceS: Number.NaN }, events, 'close-unconfirmed', `${ALERTS['close-unconfirmed'].sentence} (${names})`);
     }
     if (s.phase === 'awaiting-close' && s.nowS >= s.awaitingSinceS + opts.settleS) {
       const names = s.unconfirmedCloses.join(', ');
@@ -990,10 +1009,11 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
   function onShutterAck(s: ControllerState, ack: ShutterAck, events: RunEvent[]): StepResult {
     if (ack.action !== 'close' || !s.unconfirmedCloses.includes(ack.source)) return { state: s, events: NO_EVENTS };
     let next: ControllerState = { ...s, nowS: Math.max(s.nowS, ack.timeS), unconfirmedCloses: s.unconfirmedCloses.filter((n) => n !== ack.source) };
-    if (next.phase === 'awaiting-close' && next.unconfirmedCloses.length === 0) {
+    if (next.phase === 'awaiting-close' && (next.unconfirmedCloses.length === 0 || (awaitingOwnClose(next) && ack.source === layerRecipe(next).materialName))) {
       // Said only where the wait was alerted.
       if (Number.isNaN(next.awaitingSinceS)) next = alert(next, events, 'close-confirmed', `${ALERTS['close-confirmed'].sentence} (${ack.source})`);
-      next = proceed({ ...next, awaitingSinceS: Number.NaN }, events);
+      next = { ...next, awaitingSinceS: Number.NaN };
+      next = awaitingOwnClose(next) ? finishLayer(next, events, false) : proceed(next, events);
     }
     return { state: next, events: events.length === 0 ? NO_EVENTS : events };
   }
@@ -1234,7 +1254,8 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         if (s.phase === 'awaiting-close') {
           // The operator has checked the shutters by hand and vouches for them.
           next = alert(next, events, 'operator-confirmed-close', `${ALERTS['operator-confirmed-close'].sentence} (${s.unconfirmedCloses.join(', ')})`);
-          next = proceed({ ...next, unconfirmedCloses: [], awaitingSinceS: Number.NaN }, events);
+          next = { ...next, unconfirmedCloses: [], awaitingSinceS: Number.NaN };
+          next = awaitingOwnClose(next) ? finishLayer(next, events, false) : proceed(next, events);
           break;
         }
         if (s.phase !== 'holding') return { state: s, events: NO_EVENTS };
@@ -1345,6 +1366,7 @@ function withReading(
     unconfirmedCloses: s.unconfirmedCloses,
     awaitingSinceS: s.awaitingSinceS,
     linksDown: s.linksDown,
+    resumedAtS: s.resumedAtS,
   };
 }
 
@@ -1423,6 +1445,19 @@ function fitOvershootNm(mode: CutMode, fraction: number, plan: LayerPlan): numbe
   return Math.sqrt((2 * fraction * plan.swing) / Math.abs(plan.curvaturePerNm2));
 }
 
+/**
+ * Waiting for the close of the layer in progress: cut (its estimate recorded), not finished (its
+ * crystal record not yet taken), its shutter perhaps still open.
+ */
+function awaitingOwnClose(s: ControllerState): boolean {
+  return s.phase === 'awaiting-close' && s.achievedNm.length > s.crystalBelow.length;
+}
+
+/** Whether the layer in progress may still be growing: its records (crystal, fit) go on. */
+export function isGrowing(s: ControllerState): boolean {
+  return s.phase === 'depositing' || s.phase === 'closing' || awaitingOwnClose(s);
+}
+
 /** The fit's clock at run time t: the crystal's part thickness over the planned rate, or elapsed time. */
 function fitClockAt(recipe: ResolvedRecipe, s: ControllerState, timeS: number): number {
   const layer = recipe.layers[s.index] as ResolvedRecipe['layers'][number];
@@ -1443,7 +1478,7 @@ function fitClockAt(recipe: ResolvedRecipe, s: ControllerState, timeS: number): 
  * no fit runs (the plain rules, a layer the fit does not watch, a silent crystal).
  */
 export function liveFitEstimate(recipe: ResolvedRecipe, s: ControllerState, timeS: number): { thicknessNm: number; sigmaNm: number } | null {
-  if (!s.fit || (s.phase !== 'depositing' && s.phase !== 'closing')) return null;
+  if (!s.fit || !isGrowing(s)) return null;
   const layer = recipe.layers[s.index] as ResolvedRecipe['layers'][number];
   const e = s.fit.fit.estimate(fitClockAt(recipe, s, timeS));
   if (!Number.isFinite(e.thicknessNm) || !Number.isFinite(e.sigmaNm) || e.readings < 8) return null;

@@ -4,7 +4,7 @@
  * through silence, the controller deciding, and every shutter command sent the moment it is
  * decided (before anything is written down).
  */
-import { asyncScheduler, distinctUntilChanged, filter, map, merge, share, tap, type Observable, type SchedulerLike } from 'rxjs';
+import { asyncScheduler, distinctUntilChanged, filter, map, merge, share, startWith, tap, type Observable, type SchedulerLike } from 'rxjs';
 import type { Controller, ControllerState } from './controller.ts';
 import { decide, toRunClock, withTicks, type Decision, type RunClock } from './operators/index.ts';
 import type { OperatorAction, PipelineInput, ReadingSource, ShutterSink, SourceStatus } from './types.ts';
@@ -22,7 +22,7 @@ export interface LiveRunOptions {
   runClock?: RunClock;
   /** Host monotonic seconds (default performance.now() / 1000). */
   clock?: () => number;
-  /** Tick after this much silence (default 500 ms). */
+  /** Tick after this much silence, ms of host time at the run clock's pace of 1 (default 500 ms). */
   tickMs?: number;
   scheduler?: SchedulerLike;
   /** Resume: the state rebuilt from a journal; run time continues from its `nowS`. */
@@ -45,6 +45,16 @@ export function createLiveRun(options: LiveRunOptions): LiveRun {
   const startArrivalS = clock() - resumedAt;
   let lastRunS = resumedAt;
   let lastArrivalS = clock();
+  /**
+   * Run seconds per host second. 1 on the arrival clock; on the instrument clock, measured from
+   * the readings taken over windows of PACE_WINDOW_S host seconds (a virtual chamber runs at any
+   * multiple of real time), so that ticks carry the run clock through silence at the
+   * instruments' own pace and their readings after a gap come back on time. Taken a little low
+   * (PACE_MARGIN).
+   */
+  let pace = 1;
+  const tickMs = options.tickMs ?? 500;
+  let paceFrom: { runS: number; arrivalS: number } | undefined;
 
   const sources = [...options.sources];
   const readings = merge(...sources.map(([, s]) => s.readings)).pipe(toRunClock(runClock, startArrivalS, options.instrumentOriginS));
@@ -65,11 +75,14 @@ export function createLiveRun(options: LiveRunOptions): LiveRun {
   const commands = options.commands.pipe(
     map((c): PipelineInput => ({ kind: 'operator', action: c.action, ...(c.alertId !== undefined ? { alertId: c.alertId } : {}), timeS: lastRunS })),
   );
-  // Silence advances the run clock with the host's, from the last input.
-  const tickTime = (): number => lastRunS + (clock() - lastArrivalS);
+  // Silence advances the run clock with the host's, at the instruments' pace, from the last input.
+  const tickTime = (): number => lastRunS + (clock() - lastArrivalS) * pace;
 
-  const decisions = merge(readings, acks, faults, ...links, commands).pipe(
-    withTicks(options.tickMs ?? 500, tickTime, options.scheduler ?? asyncScheduler),
+  const inputs = merge(readings, acks, faults, ...links, commands);
+  const decisions = (options.resumeFrom ? inputs.pipe(startWith<PipelineInput>({ kind: 'resumed', timeS: resumedAt })) : inputs).pipe(
+    // The same run time between ticks at any pace, but never within the gaps of an instrument's
+    // usual delivery (a chamber writing its lines every few tens of ms).
+    withTicks(() => Math.max(MIN_TICK_MS, tickMs / pace), tickTime, options.scheduler ?? asyncScheduler),
     decide(options.controller, options.resumeFrom),
     tap((decision) => {
       for (const event of decision.events) if (event.type === 'shutter') options.shutter.send(event.command);
@@ -77,9 +90,30 @@ export function createLiveRun(options: LiveRunOptions): LiveRun {
       if (decision.state.nowS > lastRunS) {
         lastRunS = decision.state.nowS;
         lastArrivalS = clock();
+        if (runClock === 'instrument' && decision.input.kind === 'reading') measurePace();
       }
     }),
     share(),
   );
   return { decisions };
+
+  /** The pace over the last window of readings taken (kept within 0.01–10,000). */
+  function measurePace(): void {
+    paceFrom ??= { runS: lastRunS, arrivalS: lastArrivalS };
+    const hostS = lastArrivalS - paceFrom.arrivalS;
+    if (hostS < PACE_WINDOW_S) return;
+    pace = Math.min(10_000, Math.max(0.01, (PACE_MARGIN * (lastRunS - paceFrom.runS)) / hostS));
+    paceFrom = { runS: lastRunS, arrivalS: lastArrivalS };
+  }
 }
+
+/**
+ * The pace is taken this much low: a tick that lags notices silence a little late (and a
+ * reading after a long silence lands within `timeJumpS` ahead), one that leads would refuse the
+ * readings it passed. The measured pace is good to about 1 % (a delivery's gap over the window).
+ */
+const PACE_MARGIN = 0.98;
+/** Host seconds over which the instruments' pace is measured. */
+const PACE_WINDOW_S = 2;
+/** Shortest silence that is ticked through, ms of host time. */
+const MIN_TICK_MS = 100;

@@ -121,8 +121,18 @@ export interface Tick {
   readonly timeS: number;
 }
 
+/**
+ * The run taken up again after its process stopped (`fringe run --resume`): the instruments went
+ * on meanwhile, so each one's first reading after it may have moved further than any reading
+ * could since the last one the run saw.
+ */
+export interface RunResumed {
+  readonly kind: 'resumed';
+  readonly timeS: number;
+}
+
 /** Anything the decision reducer consumes. */
-export type PipelineInput = Reading | Fault | ShutterAck | ShutterFault | LinkChange | OperatorCommand | Tick;
+export type PipelineInput = Reading | Fault | ShutterAck | ShutterFault | LinkChange | RunResumed | OperatorCommand | Tick;
 
 /** A source's health. `lost` carries whether we closed it or it went away. */
 export type SourceStatus =

@@ -19,7 +19,7 @@ import { crystalLifeUsed } from '../model/crystal/index.ts';
 import { planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
 import type { CutMode, LayerRecipe, ResolvedRecipe } from '../model/plan/recipe.ts';
 import type { Severity } from '../pipeline/codes.ts';
-import { liveFitEstimate, type ControllerState } from '../pipeline/controller.ts';
+import { isGrowing, liveFitEstimate, type ControllerState } from '../pipeline/controller.ts';
 import type { CutReason, RunEvent } from '../pipeline/events.ts';
 import type { OperatorAction, OperatorCommand, PipelineInput, Reading } from '../pipeline/types.ts';
 import { BoundedHistory } from './bounded-history.ts';
@@ -159,7 +159,7 @@ export function createRunHub(options: RunHubOptions): RunHub {
   function partThicknessNm(s: ControllerState, layer: LayerRecipe, timeS: number): number {
     const c = s.crystal;
     if (crystalFresh(s, timeS)) {
-      const growing = s.phase === 'depositing' || s.phase === 'closing';
+      const growing = isGrowing(s);
       const rate = Number.isFinite(c.rateNmPerS) ? c.rateNmPerS : layer.rateNmPerS;
       return c.partNm + (growing ? rate * Math.max(0, timeS - c.lastS) : 0);
     }
@@ -320,7 +320,7 @@ export function createRunHub(options: RunHubOptions): RunHub {
     const layer = layerRecipe(s) as LayerRecipe;
     const plan = layerPlan(s);
     const nowS = Math.max(s.nowS, run?.nowS ?? s.nowS);
-    const fitted = s.phase === 'depositing' || s.phase === 'closing' ? liveFitEstimate(recipe, s, nowS) : null;
+    const fitted = isGrowing(s) ? liveFitEstimate(recipe, s, nowS) : null;
     const thickness = fitted ? fitted.thicknessNm : partThicknessNm(s, layer, nowS);
     let timeToCutS: number | null = null;
     if (s.phase === 'depositing') {

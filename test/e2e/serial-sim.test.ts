@@ -109,6 +109,9 @@ needsSocat('the virtual chamber through a real serial port', () => {
     const journal = readJournal(join(runDir, 'journal.ndjson'));
     const cuts = journal.records.filter((r) => r.k === 'e' && r.event.type === 'cut');
     expect(cuts).toHaveLength(4);
+    // The chamber at 100× delivers in bursts; the ticks keep its pace and refuse none of its readings.
+    const faultAlerts = journal.records.flatMap((r) => (r.k === 'e' && r.event.type === 'alert' && r.event.code.startsWith('fault-') ? [r.event.message] : []));
+    expect(faultAlerts).toEqual([]);
     const replay = fringe(['replay', runDir, '--json']);
     expect(await replay.done).toBe(0);
     const result = JSON.parse(replay.out()) as { differing: number; layers: unknown[] };
@@ -156,6 +159,11 @@ needsSocat('the virtual chamber through a real serial port', () => {
     expect(after.firstDamaged).toEqual([{ line: tornLine, reason: 'not JSON' }]);
     const cutLayers = after.records.flatMap((r) => (r.k === 'e' && r.event.type === 'cut' ? [r.event.layer] : []));
     expect(cutLayers).toEqual([1, 2, 3, 4]);
+    // The time the run was down is no silence of the instruments: the fit goes on cutting.
+    const afterResume = after.records.slice(after.records.findIndex((r) => r.k === 'm')).flatMap((r): RunEvent[] => (r.k === 'e' ? [r.event] : []));
+    expect(afterResume.flatMap((e) => (e.type === 'alert' ? [e.code] : []))).not.toContain('crystal-lost');
+    console.log(JSON.stringify(afterResume.filter((e) => e.type !== 'shutter').slice(0, 30)), resumed.out().slice(0, 3000));
+    expect(afterResume.flatMap((e) => (e.type === 'cut' && e.layer === 3 ? [e.reason] : []))).toEqual(['model-fit']);
     // The journal says where the run was taken up, and the readings after it are on the
     // instrument's clock (on the arrival clock their time would be their arrival).
     const mark = after.records.findIndex((r) => r.k === 'm');

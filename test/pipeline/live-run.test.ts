@@ -112,6 +112,40 @@ describe('the run clock of the live wiring', () => {
   });
 });
 
+describe('the pace of the instrument clock', () => {
+  it('ticks through silence at the instruments’ pace, so their readings after a gap come back on time', () => {
+    const scheduler = new VirtualTimeScheduler(undefined, 100_000);
+    const readings = new Subject<Reading>();
+    const live = createLiveRun({
+      controller: createController(recipe),
+      sources: new Map([['monitor', { readings, status: of<SourceStatus>({ state: 'connected' }) }]]),
+      shutter: { send: () => undefined, acks: NEVER, faults: NEVER },
+      commands: new Subject<{ action: OperatorAction }>(),
+      runClock: 'instrument',
+      clock: () => scheduler.now() / 1000,
+      scheduler,
+    });
+    const seen: Decision[] = [];
+    const sub = live.decisions.subscribe((d) => seen.push(d));
+    // A chamber at 20× real time: a reading every 100 ms of host time, 2 s apart on its own clock, for 5 s; then 3 s of silence.
+    for (let k = 0; k <= 50; k++) scheduler.schedule(() => readings.next({ kind: 'reading', channel: 'optical', value: 0.9, timeS: 2 * k, arrivalS: 0 }), 100 * k);
+    scheduler.schedule(() => readings.next({ kind: 'reading', channel: 'optical', value: 0.9, timeS: 160, arrivalS: 0 }), 8000);
+    scheduler.schedule(() => sub.unsubscribe(), 8100);
+    scheduler.flush();
+    const ticks = seen.flatMap((d) => (d.input.kind === 'tick' ? [d.input.timeS] : []));
+    // Silence from 5 s to 8 s of host time: a tick every 100 ms carries the run clock 1.96 s (20×,
+    // taken 2 % low), to within a few seconds of where the chamber's clock is.
+    expect(ticks.length).toBeGreaterThanOrEqual(25);
+    expect(ticks[1]! - ticks[0]!).toBeCloseTo(0.1 * 0.98 * 20, 6);
+    expect(ticks.at(-1)).toBeGreaterThan(155);
+    expect(ticks.at(-1)).toBeLessThan(160);
+    // The reading after the gap, 60 s on the chamber's clock, is taken, not refused as a jump.
+    const after = seen.find((d) => d.input.kind === 'reading' && d.input.timeS === 160);
+    expect(after?.state.nowS).toBe(160);
+    expect(after?.events).toEqual([]);
+  });
+});
+
 describe('a journal as a reading source', () => {
   const records: JournalRecord[] = [
     { k: 'r', c: 'o', t: 10, v: 0.5, a: 10 },

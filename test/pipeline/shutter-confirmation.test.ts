@@ -62,10 +62,13 @@ describe('a close awaiting confirmation', () => {
     expect(started(events)).toEqual([1]);
     expect(opens(events)).toEqual([1]);
     expect(codes(events).filter((c) => c === 'close-unconfirmed')).toHaveLength(1);
-    // The acknowledgement arrives two minutes late: the run goes on from there and completes.
+    // Its shutter may still be open: the layer is not finished, its records still growing.
+    expect(events.some((e) => e.type === 'layer-finished')).toBe(false);
+    // The acknowledgement arrives two minutes late: the layer finishes, and the run goes on from there and completes.
     release = true;
     for (const ack of chamber.withheld.splice(0)) stepped.apply({ ...ack, timeS: stepped.nowS });
     expect(codes(events)).toContain('close-confirmed');
+    expect(events.filter((e) => e.type === 'layer-finished').map((e) => e.timeS)).toEqual([stepped.nowS]);
     expect(started(events)).toEqual([1, 2]);
     stepped.runUntil(Number.POSITIVE_INFINITY);
     expect(events.at(-1)).toMatchObject({ type: 'run-finished', outcome: 'complete' });

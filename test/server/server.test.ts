@@ -170,7 +170,7 @@ describe('commands', () => {
     const app = serve(m, runsDir);
     const r = await app.inject({ method: 'POST', url: '/api/commands/resume', headers: bearer(TOKEN), payload: {} });
     expect(r.statusCode).toBe(409);
-    expect(r.json<{ message: string }>().message).toBe('resume: only a run on hold can be resumed; the run is depositing');
+    expect(r.json<{ message: string }>().message).toBe('resume: only a run on hold or waiting for a shutter to close can be resumed; the run is depositing');
     const ack = await app.inject({ method: 'POST', url: '/api/commands/acknowledge', headers: bearer(TOKEN), payload: { alertId: 'A7' } });
     expect(ack.statusCode).toBe(409);
     expect(ack.json<{ message: string }>().message).toBe('acknowledge: alert A7 is not open');

@@ -1,12 +1,14 @@
 /**
  * `withTicks(periodMs, now, scheduler)`: passes inputs through and adds a `tick` at run time
  * `now()` whenever `periodMs` pass with neither an input nor a tick, so that the controller
- * notices silence. The scheduler is injected: tests run it on virtual time.
+ * notices silence. The period may be a function, read at each arming (a run clock faster than
+ * the host's wants shorter periods). The scheduler is injected: tests run it on virtual time.
  */
 import { asyncScheduler, Observable, type OperatorFunction, type SchedulerLike, type Subscription } from 'rxjs';
 import type { PipelineInput } from '../types.ts';
 
-export function withTicks(periodMs: number, now: () => number, scheduler: SchedulerLike = asyncScheduler): OperatorFunction<PipelineInput, PipelineInput> {
+export function withTicks(periodMs: number | (() => number), now: () => number, scheduler: SchedulerLike = asyncScheduler): OperatorFunction<PipelineInput, PipelineInput> {
+  const period = typeof periodMs === 'function' ? periodMs : (): number => periodMs;
   return (source) =>
     new Observable<PipelineInput>((subscriber) => {
       let timer: Subscription | undefined;
@@ -24,7 +26,7 @@ export function withTicks(periodMs: number, now: () => number, scheduler: Schedu
           }
           subscriber.next({ kind: 'tick', timeS });
           arm();
-        }, periodMs);
+        }, period());
       };
       arm();
       const inner = source.subscribe({
