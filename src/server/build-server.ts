@@ -8,10 +8,10 @@ import { dirname } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import type { Writable } from 'node:stream';
 import fastifyStatic from '@fastify/static';
-import Fastify, { type FastifyInstance, type FastifyServerOptions } from 'fastify';
+import Fastify, { type FastifyInstance, type FastifyReply, type FastifyServerOptions } from 'fastify';
 import { isLoopback, redactUrl } from './auth.ts';
 import { createHostRule, splitTarget, type HostRule } from './host-rule.ts';
-import { commandsPlugin } from './plugins/commands.ts';
+import { commandsPlugin, type CommandLimits } from './plugins/commands.ts';
 import { healthPlugin } from './plugins/health.ts';
 import { livePlugin, type LiveOptions, type LiveStats } from './plugins/live.ts';
 import { runsPlugin } from './plugins/runs.ts';
@@ -41,6 +41,8 @@ export interface ServerOptions {
   /** Fastify logging: off by default; `{ level, stream }` to capture. Tokens are never logged. */
   logger?: boolean | { level?: string; stream?: Writable };
   live?: Partial<LiveOptions>;
+  /** Rate limits of the command routes (and the clock they fill by); defaults suit an operator. */
+  commandLimits?: Partial<CommandLimits>;
 }
 
 /** What every plugin sees, decorated once on the instance. */
@@ -67,16 +69,26 @@ declare module 'fastify' {
 export const PUBLIC_DIR = fileURLToPath(new URL('./public/', import.meta.url));
 const UPLOT_DIR = dirname(createRequire(import.meta.url).resolve('uplot'));
 
-const CONTENT_SECURITY_POLICY = [
-  "default-src 'self'",
-  "script-src 'self'",
-  "style-src 'self'",
-  "img-src 'self' data:",
-  "connect-src 'self'",
-  "object-src 'none'",
-  "base-uri 'none'",
-  "frame-ancestors 'none'",
-].join('; ');
+/**
+ * Sent with every response, the API's included (a JSON answer opened as a page gets the same
+ * fence). The page has no inline script, style or handler, so none is allowed; it is never framed.
+ */
+export const SECURITY_HEADERS: Readonly<Record<string, string>> = {
+  'content-security-policy': [
+    "default-src 'self'",
+    "script-src 'self'",
+    "style-src 'self'",
+    "img-src 'self' data:",
+    "connect-src 'self'",
+    "object-src 'none'",
+    "base-uri 'none'",
+    "form-action 'none'",
+    "frame-ancestors 'none'",
+  ].join('; '),
+  'x-content-type-options': 'nosniff',
+  'x-frame-options': 'DENY',
+  'referrer-policy': 'no-referrer',
+};
 
 export function buildServer(deps: ServerDeps, options: ServerOptions): FastifyInstance {
   if (options.token.length < 16) throw new Error('options.token must be at least 16 characters');
@@ -86,6 +98,19 @@ export function buildServer(deps: ServerDeps, options: ServerOptions): FastifyIn
     // Unknown keys in a body are refused, not silently dropped: a typo must fail.
     ajv: { customOptions: { removeAdditional: false, allErrors: false } },
     bodyLimit: 16 * 1024,
+    // Room for the longest run id (RUN_ID_PATTERN), no more.
+    routerOptions: { maxParamLength: 128 },
+    // The router's own refusals (before any hook runs): one plain sentence, with the security headers.
+    frameworkErrors: (error, _request, routerReply) => {
+      const reply = routerReply as FastifyReply;
+      const tooLong = error.code === 'FST_ERR_MAX_PARAM_LENGTH';
+      const statusCode = tooLong ? 414 : 400;
+      void reply.code(statusCode).headers(SECURITY_HEADERS).send({
+        statusCode,
+        error: tooLong ? 'URI Too Long' : 'Bad Request',
+        message: tooLong ? 'a part of this address is longer than any this server has' : 'this address could not be read (a malformed percent-encoding)',
+      });
+    },
     schemaErrorFormatter: (errors, dataVar) => {
       const first = errors[0];
       const params: Record<string, unknown> = first?.params ?? {};
@@ -111,16 +136,21 @@ export function buildServer(deps: ServerDeps, options: ServerOptions): FastifyIn
       await reply.code(421).send({ statusCode: 421, error: 'Misdirected Request', message: hostRule.refusal(connection) });
     }
   });
-  app.addHook('onSend', async (request, reply, payload) => {
-    reply.header('x-content-type-options', 'nosniff');
-    reply.header('referrer-policy', 'no-referrer');
-    if (!request.url.startsWith('/api/')) reply.header('content-security-policy', CONTENT_SECURITY_POLICY);
+  app.addHook('onSend', async (_request, reply, payload) => {
+    reply.headers(SECURITY_HEADERS);
     return payload;
+  });
+  app.setErrorHandler((error: Error & { code?: string; statusCode?: number }, request) => {
+    // Fastify's own words for an oversized body do not say what the limit is.
+    if (error.code === 'FST_ERR_CTP_BODY_TOO_LARGE') {
+      throw Object.assign(new Error(`the request body is larger than the ${request.routeOptions.bodyLimit ?? 0} bytes this address takes`), { statusCode: 413 });
+    }
+    throw error;
   });
 
   void app.register(healthPlugin, { prefix: '/api' });
   void app.register(runsPlugin, { prefix: '/api' });
-  void app.register(commandsPlugin, { prefix: '/api' });
+  void app.register(commandsPlugin, { prefix: '/api', ...options.commandLimits });
   void app.register(livePlugin, { prefix: '/api', ...options.live });
   void app.register(fastifyStatic, { root: PUBLIC_DIR, prefix: '/', wildcard: false, index: 'index.html', cacheControl: false });
   void app.register(fastifyStatic, { root: UPLOT_DIR, prefix: '/vendor/uplot/', wildcard: false, decorateReply: false, maxAge: '1h' });

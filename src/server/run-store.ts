@@ -1,9 +1,10 @@
 /**
  * The runs folder: `runs/<id>/` with `journal.ndjson` (first line the header), `summary.json`
  * once the run has ended, and `recipe.json` (the recipe as run). Read-only here; a folder name
- * is only ever used after it matched {@link RUN_ID_PATTERN}, so no request can leave the folder.
+ * is only ever used after it matched {@link RUN_ID_PATTERN}, and a folder is only read when its
+ * real path (links followed) lies inside the runs folder's, so no request can leave the folder.
  */
-import { closeSync, existsSync, openSync, readdirSync, readFileSync, readSync, statSync } from 'node:fs';
+import { closeSync, existsSync, openSync, readdirSync, readFileSync, readSync, realpathSync, statSync } from 'node:fs';
 import { join, resolve, sep } from 'node:path';
 import { headerProblem, parseRecord, type JournalHeader } from '../journal/journal-format.ts';
 
@@ -39,12 +40,22 @@ export interface RunFolder {
 /** The folder of run `id` when it exists and holds a journal, else null. */
 export function runFolder(runsDir: string, id: string): RunFolder | null {
   if (!RUN_ID.test(id)) return null;
-  const root = resolve(runsDir);
-  const dir = resolve(root, id);
-  if (!dir.startsWith(root + sep)) return null;
+  const root = realPath(resolve(runsDir));
+  const dir = root === null ? null : realPath(join(root, id));
+  // A link to a folder elsewhere is not a run of this folder.
+  if (root === null || dir === null || !dir.startsWith(root + sep)) return null;
   const journalFile = join(dir, 'journal.ndjson');
-  if (!existsSync(journalFile)) return null;
+  if (!existsSync(journalFile) || realPath(journalFile) !== journalFile) return null;
   return { id, dir, journalFile, summaryFile: join(dir, 'summary.json'), recipeFile: join(dir, 'recipe.json') };
+}
+
+/** The path with every link resolved, or null when it does not exist. */
+function realPath(path: string): string | null {
+  try {
+    return realpathSync(path);
+  } catch {
+    return null;
+  }
 }
 
 /** The journal's first line, read without loading the file; null unless it is a header this fringe reads. */

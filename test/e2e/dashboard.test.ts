@@ -8,7 +8,7 @@ import { fileURLToPath } from 'node:url';
 import { chromium, type Browser, type ConsoleMessage, type Page } from 'playwright-core';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import type { FastifyInstance } from 'fastify';
-import { buildServer } from '../../src/server/build-server.ts';
+import { buildServer, SECURITY_HEADERS } from '../../src/server/build-server.ts';
 import { startSimulatedRun, type SimulatedRun } from '../../src/server/simulated-run.ts';
 import { ar4, tempDir, TOKEN, typical } from '../server/support.ts';
 
@@ -61,7 +61,14 @@ if (!haveChromium && inCi) {
         if (m.type() === 'error') errors.push(`${m.text()} @ ${m.location().url}`);
       });
       page.on('pageerror', (e) => errors.push(`page error: ${e.message}`));
-      await page.goto(`${url}/`);
+      // Every breach of the content security policy, as the page itself is told of it.
+      // (Page scripts as text: these tests are compiled without the DOM's types.)
+      await page.addInitScript({
+        content: "window.cspViolations = []; document.addEventListener('securitypolicyviolation', (e) => window.cspViolations.push(e.effectiveDirective + ' ' + e.blockedURI));",
+      });
+      const cspViolations = (): Promise<string[]> => page.evaluate<string[]>('window.cspViolations');
+      const response = await page.goto(`${url}/`);
+      expect(response?.headers()).toMatchObject(SECURITY_HEADERS);
 
       // The status line says the run is depositing, with the layer count.
       await expect.poll(() => page.textContent('#st-word'), { timeout: 5000 }).toBe('Depositing');
@@ -128,8 +135,12 @@ if (!haveChromium && inCi) {
       await page.click('#confirm-ok');
       await expect.poll(() => page.textContent('#st-word'), { timeout: 3000 }).toBe('Depositing');
 
-      // Only the deliberate wrong token reached the console (as a refused request).
+      // Only the deliberate wrong token reached the console (as a refused request), and nothing the page did breached its policy …
       expect(errors.filter((e) => !/status of 401/.test(e) || !e.includes('/api/commands'))).toEqual([]);
+      expect(await cspViolations()).toEqual([]);
+      // … which the browser does enforce: an inline style is refused, and reported.
+      await page.evaluate("document.body.setAttribute('style', 'outline: 1px solid red')");
+      await expect.poll(cspViolations).toEqual([expect.stringMatching(/^style-src/) as unknown]);
 
       await page.waitForTimeout(1200);
       mkdirSync(fileURLToPath(new URL('../artifacts/', import.meta.url)), { recursive: true });
@@ -137,5 +148,25 @@ if (!haveChromium && inCi) {
       expect(existsSync(ARTIFACT)).toBe(true);
       await page.close();
     }, 60000);
+
+    it('says that a token was not checked when too many were refused from this address', async () => {
+      const strict = buildServer({ hub: sim.hub, runsDir: tempDir('e2e-strict') }, { token: TOKEN, host: '127.0.0.1', commandLimits: { refusedTokens: { burst: 1, perSecond: 0.01 } } });
+      const strictUrl = await strict.listen({ port: 0, host: '127.0.0.1' });
+      const page = await browser.newPage();
+      try {
+        await page.goto(`${strictUrl}/`);
+        await page.fill('#token-input', 'not-the-right-token-000');
+        await page.click('#token-use');
+        await expect.poll(() => page.textContent('#cmd-result')).toBe('That token was refused.');
+        // The right token now waits its turn, and the page says so rather than calling it wrong.
+        await page.fill('#token-input', TOKEN);
+        await page.click('#token-use');
+        await expect.poll(() => page.textContent('#cmd-result')).toMatch(/^Not checked: too many refused command tokens from this address; try again in \d+ s\.$/);
+        expect(await page.textContent('#lock-word')).toBe('Locked.');
+      } finally {
+        await page.close();
+        await strict.close();
+      }
+    }, 30000);
   });
 }

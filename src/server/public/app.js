@@ -413,6 +413,12 @@ async function checkToken(token) {
       model.tokenState = 'ok';
       sessionStorage.setItem(TOKEN_KEY, token);
       $('cmd-result').textContent = '';
+    } else if (response.status === 429) {
+      // Too many tries from here: the token was not even looked at, so it is neither right nor wrong yet.
+      const body = await response.json().catch(() => ({}));
+      model.tokenState = 'none';
+      $('cmd-result').dataset.ok = 'false';
+      $('cmd-result').textContent = `Not checked: ${body.message ?? 'too many tries; wait a little'}.`;
     } else {
       model.tokenState = 'refused';
       forgetToken();
