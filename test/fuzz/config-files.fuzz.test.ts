@@ -84,9 +84,10 @@ function apply(data: unknown, mutations: readonly Mutation[]): unknown {
       if (Array.isArray(holder) && typeof key === 'number') holder.splice(key, 1);
       else delete holder[key];
     } else if (m.kind === 'replace' && parentPath.length === 0 && root === copy && m.path.length === 0) {
-      root = m.value;
+      root = structuredClone(m.value);
     } else {
-      Object.defineProperty(holder, key, { value: m.value, enumerable: true, writable: true, configurable: true });
+      // A copy: the generator hands out the same constant objects again, which must stay as they are.
+      Object.defineProperty(holder, key, { value: structuredClone(m.value), enumerable: true, writable: true, configurable: true });
     }
   }
   return root;
