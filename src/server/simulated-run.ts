@@ -66,7 +66,12 @@ export function startSimulatedRun(options: SimulatedRunOptions): SimulatedRun {
       meta: { source: 'simulator', seed: options.seed, profile: options.profileName ?? options.profile.name, speed: options.speed, estimator },
     });
     // The recipe as run, so that a replay needs nothing else.
-    journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
+    try {
+      journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
+    } catch (error) {
+      journal.close();
+      throw error;
+    }
   }
   const run = createSteppedRun(controller, chamber, {
     onInput: (input) => {
@@ -89,8 +94,11 @@ export function startSimulatedRun(options: SimulatedRunOptions): SimulatedRun {
       trueNm: chamber.truth().layers.map((l) => l.partNm),
     });
     if (journal) {
-      journal.writeFile('summary.json', `${JSON.stringify(summary, null, 2)}\n`);
-      journal.close();
+      try {
+        journal.writeFile('summary.json', `${JSON.stringify(summary, null, 2)}\n`);
+      } finally {
+        journal.close();
+      }
     }
     return summary;
   };

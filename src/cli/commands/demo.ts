@@ -11,7 +11,7 @@ import { loadRecipe } from '../../config/load-recipe.ts';
 import { generateToken, isLoopback } from '../../server/auth.ts';
 import { buildServer } from '../../server/build-server.ts';
 import { startSimulatedRun } from '../../server/simulated-run.ts';
-import { allowHostOption, CliError, estimatorOption, numberOption } from '../cli-error.ts';
+import { allowHostOption, CliError, estimatorOption, numberOption, outputFolderOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 import { DEFAULT_PROFILE } from './simulate.ts';
 
@@ -79,11 +79,11 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   if (!Number.isInteger(seed) || seed < 0 || seed > 2 ** 32 - 1) throw new CliError(`--seed must be a whole number from 0 to 4294967295, got ${seed}`);
   const host = values.host ?? '127.0.0.1';
   const allowedHosts = allowHostOption(values['allow-host']);
-  const runsDir = values.runs ?? 'runs';
 
   const recipe = loadRecipe(values.recipe ?? DEFAULT_DEMO_RECIPE, loadMaterialLibrary(values.materials));
   const profileFile = values.profile ?? DEFAULT_PROFILE;
   const profile = loadSimProfile(profileFile);
+  const runsDir = outputFolderOption('runs', values.runs ?? 'runs');
 
   const token = generateToken();
   const exposed = !isLoopback(host);

@@ -1,0 +1,141 @@
+// Every file or folder a command is given to read or write, refused in one sentence naming it
+// with exit 1 when the file system cannot take it: never a trace, never a hang.
+import { spawn } from 'node:child_process';
+import { cpSync, mkdirSync, mkdtempSync, readdirSync, rmSync, writeFileSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
+import { beforeAll, describe, expect, it } from 'vitest';
+import { main } from '../../src/cli/main.ts';
+
+const root = fileURLToPath(new URL('../../', import.meta.url));
+const ar4 = join(root, 'config/recipes/ar4-visible.yaml');
+const ar4Design = join(root, 'config/designs/ar4-visible.yaml');
+const tcpChamber = join(root, 'config/chambers/sim-tcp.yaml');
+const temp = (): string => mkdtempSync(join(tmpdir(), 'fringe-paths-'));
+
+interface Outcome {
+  code: number | null;
+  out: string;
+  err: string;
+}
+
+async function run(...argv: string[]): Promise<Outcome> {
+  let out = '';
+  let err = '';
+  const code = await main(argv, { out: (t) => (out += `${t}\n`), err: (t) => (err += `${t}\n`) });
+  return { code, out, err };
+}
+
+/** The command as a process, killed if it has not ended within `limitMs` (a hang is a failure, not a stuck suite). */
+function runProcess(argv: string[], limitMs = 90_000): Promise<Outcome & { hung: boolean }> {
+  return new Promise((resolve) => {
+    const child = spawn(process.execPath, [join(root, 'src/cli/fringe.js'), ...argv], { cwd: root, stdio: ['ignore', 'pipe', 'pipe'] });
+    let out = '';
+    let err = '';
+    let hung = false;
+    child.stdout.on('data', (d: Buffer) => (out += d.toString()));
+    child.stderr.on('data', (d: Buffer) => (err += d.toString()));
+    const timer = setTimeout(() => {
+      hung = true;
+      child.kill('SIGKILL');
+    }, limitMs);
+    child.once('exit', (code) => {
+      clearTimeout(timer);
+      resolve({ code, out, err, hung });
+    });
+  });
+}
+
+/** One line on stderr, no trace: what every refusal must look like. */
+function expectOneSentence(r: Outcome, command: string, ...words: (string | RegExp)[]): void {
+  expect(r.code, r.err).toBe(1);
+  const lines = r.err.trim().split('\n');
+  expect(lines, r.err).toHaveLength(1);
+  expect(lines[0]).toMatch(new RegExp(`^fringe ${command}: `));
+  expect(r.err).not.toMatch(/\n\s+at |Error:|node:internal/);
+  for (const w of words) expect(lines[0]).toMatch(typeof w === 'string' ? new RegExp(w.replace(/[.*+?^${}()|[\]\\]/g, '\\$&')) : w);
+}
+
+describe('a folder option naming a file', () => {
+  it('is refused before any work: simulate --journal, run --runs, demo --runs', async () => {
+    const file = join(temp(), 'a-file');
+    writeFileSync(file, 'x');
+    expectOneSentence(await run('simulate', ar4, '--journal', file), 'simulate', `--journal ${file}: ${file} is a file, not a folder`);
+    expectOneSentence(await run('simulate', ar4, '--journal', join(file, 'deeper')), 'simulate', `${file} is a file, not a folder`);
+    expectOneSentence(await run('run', '--chamber', tcpChamber, ar4, '--runs', file), 'run', `--runs ${file}: ${file} is a file, not a folder`);
+    expectOneSentence(await run('demo', '--runs', file, '--port', '0'), 'demo', `--runs ${file}: ${file} is a file, not a folder`);
+  });
+});
+
+describe('an output file that cannot be written', () => {
+  it('is refused naming it, in plain words: a folder in its place, a file on its path', async () => {
+    const dir = temp();
+    const file = join(dir, 'a-file');
+    writeFileSync(file, 'x');
+    expectOneSentence(await run('spectrum', ar4Design, '--plot', dir), 'spectrum', `cannot write ${dir}: it is a folder`);
+    expectOneSentence(await run('plan', ar4, '--plot', join(file, 'x.svg')), 'plan', `cannot write ${join(file, 'x.svg')}: ${file} is a file, not a folder`);
+    // A study takes minutes: its plot is checked before it starts.
+    expectOneSentence(await run('study', ar4, '--runs', '1', '--workers', '1', '--plot', dir), 'study', `--plot ${dir}: it is a folder`);
+  });
+});
+
+describe('a run folder whose recipe.json is damaged', () => {
+  let good: string;
+  beforeAll(async () => {
+    const dir = temp();
+    const r = await run('simulate', ar4, '--journal', dir, '--seed', '2');
+    expect(r.code, r.err).toBe(0);
+    good = join(dir, readdirSync(dir)[0] as string);
+  }, 120_000);
+
+  it('is refused by replay and run --resume in one sentence naming the file', async () => {
+    const cases: [string, (recipe: string) => void, string][] = [
+      ['not JSON', (f) => writeFileSync(f, '{"name": "cut sho'), 'is damaged: it is not JSON'],
+      ['JSON, not a recipe', (f) => writeFileSync(f, '[1, 2, 3]\n'), 'is damaged: it is not a recipe as fringe records it'],
+      [
+        'a folder',
+        (f) => {
+          rmSync(f);
+          mkdirSync(f);
+        },
+        'cannot be read: it is a folder',
+      ],
+    ];
+    for (const [, damage, sentence] of cases) {
+      const copy = join(temp(), 'run');
+      cpSync(good, copy, { recursive: true });
+      const recipe = join(copy, 'recipe.json');
+      damage(recipe);
+      expectOneSentence(await run('replay', copy), 'replay', `${recipe} ${sentence}`);
+      expectOneSentence(await run('run', '--resume', copy), 'run', `${recipe} ${sentence}`);
+    }
+  });
+});
+
+describe.runIf(process.platform === 'linux')('a folder under /proc, where a recursive mkdir spins for ever', () => {
+  it('is refused at once by every command that makes one', { timeout: 600_000 }, async () => {
+    const target = '/proc/fringe-test/x';
+    const pseudo = "/proc is on the kernel's proc pseudo file system, not storage";
+    const cases: [string, string[], string][] = [
+      ['simulate', ['simulate', ar4, '--journal', target], `--journal ${target}: ${pseudo}`],
+      ['run', ['run', '--chamber', tcpChamber, ar4, '--runs', target], `--runs ${target}: ${pseudo}`],
+      ['demo', ['demo', '--runs', target, '--port', '0'], `--runs ${target}: ${pseudo}`],
+      ['spectrum', ['spectrum', ar4Design, '--plot', `${target}/r.svg`], `cannot write ${target}/r.svg: ${pseudo}`],
+      ['spectrum', ['spectrum', ar4Design, '--plot', '/proc/r.svg'], `cannot write /proc/r.svg: ${pseudo}`],
+      ['study', ['study', ar4, '--runs', '1', '--plot', `${target}/s.svg`], `--plot ${target}/s.svg: ${pseudo}`],
+    ];
+    for (const [command, argv, sentence] of cases) {
+      const r = await runProcess(argv);
+      expect(r.hung, `${argv.join(' ')} hung`).toBe(false);
+      expectOneSentence(r, command, sentence);
+    }
+    // export writes to its --out as it reads: checked the same way.
+    const dir = temp();
+    const sim = await run('simulate', ar4, '--journal', dir);
+    expect(sim.code, sim.err).toBe(0);
+    const r = await runProcess(['export', join(dir, readdirSync(dir)[0] as string), '--csv', '--out', `${target}/x.csv`]);
+    expect(r.hung).toBe(false);
+    expectOneSentence(r, 'export', `cannot write ${target}/x.csv: ${pseudo}`);
+  });
+});
