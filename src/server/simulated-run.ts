@@ -22,7 +22,10 @@ export interface SimulatedRunOptions {
   speed: number;
   /** Record the run in `<journalDir>/<run id>/`. */
   journalDir?: string;
-  /** Stops the run early (the summary then says `incomplete`). */
+  /**
+   * Aborts the run: the controller's abort, as the operator's (every shutter closed, the abort
+   * journalled), and the summary says `aborted`. A run already ended is left as it was.
+   */
   signal?: AbortSignal;
   controller?: Partial<ControllerOptions>;
   hub?: Pick<RunHubOptions, 'pointsPerS' | 'maxTracePoints' | 'maxRatePoints' | 'maxLog'>;
@@ -105,7 +108,11 @@ export function startSimulatedRun(options: SimulatedRunOptions): SimulatedRun {
   const done = runPaced(run, options.speed, {
     ...(options.signal ? { signal: options.signal } : {}),
     ...(options.chunkS !== undefined ? { chunkS: options.chunkS } : {}),
-  }).then(finish, (error: unknown) => {
+  })
+    .then(() => {
+      if (options.signal?.aborted && run.running) run.apply({ kind: 'operator', action: 'abort', timeS: Math.max(run.nowS, Number.isFinite(run.state.nowS) ? run.state.nowS : 0) });
+    })
+    .then(finish, (error: unknown) => {
     journal?.close();
     throw error;
   });
