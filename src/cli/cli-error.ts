@@ -83,6 +83,7 @@ export function openOutputFile(file: string): { write(text: string): void; close
  * never starts towards a place it cannot be kept.
  */
 export function outputFolderOption(name: string, dir: string): string {
+  if (dir.trim() === '') throw new CliError(`--${name} needs a folder name`);
   try {
     makeWritableFolder(dir);
   } catch (error) {
@@ -93,6 +94,7 @@ export function outputFolderOption(name: string, dir: string): string {
 
 /** The file a `--NAME FILE` option names, checked before a long job: its folder made, the file not a folder. */
 export function outputFileOption(name: string, file: string): string {
+  if (file.trim() === '') throw new CliError(`--${name} needs a file name`);
   try {
     makeWritableFolder(dirname(resolve(file)));
     if (statSync(file, { throwIfNoEntry: false })?.isDirectory()) throw new CliError(`--${name} ${file}: it is a folder; name a file`, 1);

@@ -1,6 +1,6 @@
 // Every file or folder a command is given to read or write, refused in one sentence naming it
 // with exit 1 when the file system cannot take it: never a trace, never a hang.
-import { spawn } from 'node:child_process';
+import { spawn, spawnSync } from 'node:child_process';
 import { cpSync, mkdirSync, mkdtempSync, readdirSync, rmSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
@@ -28,7 +28,7 @@ async function run(...argv: string[]): Promise<Outcome> {
 }
 
 /** The command as a process, killed if it has not ended within `limitMs` (a hang is a failure, not a stuck suite). */
-function runProcess(argv: string[], limitMs = 90_000): Promise<Outcome & { hung: boolean }> {
+function runProcess(argv: string[], limitMs = 60_000): Promise<Outcome & { hung: boolean }> {
   return new Promise((resolve) => {
     const child = spawn(process.execPath, [join(root, 'src/cli/fringe.js'), ...argv], { cwd: root, stdio: ['ignore', 'pipe', 'pipe'] });
     let out = '';
@@ -73,8 +73,8 @@ describe('an output file that cannot be written', () => {
     const dir = temp();
     const file = join(dir, 'a-file');
     writeFileSync(file, 'x');
-    expectOneSentence(await run('spectrum', ar4Design, '--plot', dir), 'spectrum', `cannot write ${dir}: it is a folder`);
-    expectOneSentence(await run('plan', ar4, '--plot', join(file, 'x.svg')), 'plan', `cannot write ${join(file, 'x.svg')}: ${file} is a file, not a folder`);
+    expectOneSentence(await run('spectrum', ar4Design, '--plot', dir), 'spectrum', `--plot ${dir}: it is a folder`);
+    expectOneSentence(await run('plan', ar4, '--plot', join(file, 'x.svg')), 'plan', `--plot ${join(file, 'x.svg')}: ${file} is a file, not a folder`);
     // A study takes minutes: its plot is checked before it starts.
     expectOneSentence(await run('study', ar4, '--runs', '1', '--workers', '1', '--plot', dir), 'study', `--plot ${dir}: it is a folder`);
   });
@@ -121,8 +121,8 @@ describe.runIf(process.platform === 'linux')('a folder under /proc, where a recu
       ['simulate', ['simulate', ar4, '--journal', target], `--journal ${target}: ${pseudo}`],
       ['run', ['run', '--chamber', tcpChamber, ar4, '--runs', target], `--runs ${target}: ${pseudo}`],
       ['demo', ['demo', '--runs', target, '--port', '0'], `--runs ${target}: ${pseudo}`],
-      ['spectrum', ['spectrum', ar4Design, '--plot', `${target}/r.svg`], `cannot write ${target}/r.svg: ${pseudo}`],
-      ['spectrum', ['spectrum', ar4Design, '--plot', '/proc/r.svg'], `cannot write /proc/r.svg: ${pseudo}`],
+      ['spectrum', ['spectrum', ar4Design, '--plot', `${target}/r.svg`], `--plot ${target}/r.svg: ${pseudo}`],
+      ['spectrum', ['spectrum', ar4Design, '--plot', '/proc/r.svg'], `--plot /proc/r.svg: ${pseudo}`],
       ['study', ['study', ar4, '--runs', '1', '--plot', `${target}/s.svg`], `--plot ${target}/s.svg: ${pseudo}`],
     ];
     for (const [command, argv, sentence] of cases) {
@@ -136,6 +136,44 @@ describe.runIf(process.platform === 'linux')('a folder under /proc, where a recu
     expect(sim.code, sim.err).toBe(0);
     const r = await runProcess(['export', join(dir, readdirSync(dir)[0] as string), '--csv', '--out', `${target}/x.csv`]);
     expect(r.hung).toBe(false);
-    expectOneSentence(r, 'export', `cannot write ${target}/x.csv: ${pseudo}`);
+    expectOneSentence(r, 'export', `--out ${target}/x.csv: ${pseudo}`);
+  });
+});
+
+describe('an empty name for a file or folder option', () => {
+  it('is refused as a usage error, never taken as the current folder or as no option', async () => {
+    const cases: [string, string[], string][] = [
+      ['simulate', ['simulate', ar4, '--journal', ''], '--journal needs a folder name'],
+      ['run', ['run', '--chamber', tcpChamber, ar4, '--runs', ' '], '--runs needs a folder name'],
+      ['plan', ['plan', ar4, '--plot', ''], '--plot needs a file name'],
+      ['spectrum', ['spectrum', ar4Design, '--plot', ''], '--plot needs a file name'],
+      ['export', ['export', temp(), '--csv', '--out', ''], '--out needs a file name'],
+    ];
+    for (const [command, argv, sentence] of cases) {
+      const r = await run(...argv);
+      expect(r.code, `${argv.join(' ')}: ${r.err}`).toBe(2);
+      expect(r.err).toBe(`fringe ${command}: ${sentence}\n`);
+    }
+  });
+});
+
+describe.runIf(process.platform === 'linux')('a journal that is a pipe or a device', () => {
+  it('is refused at once by export, replay and run --resume (opening a pipe waits for a writer for ever)', async () => {
+    const fifo = join(temp(), 'journal.ndjson');
+    expect(spawnSync('mkfifo', [fifo]).status).toBe(0);
+    for (const [command, argv] of [
+      ['export', ['export', fifo, '--csv']],
+      ['replay', ['replay', fifo]],
+      ['run', ['run', '--resume', fifo]],
+    ] as const) {
+      const r = await runProcess([...argv]);
+      expect(r.hung, `${argv.join(' ')} hung`).toBe(false);
+      expectOneSentence(r, command, `${fifo} cannot be read: it is not a regular file`);
+    }
+    expectOneSentence(await run('replay', '/dev/null'), 'replay', '/dev/null cannot be read: it is not a regular file');
+  });
+
+  it('simulate --serve refuses a --pty path under /proc before starting anything', async () => {
+    expectOneSentence(await run('simulate', ar4, '--serve', '--pty', '/proc/fringe-test/x'), 'simulate', "--pty /proc/fringe-test/x: /proc is on the kernel's proc pseudo file system, not storage");
   });
 });

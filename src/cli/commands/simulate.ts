@@ -16,7 +16,7 @@ import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { createController } from '../../pipeline/controller.ts';
 import type { CutReason, RunEvent } from '../../pipeline/events.ts';
 import { createSteppedRun, runPaced } from '../../pipeline/run-stepped.ts';
-import { CliError, estimatorOption, numberOption, outputFolderOption } from '../cli-error.ts';
+import { CliError, estimatorOption, numberOption, outputFileOption, outputFolderOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 
 export const DEFAULT_PROFILE = fileURLToPath(new URL('../../../config/sim/typical.yaml', import.meta.url));
@@ -128,7 +128,8 @@ async function serve(
     await server.close();
     return 0;
   }
-  const pair = await createPtyPair(values.pty ?? '/tmp/fringe-sim').catch((error: unknown) => {
+  // socat makes the host's side as a link at PATH: its folder is checked here, so that a refusal names it.
+  const pair = await createPtyPair(outputFileOption('pty', values.pty ?? '/tmp/fringe-sim')).catch((error: unknown) => {
     throw new CliError((error as Error).message, 1);
   });
   const served = await serveOnPty(pair, { recipe, profile, seed, speed });

@@ -82,7 +82,7 @@ export async function runStudyCommand(argv: string[], io: CommandIo): Promise<nu
     },
   });
   if (tty) process.stderr.write('\n');
-  if (values.plot) {
+  if (values.plot !== undefined) {
     writeOutputFile(values.plot, plotStudy(report));
     io.err(`wrote ${values.plot}`);
     if (report.band) {
