@@ -128,7 +128,7 @@ export function makeWritableFolder(dir: string): void {
   try {
     accessSync(at, constants.W_OK | constants.X_OK);
   } catch (error) {
-    return refuse(`${fileErrorReason(error)}${at === target ? '' : ` (${at})`}`);
+    return refuse(`${fileErrorReason(error)} in ${at}`);
   }
   for (const folder of missing) {
     try {

@@ -1,9 +1,9 @@
 // Every file or folder a command is given to read or write, refused in one sentence naming it
 // with exit 1 when the file system cannot take it: never a trace, never a hang.
 import { spawn, spawnSync } from 'node:child_process';
-import { cpSync, mkdirSync, mkdtempSync, readdirSync, rmSync, writeFileSync } from 'node:fs';
+import { chmodSync, cpSync, mkdirSync, mkdtempSync, readdirSync, rmSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
-import { join } from 'node:path';
+import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { main } from '../../src/cli/main.ts';
@@ -175,5 +175,24 @@ describe.runIf(process.platform === 'linux')('a journal that is a pipe or a devi
 
   it('simulate --serve refuses a --pty path under /proc before starting anything', async () => {
     expectOneSentence(await run('simulate', ar4, '--serve', '--pty', '/proc/fringe-test/x'), 'simulate', "--pty /proc/fringe-test/x: /proc is on the kernel's proc pseudo file system, not storage");
+  });
+});
+
+describe('a folder where writing is not permitted', () => {
+  it('is refused naming the folder, for a run folder and for a plot', async () => {
+    // Root may write anywhere: as root the commands run as the user nobody.
+    const asRoot = process.getuid?.() === 0;
+    if (process.platform === 'win32') return;
+    const locked = join(temp(), 'locked');
+    mkdirSync(locked, { mode: 0o555 });
+    chmodSync(locked, 0o555);
+    chmodSync(dirname(locked), 0o755);
+    const attempt = async (argv: string[]): Promise<Outcome> => {
+      if (!asRoot) return run(...argv);
+      const r = spawnSync(process.execPath, [join(root, 'src/cli/fringe.js'), ...argv], { cwd: tmpdir(), uid: 65534, gid: 65534, encoding: 'utf8', timeout: 60_000 });
+      return { code: r.status, out: r.stdout, err: r.stderr };
+    };
+    expectOneSentence(await attempt(['simulate', ar4, '--journal', join(locked, 'runs')]), 'simulate', `--journal ${join(locked, 'runs')}: permission denied in ${locked}`);
+    expectOneSentence(await attempt(['spectrum', ar4Design, '--plot', join(locked, 'r.svg')]), 'spectrum', `--plot ${join(locked, 'r.svg')}: permission denied in ${locked}`);
   });
 });
