@@ -3,7 +3,9 @@
  * an over-long line's fault should carry.
  *
  * What must stay true:
- * - the lines produced depend on the byte stream only, never on how it was cut into chunks;
+ * - the lines produced depend on the byte stream only, never on how it was cut into chunks, nor
+ *   on what the caller does with a chunk's memory once `push` has returned (nothing is kept by
+ *   reference);
  * - the framer never holds more than `maxLineBytes` bytes: a line that grows past the limit is
  *   reported once as a `line-too-long` fault, the rest of it is dropped, and framing resumes
  *   after the next terminator.
@@ -82,13 +84,13 @@ export function createLineFramer(options: LineFramerOptions = {}): LineFramer {
             // The excerpt is the line's first `excerptBytes` bytes whatever the chunking (the
             // line is longer than that, or it would not have overflowed).
             const need = Math.max(0, excerptBytes - held);
-            parts.push(chunk.slice(start, start + need));
+            parts.push(keep(chunk, start, start + need));
             held += need;
             const head = decoder.decode(takeLine().subarray(0, excerptBytes)).slice(0, FAULT_LINE_CHARS);
             out.push({ kind: 'fault', channel: 'unknown', code: 'line-too-long', line: head, offset: maxLineBytes, arrivalS });
             discarding = true;
           } else {
-            parts.push(chunk.slice(start, stop));
+            parts.push(keep(chunk, start, stop));
             held += stop - start;
           }
         }
@@ -121,6 +123,15 @@ export function createLineFramer(options: LineFramerOptions = {}): LineFramer {
       return held;
     },
   };
+}
+
+/**
+ * A copy of `chunk[from, to)` the framer may hold past this push. Never a view: a Buffer's
+ * `slice` shares its memory, and a caller may reuse that memory for its next read (a read loop
+ * into one buffer), which would rewrite the partial line held here.
+ */
+function keep(chunk: Uint8Array, from: number, to: number): Uint8Array {
+  return new Uint8Array(chunk.subarray(from, to));
 }
 
 function concat(parts: readonly Uint8Array[], length: number): Uint8Array {

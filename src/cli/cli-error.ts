@@ -1,5 +1,6 @@
-import { closeSync, mkdirSync, openSync, writeFileSync, writeSync } from 'node:fs';
+import { closeSync, openSync, statSync, writeFileSync, writeSync } from 'node:fs';
 import { dirname, resolve } from 'node:path';
+import { fileErrorReason, makeWritableFolder } from '../files/writable-folder.ts';
 import { isHostName } from '../server/host-rule.ts';
 
 /** An error the command line reports as one sentence on stderr, with its exit code. */
@@ -40,21 +41,21 @@ export function allowHostOption(values: readonly string[] | undefined): string[]
 /** Writes a file the user asked for (creating its folder), or says in one sentence why not. */
 export function writeOutputFile(file: string, text: string): void {
   try {
-    mkdirSync(dirname(resolve(file)), { recursive: true });
+    makeWritableFolder(dirname(resolve(file)));
     writeFileSync(file, text);
   } catch (error) {
-    throw new CliError(`cannot write ${file}: ${(error as Error).message}`, 1);
+    throw new CliError(`cannot write ${file}: ${fileErrorReason(error)}`, 1);
   }
 }
 
 /** A file the user asked for, written piece by piece; a failure is one sentence naming it. */
 export function openOutputFile(file: string): { write(text: string): void; close(): void } {
   const fail = (error: unknown): never => {
-    throw new CliError(`cannot write ${file}: ${(error as Error).message}`, 1);
+    throw new CliError(`cannot write ${file}: ${fileErrorReason(error)}`, 1);
   };
   let fd = -1;
   try {
-    mkdirSync(dirname(resolve(file)), { recursive: true });
+    makeWritableFolder(dirname(resolve(file)));
     fd = openSync(file, 'w');
   } catch (error) {
     fail(error);
@@ -75,4 +76,31 @@ export function openOutputFile(file: string): { write(text: string): void; close
       }
     },
   };
+}
+
+/**
+ * The folder a `--NAME DIR` option names, made now (or refused in one sentence) so that a run
+ * never starts towards a place it cannot be kept.
+ */
+export function outputFolderOption(name: string, dir: string): string {
+  if (dir.trim() === '') throw new CliError(`--${name} needs a folder name`);
+  try {
+    makeWritableFolder(dir);
+  } catch (error) {
+    throw new CliError(`--${name} ${dir}: ${fileErrorReason(error)}`, 1);
+  }
+  return dir;
+}
+
+/** The file a `--NAME FILE` option names, checked before a long job: its folder made, the file not a folder. */
+export function outputFileOption(name: string, file: string): string {
+  if (file.trim() === '') throw new CliError(`--${name} needs a file name`);
+  try {
+    makeWritableFolder(dirname(resolve(file)));
+    if (statSync(file, { throwIfNoEntry: false })?.isDirectory()) throw new CliError(`--${name} ${file}: it is a folder; name a file`, 1);
+  } catch (error) {
+    if (error instanceof CliError) throw error;
+    throw new CliError(`--${name} ${file}: ${fileErrorReason(error)}`, 1);
+  }
+  return file;
 }

@@ -3,6 +3,7 @@ import { ConfigError } from '../config/validation.ts';
 import { JournalError } from '../journal/journal-reader.ts';
 import { JournalWriteError } from '../journal/journal-writer.ts';
 import { OpticalModelError } from '../model/optics/optical-model.ts';
+import { describeRefusedPath, FolderError } from '../files/writable-folder.ts';
 import { CliError } from './cli-error.ts';
 import { processIo, type CommandIo } from './command-io.ts';
 import { planUsage, runPlan } from './commands/plan.ts';
@@ -68,6 +69,17 @@ export async function main(argv: string[], io: CommandIo = processIo): Promise<n
       io.err(`fringe ${name}: ${error.message}`);
       return 1;
     }
+    if (error instanceof FolderError) {
+      io.err(`fringe ${name}: ${error.message}`);
+      return 1;
+    }
+    // A path the user gave that the file system refuses is their input, not our bug: one
+    // sentence naming it. Anything else is a bug and keeps its trace.
+    const refused = describeRefusedPath(error);
+    if (refused !== undefined) {
+      io.err(`fringe ${name}: ${refused}`);
+      return 1;
+    }
     if (error instanceof TypeError && 'code' in error && String(error.code).startsWith('ERR_PARSE_ARGS')) {
       // Node's own wording can run over several lines: keep its first sentence.
       io.err(`fringe ${name}: ${error.message.split('\n')[0] ?? ''} (see fringe ${name} --help)`);
@@ -76,3 +88,4 @@ export async function main(argv: string[], io: CommandIo = processIo): Promise<n
     throw error;
   }
 }
+

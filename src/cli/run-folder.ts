@@ -5,6 +5,7 @@ import { describeDamage, JournalError, openJournal, type JournalStream } from '.
 import type { CommandIo } from './command-io.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import { CliError } from './cli-error.ts';
+import { fileErrorReason } from '../files/writable-folder.ts';
 
 export interface RecordedRun {
   /** The run folder. */
@@ -33,9 +34,26 @@ export function warnOfDamage(run: RecordedRun, io: CommandIo): void {
   if (warning) io.err(`warning: ${warning}`);
 }
 
-/** The recipe as run, kept beside the journal. */
+/** The recipe as run, kept beside the journal; refused in one sentence when it is missing or damaged. */
 export function readRecordedRecipe(dir: string, hint: string): ResolvedRecipe {
   const file = join(dir, 'recipe.json');
   if (!existsSync(file)) throw new CliError(`${dir} holds no recipe.json; ${hint}`, 1);
-  return JSON.parse(readFileSync(file, 'utf8')) as ResolvedRecipe;
+  let text: string;
+  try {
+    text = readFileSync(file, 'utf8');
+  } catch (error) {
+    throw new CliError(`${file} cannot be read: ${fileErrorReason(error)}; ${hint}`, 1);
+  }
+  let value: unknown;
+  try {
+    value = JSON.parse(text);
+  } catch {
+    throw new CliError(`${file} is damaged: it is not JSON; ${hint}`, 1);
+  }
+  // Written by fringe itself, so only its outline is checked: enough that nothing reads into a hole.
+  const recipe = value as Partial<ResolvedRecipe> | null;
+  if (recipe === null || typeof recipe !== 'object' || typeof recipe.name !== 'string' || !Array.isArray(recipe.layers) || recipe.layers.length === 0) {
+    throw new CliError(`${file} is damaged: it is not a recipe as fringe records it; ${hint}`, 1);
+  }
+  return recipe as ResolvedRecipe;
 }

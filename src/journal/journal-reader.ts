@@ -5,7 +5,8 @@
  * is dropped. A damaged line inside (a torn write a resumed run wrote after, junk) is skipped and
  * counted, and the reader says which lines it skipped.
  */
-import { closeSync, openSync, readSync } from 'node:fs';
+import { closeSync, openSync, readSync, statSync } from 'node:fs';
+import { describeFileError } from '../files/writable-folder.ts';
 import { headerProblem, isJournalRecord, parseRecord, type JournalHeader, type JournalRecord } from './journal-format.ts';
 
 export interface JournalReadOptions {
@@ -109,13 +110,17 @@ export function describeDamage(file: string, report: JournalReadReport): string 
 function readHeader(file: string, chunkBytes: number): JournalHeader {
   let first: string | null | undefined;
   try {
+    // A pipe would block the open (or the reads) for ever, and a device never end: files only.
+    const stat = statSync(file);
+    if (!stat.isFile()) throw new JournalError(`${file} cannot be read: ${stat.isDirectory() ? 'it is a folder' : 'it is not a regular file'}`);
     for (const line of scanLines(file, chunkBytes, MAX_HEADER_BYTES, { bytes: 0 }, true)) {
       first = line.text;
       break;
     }
   } catch (error) {
+    if (error instanceof JournalError) throw error;
     const code = (error as NodeJS.ErrnoException).code;
-    const why = code === 'ENOENT' ? 'no such file' : code === 'EISDIR' ? 'it is a folder' : (error as Error).message;
+    const why = code === 'ENOENT' ? 'no such file' : (describeFileError(error) ?? (error as Error).message);
     throw new JournalError(`${file} cannot be read: ${why}`);
   }
   if (first === undefined || first === '') throw new JournalError(`${file} holds no complete line`);

@@ -8,8 +8,9 @@
  * recovery through `onWriteRecovered`. While the disk refuses, the buffer is bounded: the oldest
  * readings go first, counted; events are never dropped.
  */
-import { closeSync, existsSync, fsyncSync, mkdirSync, openSync, readSync, renameSync, statSync, writeFileSync, writeSync } from 'node:fs';
+import { closeSync, existsSync, fsyncSync, openSync, readSync, renameSync, rmSync, statSync, writeFileSync, writeSync } from 'node:fs';
 import { join } from 'node:path';
+import { fileErrorReason, makeWritableFolder } from '../files/writable-folder.ts';
 import type { RunEvent } from '../pipeline/events.ts';
 import type { PipelineInput } from '../pipeline/types.ts';
 import { JOURNAL_VERSION, readingRecord, stringifyRecord, type JournalHeader, type JournalRecord } from './journal-format.ts';
@@ -25,7 +26,7 @@ export interface JournalWriter {
   flush(): void;
   /** Writes and syncs to disk what is buffered. Never throws. */
   sync(): void;
-  /** Writes a file beside the journal atomically (throws when it cannot). */
+  /** Writes a file beside the journal atomically; throws a JournalWriteError naming it when it cannot. */
   writeFile(name: string, text: string): void;
   /** Flushes, syncs and closes; says what could not be written. */
   close(): JournalLoss;
@@ -93,13 +94,13 @@ export function createJournalWriter(
   let resuming: boolean;
   let endsMidLine = false;
   try {
-    mkdirSync(dir, { recursive: true });
+    makeWritableFolder(dir);
     resuming = existsSync(file) && statSync(file).size > 0;
     if (resuming && options.resumedAtS === undefined) throw new Error('it already holds a journal of another run');
     fd = openSync(file, 'a+');
     if (resuming) endsMidLine = lastByte(fd, statSync(file).size) !== 0x0a;
   } catch (error) {
-    throw new JournalWriteError(`${file} cannot be opened for the journal: ${(error as Error).message}`);
+    throw new JournalWriteError(`${file} cannot be opened for the journal: ${fileErrorReason(error)}`);
   }
 
   let queue: PendingLine[] = [];
@@ -264,11 +265,23 @@ export function createJournalWriter(
     writeFile(name, text) {
       const target = join(dir, name);
       const temp = `${target}.tmp-${process.pid}`;
-      writeFileSync(temp, text);
-      const tfd = openSync(temp, 'r');
-      fsyncSync(tfd);
-      closeSync(tfd);
-      renameSync(temp, target);
+      try {
+        writeFileSync(temp, text);
+        const tfd = openSync(temp, 'r');
+        try {
+          fsyncSync(tfd);
+        } finally {
+          closeSync(tfd);
+        }
+        renameSync(temp, target);
+      } catch (error) {
+        try {
+          rmSync(temp, { force: true });
+        } catch {
+          // A temp file that cannot be removed is only clutter.
+        }
+        throw new JournalWriteError(`${target} cannot be written: ${fileErrorReason(error)}`);
+      }
     },
     close() {
       if (closed) return loss();

@@ -22,7 +22,10 @@ export interface SimulatedRunOptions {
   speed: number;
   /** Record the run in `<journalDir>/<run id>/`. */
   journalDir?: string;
-  /** Stops the run early (the summary then says `incomplete`). */
+  /**
+   * Aborts the run: the controller's abort, as the operator's (every shutter closed, the abort
+   * journalled), and the summary says `aborted`. A run already ended is left as it was.
+   */
   signal?: AbortSignal;
   controller?: Partial<ControllerOptions>;
   hub?: Pick<RunHubOptions, 'pointsPerS' | 'maxTracePoints' | 'maxRatePoints' | 'maxLog'>;
@@ -66,7 +69,12 @@ export function startSimulatedRun(options: SimulatedRunOptions): SimulatedRun {
       meta: { source: 'simulator', seed: options.seed, profile: options.profileName ?? options.profile.name, speed: options.speed, estimator },
     });
     // The recipe as run, so that a replay needs nothing else.
-    journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
+    try {
+      journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
+    } catch (error) {
+      journal.close();
+      throw error;
+    }
   }
   const run = createSteppedRun(controller, chamber, {
     onInput: (input) => {
@@ -89,15 +97,22 @@ export function startSimulatedRun(options: SimulatedRunOptions): SimulatedRun {
       trueNm: chamber.truth().layers.map((l) => l.partNm),
     });
     if (journal) {
-      journal.writeFile('summary.json', `${JSON.stringify(summary, null, 2)}\n`);
-      journal.close();
+      try {
+        journal.writeFile('summary.json', `${JSON.stringify(summary, null, 2)}\n`);
+      } finally {
+        journal.close();
+      }
     }
     return summary;
   };
   const done = runPaced(run, options.speed, {
     ...(options.signal ? { signal: options.signal } : {}),
     ...(options.chunkS !== undefined ? { chunkS: options.chunkS } : {}),
-  }).then(finish, (error: unknown) => {
+  })
+    .then(() => {
+      if (options.signal?.aborted && run.running) run.apply({ kind: 'operator', action: 'abort', timeS: Math.max(run.nowS, Number.isFinite(run.state.nowS) ? run.state.nowS : 0) });
+    })
+    .then(finish, (error: unknown) => {
     journal?.close();
     throw error;
   });

@@ -140,4 +140,45 @@ describe('createLineFramer properties', () => {
       }),
     );
   });
+
+  it('holds a copy of a partial line, never the memory of the caller, which a read loop may reuse', () => {
+    const framer = createLineFramer();
+    const scratch = Buffer.alloc(16);
+    const read = (text: string): Buffer => scratch.subarray(0, scratch.write(text));
+    expect(framer.push(read('OPT,1,'))).toEqual([]);
+    expect(framer.push(read('0.5\nXTL,2'))).toEqual(['OPT,1,0.5']);
+    expect(framer.push(read(',6e6\n'))).toEqual(['XTL,2,6e6']);
+  });
+
+  // Random streams (bytes, or pieces of lines with CR, LF, multi-byte characters and runs long
+  // enough to pass the 1024-byte default), both newline modes, limits at the small end, around
+  // the 800-byte excerpt and the default, cut anywhere with empty chunks, each chunk handed over
+  // in one Buffer the caller overwrites after every push: the same lines and faults as in one push.
+  it('gives the same lines and faults for any chunking, whatever the caller does with a chunk afterwards', () => {
+    const pieces = ['OPT,', 'XTL,', '0.5', ',', '6e6', '\n', '\r', '\r\n', 'é', '€', '😀', 'x'.repeat(9), 'y'.repeat(200), 'z'.repeat(700)];
+    const stream = fc.oneof(
+      fc.uint8Array({ maxLength: 600 }),
+      fc.array(fc.oneof(fc.constantFrom(...pieces).map(bytes), fc.uint8Array({ maxLength: 4 })), { maxLength: 40 }).map((ps) => Uint8Array.from(ps.flatMap((p) => [...p]))),
+    );
+    const limit = fc.oneof(fc.integer({ min: 8, max: 14 }), fc.integer({ min: 801, max: 830 }), fc.constant(undefined));
+    fc.assert(
+      fc.property(stream, fc.array(fc.nat(), { maxLength: 30 }), limit, fc.constantFrom<'lf' | 'cr'>('lf', 'cr'), (data, cuts, maxLineBytes, newline) => {
+        const options: LineFramerOptions = maxLineBytes === undefined ? { newline } : { maxLineBytes, newline };
+        const whole = createLineFramer(options).push(data, 7);
+        const framer = createLineFramer(options);
+        const scratch = Buffer.alloc(data.length + 1);
+        const points = cuts.map((c) => c % (data.length + 1)).sort((a, b) => a - b);
+        const out: Array<string | Fault> = [];
+        let start = 0;
+        for (const point of [...points, data.length]) {
+          scratch.set(data.subarray(start, point));
+          out.push(...framer.push(scratch.subarray(0, point - start), 7));
+          scratch.fill(0x41);
+          start = point;
+        }
+        expect(out).toEqual(whole);
+      }),
+      { numRuns: 2000 },
+    );
+  });
 });

@@ -383,4 +383,30 @@ describe('a journal the disk refuses', () => {
     expect(() => createJournalWriter(dir, header)).toThrow(JournalWriteError);
     expect(() => createJournalWriter(dir, header)).toThrow(/journal\.ndjson cannot be written: ENOSPC/);
   });
+
+  it('refuses a file beside the journal that cannot be written in one sentence naming it, leaving no temp file', () => {
+    const dir = join(tempDir(), 'beside');
+    const w = createJournalWriter(dir, header);
+    if (existsSync('/dev/full')) {
+      // The atomic write goes through a temp file named after this process: on a full device.
+      symlinkSync('/dev/full', join(dir, `recipe.json.tmp-${process.pid}`));
+      expect(() => w.writeFile('recipe.json', '{}\n')).toThrow(JournalWriteError);
+      expect(existsSync(join(dir, `recipe.json.tmp-${process.pid}`))).toBe(false);
+      symlinkSync('/dev/full', join(dir, `recipe.json.tmp-${process.pid}`));
+      expect(() => w.writeFile('recipe.json', '{}\n')).toThrow(`${join(dir, 'recipe.json')} cannot be written: the disk is full`);
+    }
+    // A folder where the file should go cannot be renamed over.
+    mkdirSync(join(dir, 'summary.json', 'inside'), { recursive: true });
+    expect(() => w.writeFile('summary.json', '{}\n')).toThrow(new RegExp(`^${join(dir, 'summary.json').replace(/[.*+?^${}()|[\]\\]/g, '\\$&')} cannot be written: `));
+    expect(existsSync(join(dir, `summary.json.tmp-${process.pid}`))).toBe(false);
+    w.close();
+  });
+
+  it('refuses a journal under a file or on a kernel pseudo file system in one sentence', () => {
+    const file = join(tempDir(), 'plain-file');
+    writeFileSync(file, 'x');
+    expect(() => createJournalWriter(join(file, 'run'), header)).toThrow(`${join(file, 'run', 'journal.ndjson')} cannot be opened for the journal: ${file} is a file, not a folder`);
+    // (Under /proc/fringe-test a recursive mkdir spins for ever: the command-line tests try that in a child with a time limit.)
+    if (process.platform === 'linux') expect(() => createJournalWriter('/sys/fringe-test', header)).toThrow(/\/sys is on the kernel's sysfs pseudo file system/);
+  });
 });

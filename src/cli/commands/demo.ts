@@ -2,6 +2,7 @@
  * `fringe demo`: a simulated run of the shipped edge filter on the virtual chamber, paced at a
  * brisk multiple of real time, with the live dashboard served on 127.0.0.1. The run is recorded
  * in the runs folder like any other; the server keeps serving after it ends, until interrupted.
+ * An interrupt aborts a run still going, as the operator's abort would, and stops the server.
  */
 import { fileURLToPath } from 'node:url';
 import { parseCommandArgs } from '../parse-command-args.ts';
@@ -11,7 +12,7 @@ import { loadRecipe } from '../../config/load-recipe.ts';
 import { generateToken, isLoopback } from '../../server/auth.ts';
 import { buildServer } from '../../server/build-server.ts';
 import { startSimulatedRun } from '../../server/simulated-run.ts';
-import { allowHostOption, CliError, estimatorOption, numberOption } from '../cli-error.ts';
+import { allowHostOption, CliError, estimatorOption, numberOption, outputFolderOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 import { DEFAULT_PROFILE } from './simulate.ts';
 
@@ -21,8 +22,9 @@ export const demoUsage = `Usage: fringe demo [options]
 
 Runs a simulated coating run on the virtual chamber and serves the live dashboard: the trace of
 every layer against its prediction, the stack, the crystal, the outcome spectrum and the log,
-with the controls. The run is kept in the runs folder; the server stays up after it ends
-(Ctrl-C stops it).
+with the controls. The run is kept in the runs folder; the server stays up after it ends.
+Ctrl-C stops everything: a run still going is aborted (its shutters closed, the abort
+journalled) and the dashboard stops.
 
   --recipe FILE         recipe to run (default: config/recipes/edge-longpass-visible.yaml)
   --profile FILE        simulator profile (default: config/sim/typical.yaml)
@@ -79,11 +81,11 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   if (!Number.isInteger(seed) || seed < 0 || seed > 2 ** 32 - 1) throw new CliError(`--seed must be a whole number from 0 to 4294967295, got ${seed}`);
   const host = values.host ?? '127.0.0.1';
   const allowedHosts = allowHostOption(values['allow-host']);
-  const runsDir = values.runs ?? 'runs';
 
   const recipe = loadRecipe(values.recipe ?? DEFAULT_DEMO_RECIPE, loadMaterialLibrary(values.materials));
   const profileFile = values.profile ?? DEFAULT_PROFILE;
   const profile = loadSimProfile(profileFile);
+  const runsDir = outputFolderOption('runs', values.runs ?? 'runs');
 
   const token = generateToken();
   const exposed = !isLoopback(host);
@@ -115,8 +117,11 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   io.out("fringe is process control, not a safety system: interlocks, manual shutter controls and the equipment maker's instructions stay in charge.");
   hooks.onListening?.({ url, token, viewerToken });
 
+  // A run that ends by itself leaves the dashboard up to look at; Ctrl-C is said below.
   simulated.done.then(
-    (summary) => io.out(`run ${summary.outcome} after ${Math.round(summary.durationS)} s of run time; the dashboard stays up (Ctrl-C to stop)`),
+    (summary) => {
+      if (!stop.signal.aborted) io.out(`run ${summary.outcome} after ${Math.round(summary.durationS)} s of run time; the dashboard stays up (Ctrl-C to stop it)`);
+    },
     (error: unknown) => io.err(`fringe demo: the simulated run failed: ${(error as Error).message}`),
   );
 
@@ -134,8 +139,14 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
       process.once('SIGTERM', finish);
     }
   });
+  const stillRunning = simulated.run.running;
   stop.abort();
-  await simulated.done.catch(() => undefined);
+  const summary = await simulated.done.catch(() => undefined);
   await app.close();
+  io.out(
+    stillRunning && summary
+      ? `stopped: the simulated run was aborted after ${Math.round(summary.durationS)} s of run time, its shutters closed (kept in ${simulated.dir ?? runsDir}); the dashboard has stopped`
+      : 'stopped: the dashboard has stopped',
+  );
   return 0;
 }

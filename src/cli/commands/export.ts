@@ -1,7 +1,7 @@
 /** `fringe export RUN --csv`: a run's readings and events as CSV for a spreadsheet. */
 import { parseCommandArgs } from '../parse-command-args.ts';
 import type { RunEvent } from '../../pipeline/events.ts';
-import { CliError, openOutputFile } from '../cli-error.ts';
+import { CliError, openOutputFile, outputFileOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 import { readRecordedRun, warnOfDamage } from '../run-folder.ts';
 
@@ -24,9 +24,10 @@ export function runExport(argv: string[], io: CommandIo): number {
   }
   if (positionals.length !== 1) throw new CliError('export needs exactly one RUN (a run folder or a journal file)');
   if (!values.csv) throw new CliError('say which format: --csv');
+  const outFile = values.out === undefined ? undefined : outputFileOption('out', values.out);
   const recorded = readRecordedRun(positionals[0] as string);
   // Rows go out in batches as the journal is read: a long run's CSV is never one string.
-  const out = values.out ? openOutputFile(values.out) : { write: (text: string) => io.out(text), close: () => undefined };
+  const out = outFile !== undefined ? openOutputFile(outFile) : { write: (text: string) => io.out(text), close: () => undefined };
   let batch: string[] = ['time_s,kind,channel_or_event,value,arrival_s,layer,detail'];
   let rows = 0;
   const emit = (row: string): void => {
@@ -49,7 +50,7 @@ export function runExport(argv: string[], io: CommandIo): number {
     out.close();
   }
   warnOfDamage(recorded, io);
-  if (values.out) io.err(`wrote ${values.out} (${rows} rows)`);
+  if (outFile !== undefined) io.err(`wrote ${outFile} (${rows} rows)`);
   return 0;
 }
 

@@ -7,7 +7,7 @@ import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import { planRun, type LayerPlan, type RunPlan } from '../../model/plan/plan.ts';
 import { renderLineChart, type ChartMarker, type ChartPoint } from '../../report/index.ts';
-import { CliError, numberOption, writeOutputFile } from '../cli-error.ts';
+import { CliError, numberOption, outputFileOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 
 export const planUsage = `Usage: fringe plan RECIPE [options]
@@ -60,8 +60,8 @@ export function runPlan(argv: string[], io: CommandIo): number {
     ...(sampleRateHz !== undefined ? { sampleRateHz } : {}),
     suggest: values['no-suggest'] ? 'none' : values['whole-run'] ? 'whole-run' : 'per-layer',
   });
-  if (values.plot) {
-    writeOutputFile(values.plot, plotRun(plan));
+  if (values.plot !== undefined) {
+    writeOutputFile(outputFileOption('plot', values.plot), plotRun(plan));
     io.err(`wrote ${values.plot}`);
   }
   io.out(values.json ? JSON.stringify(plan) : formatPlan(plan));

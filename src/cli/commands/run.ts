@@ -19,7 +19,7 @@ import { createLiveRun } from '../../pipeline/live-run.ts';
 import { replayJournal } from '../../pipeline/replay.ts';
 import type { OperatorAction, ReadingSource } from '../../pipeline/types.ts';
 import { createRunHub, type RunHub } from '../../server/run-hub.ts';
-import { allowHostOption, CliError, estimatorOption } from '../cli-error.ts';
+import { allowHostOption, CliError, estimatorOption, outputFolderOption } from '../cli-error.ts';
 import { readRecordedRecipe, readRecordedRun, warnOfDamage } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
 import { driveRun } from '../drive-run.ts';
@@ -112,7 +112,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
     if (chamberFile === undefined) throw new CliError('run needs --chamber FILE: which instruments to read and which shutters to drive');
     recipe = loadRecipe(positionals[0] as string, loadMaterialLibrary(values.materials));
     const runId = `${new Date().toISOString().replace(/[:.]/g, '-')}`;
-    runDir = join(values.runs ?? 'runs', runId);
+    runDir = join(outputFolderOption('runs', values.runs ?? 'runs'), runId);
   }
   const chamber = loadChamber(chamberFile);
   const drivers = openChamber(chamber);
@@ -133,9 +133,16 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
     await drivers.close();
     throw error instanceof JournalWriteError ? new CliError(error.message, 1) : error;
   }
-  if (!resumeFrom) {
-    journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
-    journal.writeFile('chamber.yaml', readFileSync(chamberFile, 'utf8'));
+  try {
+    if (!resumeFrom) {
+      journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
+      journal.writeFile('chamber.yaml', readFileSync(chamberFile, 'utf8'));
+    }
+  } catch (error) {
+    // Without the recipe beside it the run could not be resumed nor replayed: do not start it.
+    journal.close();
+    await drivers.close();
+    throw error instanceof JournalWriteError ? new CliError(error.message, 1) : error;
   }
 
   const commands = new Subject<{ action: OperatorAction; alertId?: string }>();

@@ -16,7 +16,7 @@ import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { createController } from '../../pipeline/controller.ts';
 import type { CutReason, RunEvent } from '../../pipeline/events.ts';
 import { createSteppedRun, runPaced } from '../../pipeline/run-stepped.ts';
-import { CliError, estimatorOption, numberOption } from '../cli-error.ts';
+import { CliError, estimatorOption, numberOption, outputFileOption, outputFolderOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 
 export const DEFAULT_PROFILE = fileURLToPath(new URL('../../../config/sim/typical.yaml', import.meta.url));
@@ -98,6 +98,7 @@ export async function runSimulate(argv: string[], io: CommandIo): Promise<number
   const recipe = loadRecipe(positionals[0] as string, loadMaterialLibrary(values.materials));
   const profileFile = values.profile ?? DEFAULT_PROFILE;
   const profile = loadSimProfile(profileFile);
+  if (values.journal !== undefined && !values.serve) outputFolderOption('journal', values.journal);
   if (values.serve) return serve(recipe, profile, seed, Number.isFinite(speed) ? speed : 1, values, io);
   if (values.pty !== undefined || values.tcp !== undefined) throw new CliError('--pty and --tcp go with --serve');
   const report = await simulateRun(recipe, { profile, profileName: profileFile, seed, speed, journalDir: values.journal, io, estimator });
@@ -127,7 +128,8 @@ async function serve(
     await server.close();
     return 0;
   }
-  const pair = await createPtyPair(values.pty ?? '/tmp/fringe-sim').catch((error: unknown) => {
+  // socat makes the host's side as a link at PATH: its folder is checked here, so that a refusal names it.
+  const pair = await createPtyPair(outputFileOption('pty', values.pty ?? '/tmp/fringe-sim')).catch((error: unknown) => {
     throw new CliError((error as Error).message, 1);
   });
   const served = await serveOnPty(pair, { recipe, profile, seed, speed });
@@ -168,7 +170,12 @@ export async function simulateRun(recipe: ResolvedRecipe, options: SimulateOptio
       meta: { source: 'simulator', seed: options.seed, profile: options.profileName, estimator },
     });
     // The recipe as run, resolved against the library of the day, so that a replay needs nothing else.
-    journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
+    try {
+      journal.writeFile('recipe.json', `${JSON.stringify(recipe)}\n`);
+    } catch (error) {
+      journal.close();
+      throw error;
+    }
   }
   const run = createSteppedRun(controller, chamber, {
     ...(journal ? { onInput: (input) => journal.input(input) } : {}),
@@ -187,8 +194,11 @@ export async function simulateRun(recipe: ResolvedRecipe, options: SimulateOptio
   if (showProgress) process.stderr.write('\n');
   const report = buildReport(recipe, chamber.truth(), events, options, run.nowS);
   if (journal) {
-    journal.writeFile('summary.json', `${JSON.stringify(report, null, 2)}\n`);
-    journal.close();
+    try {
+      journal.writeFile('summary.json', `${JSON.stringify(report, null, 2)}\n`);
+    } finally {
+      journal.close();
+    }
     report.journal = journal.dir;
   }
   return report;

@@ -6,7 +6,7 @@ import { parseCommandArgs } from '../parse-command-args.ts';
 import { loadDesign, loadMaterialLibrary } from '../../config/load-design.ts';
 import { buildOpticalModel, spectrum, type Polarisation } from '../../model/optics/optical-model.ts';
 import { renderLineChart } from '../../report/index.ts';
-import { CliError, numberOption, writeOutputFile } from '../cli-error.ts';
+import { CliError, numberOption, outputFileOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 
 export const spectrumUsage = `Usage: fringe spectrum DESIGN [options]
@@ -73,7 +73,7 @@ export function runSpectrum(argv: string[], io: CommandIo): number {
   const out = { R: new Float64Array(grid.length), T: new Float64Array(grid.length), A: new Float64Array(grid.length) };
   spectrum(out, model, pol);
 
-  if (values.plot) {
+  if (values.plot !== undefined) {
     const svg = renderLineChart(
       [
         { label: 'R', x: grid, y: out.R },
@@ -88,7 +88,7 @@ export function runSpectrum(argv: string[], io: CommandIo): number {
         ...(design.band ? { bands: [{ from: design.band.fromNm, to: design.band.toNm, label: 'design band' }] } : {}),
       },
     );
-    writeOutputFile(values.plot, svg);
+    writeOutputFile(outputFileOption('plot', values.plot), svg);
     io.err(`wrote ${values.plot}`);
   }
 

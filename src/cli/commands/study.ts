@@ -11,7 +11,7 @@ import { loadRecipe } from '../../config/load-recipe.ts';
 import { renderLineChart } from '../../report/index.ts';
 import { STRATEGIES } from '../../study/study-run.ts';
 import { runStudy, type StudyReport } from '../../study/study.ts';
-import { CliError, numberOption, writeOutputFile } from '../cli-error.ts';
+import { CliError, numberOption, outputFileOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 
 const DEFAULT_PROFILE = fileURLToPath(new URL('../../../config/sim/typical.yaml', import.meta.url));
@@ -69,6 +69,8 @@ export async function runStudyCommand(argv: string[], io: CommandIo): Promise<nu
   }
   const recipe = loadRecipe(positionals[0] as string, loadMaterialLibrary(values.materials));
   const profile = loadSimProfile(values.profile ?? DEFAULT_PROFILE);
+  // A study takes minutes: a plot that could not be written is refused before it starts.
+  if (values.plot !== undefined) outputFileOption('plot', values.plot);
   const tty = process.stderr.isTTY;
   const report = await runStudy(recipe, profile, {
     runs,
@@ -80,7 +82,7 @@ export async function runStudyCommand(argv: string[], io: CommandIo): Promise<nu
     },
   });
   if (tty) process.stderr.write('\n');
-  if (values.plot) {
+  if (values.plot !== undefined) {
     writeOutputFile(values.plot, plotStudy(report));
     io.err(`wrote ${values.plot}`);
     if (report.band) {
