@@ -874,14 +874,16 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
    * The mode the layer should be cut in now: its planned one while its monitor answers, else the
    * crystal, else the clock. Leaving a mode takes silence (staleAfterS); coming back to one takes
    * recoverS of unbroken readings, and for an optical layer without the fit (which runs on its
-   * own clock through a gap) a gap that hid at most one turning point, which the turn detector
-   * still counts when the signal shows up past it.
+   * own clock through a gap) a level layer whose gap hid at most one turning point, which the
+   * turn detector still counts when the signal shows up past it. A turning-point layer on the
+   * plain rule stays on the crystal: its detector, having lost the extremum's approach, cut a
+   * harsh-profile mirror layer 36 nm thin where the crystal had been within 2 nm.
    */
   function wantedMode(s: ControllerState, plan: LayerPlan, opticalSilent: boolean, crystalSilent: boolean): CutMode {
     const planned = plan.cut;
     if (planned === 'time') return s.mode;
     const optical = planned === 'level' || planned === 'turning-point';
-    const opticalUsable = optical && !opticalSilent && (s.mode === planned || (s.nowS - s.optical.since >= opts.recoverS && (s.fit !== null || gapHidesOneTurnAtMost(s, plan, crystalSilent))));
+    const opticalUsable = optical && !opticalSilent && (s.mode === planned || (s.nowS - s.optical.since >= opts.recoverS && (s.fit !== null || (planned === 'level' && gapHidesOneTurnAtMost(s, plan, crystalSilent)))));
     if (opticalUsable) return planned;
     const crystalUsable = !crystalSilent && (s.mode === 'crystal' || s.nowS - s.crystal.since >= opts.recoverS);
     return crystalUsable ? 'crystal' : 'time';

@@ -15,6 +15,7 @@ import { runIdeal, type IdealRunOptions, type IdealRunResult } from '../support/
 const recipeFile = (name: string): string => fileURLToPath(new URL(`../../config/recipes/${name}`, import.meta.url));
 const ar4 = loadRecipe(recipeFile('ar4-visible.yaml'));
 const edge = loadRecipe(recipeFile('edge-longpass-visible.yaml'));
+const mirror = loadRecipe(recipeFile('mirror-1064.yaml'));
 
 const ofType = <T extends RunEvent['type']>(events: readonly RunEvent[], type: T): Extract<RunEvent, { type: T }>[] =>
   events.filter((e): e is Extract<RunEvent, { type: T }> => e.type === type);
@@ -284,6 +285,28 @@ describe('a long monitor gap', () => {
     };
     expect(modes([startS + 60, startS + 225])).toEqual(['crystal']);
     expect(modes([startS + 60, startS + 100])).toEqual(['crystal', 'level']);
+  });
+});
+
+describe('a monitor gap on a turning-point layer', () => {
+  it('with the plain rule, keeps the layer on the crystal; with the fit, takes it back to its turning point', () => {
+    // mirror layer 3 (turning point): the monitor silent for 10 s from 20 s into the layer.
+    const reference = baseline(mirror, { replan: false });
+    const startS = startOf(reference, 3);
+    const layer3 = (estimator: 'plain' | 'fit'): { modes: string[]; reason: string | undefined; errorNm: number } => {
+      const run = runIdeal(mirror, createController(mirror, { replan: false, estimator }), { opticalSilentS: [startS + 20, startS + 30] });
+      const modes = ofType(run.events, 'mode-changed').filter((e) => e.layer === 3).map((e) => e.to);
+      const reason = ofType(run.events, 'cut').find((c) => c.layer === 3)?.reason;
+      return { modes, reason, errorNm: (run.trueNm[2] as number) - (mirror.layers[2]?.targetNm as number) };
+    };
+    const plain = layer3('plain');
+    expect(plain.modes).toEqual(['crystal']);
+    expect(plain.reason).toBe('crystal-thickness');
+    // The ideal crystal knows the tooling exactly: within a few readings' growth and the shutter delay.
+    expect(Math.abs(plain.errorNm)).toBeLessThan(2);
+    const fit = layer3('fit');
+    expect(fit.modes).toEqual(['crystal', 'turning-point']);
+    expect(fit.reason).toBe('model-fit');
   });
 });
 
