@@ -8,7 +8,7 @@ import { fileURLToPath } from 'node:url';
 import { describe, expect, it } from 'vitest';
 import { loadSimProfile, serveOnTcp } from '../../sim/index.ts';
 import { runLive } from '../../src/cli/commands/run.ts';
-import { main } from '../../src/cli/main.ts';
+import { runCli as run } from '../support/run-cli.ts';
 import { loadRecipe } from '../../src/config/load-recipe.ts';
 import { readJournal } from '../../src/journal/journal-reader.ts';
 import type { JournalWrite } from '../../src/journal/journal-writer.ts';
@@ -17,22 +17,9 @@ import type { RunEvent } from '../../src/pipeline/events.ts';
 const root = fileURLToPath(new URL('../../', import.meta.url));
 const ar4 = join(root, 'config/recipes/ar4-visible.yaml');
 
-interface Captured {
-  code: number;
-  out: string;
-  err: string;
-}
-
 /** Control characters and bytes 0x7f–0xff in `text` (a newline apart): what junk echoed to a terminal would show. */
 function echoedBytes(text: string): number[] {
   return [...text].map((c) => c.charCodeAt(0)).filter((code) => code !== 10 && (code < 0x20 || (code >= 0x7f && code <= 0xff)));
-}
-
-async function run(...argv: string[]): Promise<Captured> {
-  let out = '';
-  let err = '';
-  const code = await main(argv, { out: (t) => (out += `${t}\n`), err: (t) => (err += `${t}\n`) });
-  return { code, out, err };
 }
 
 /** A simulated run's folder (journal, recipe.json), recorded on the arrival clock's default. */

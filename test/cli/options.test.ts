@@ -3,17 +3,10 @@
 // a tooling factor given as a percentage without its sign is refused, not taken ×100.
 import { fileURLToPath } from 'node:url';
 import { describe, expect, it } from 'vitest';
-import { main } from '../../src/cli/main.ts';
+import { runCli as run } from '../support/run-cli.ts';
 import { parseCommandArgs } from '../../src/cli/parse-command-args.ts';
 
 const recipe = fileURLToPath(new URL('../../config/recipes/ar4-visible.yaml', import.meta.url));
-
-async function run(...argv: string[]): Promise<{ code: number; out: string; err: string }> {
-  let out = '';
-  let err = '';
-  const code = await main(argv, { out: (t) => (out += `${t}\n`), err: (t) => (err += `${t}\n`) });
-  return { code, out, err };
-}
 
 describe('negative numbers to options', () => {
   it.each([

@@ -6,7 +6,7 @@ import { tmpdir } from 'node:os';
 import { dirname, join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { main } from '../../src/cli/main.ts';
+import { runCli as run } from '../support/run-cli.ts';
 
 const root = fileURLToPath(new URL('../../', import.meta.url));
 const ar4 = join(root, 'config/recipes/ar4-visible.yaml');
@@ -18,13 +18,6 @@ interface Outcome {
   code: number | null;
   out: string;
   err: string;
-}
-
-async function run(...argv: string[]): Promise<Outcome> {
-  let out = '';
-  let err = '';
-  const code = await main(argv, { out: (t) => (out += `${t}\n`), err: (t) => (err += `${t}\n`) });
-  return { code, out, err };
 }
 
 /** The command as a process, killed if it has not ended within `limitMs` (a hang is a failure, not a stuck suite). */

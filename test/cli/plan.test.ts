@@ -4,20 +4,13 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { describe, expect, it } from 'vitest';
-import { main } from '../../src/cli/main.ts';
+import { runCli as run } from '../support/run-cli.ts';
 import type { LayerPlan, RunPlan } from '../../src/model/plan/plan.ts';
 
 const root = fileURLToPath(new URL('../../', import.meta.url));
 const edge = join(root, 'config/recipes/edge-longpass-visible.yaml');
 const mirror = join(root, 'config/recipes/mirror-1064.yaml');
 const ar4 = join(root, 'config/recipes/ar4-visible.yaml');
-
-async function run(...argv: string[]): Promise<{ code: number; out: string; err: string }> {
-  let out = '';
-  let err = '';
-  const code = await main(argv, { out: (t) => (out += `${t}\n`), err: (t) => (err += `${t}\n`) });
-  return { code, out, err };
-}
 
 async function planJson(...argv: string[]): Promise<RunPlan> {
   const r = await run('plan', ...argv, '--json');

@@ -6,7 +6,7 @@ import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { describe, expect, it } from 'vitest';
 import { loadSimProfile } from '../../sim/index.ts';
-import { main } from '../../src/cli/main.ts';
+import { runCli as run } from '../support/run-cli.ts';
 import { simulateRun, type SimulationReport } from '../../src/cli/commands/simulate.ts';
 import { journalEstimator } from '../../src/journal/journal-format.ts';
 import { readJournal } from '../../src/journal/journal-reader.ts';
@@ -16,13 +16,6 @@ import { fortyLayerRecipe } from '../sim/support.ts';
 
 const root = fileURLToPath(new URL('../../', import.meta.url));
 const ar4 = join(root, 'config/recipes/ar4-visible.yaml');
-
-async function run(...argv: string[]): Promise<{ code: number; out: string; err: string }> {
-  let out = '';
-  let err = '';
-  const code = await main(argv, { out: (t) => (out += `${t}\n`), err: (t) => (err += `${t}\n`) });
-  return { code, out, err };
-}
 
 describe('fringe simulate', () => {
   it('--json gives a layers array with true thicknesses and a spectrum block; a seed repeats exactly', async () => {

@@ -8,7 +8,7 @@ import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import fc from 'fast-check';
 import { describe, expect, it } from 'vitest';
-import { main } from '../../src/cli/main.ts';
+import { runCli as run } from '../support/run-cli.ts';
 import { MAX_CONFIG_BYTES, MAX_CONFIG_DEPTH, MAX_CONFIG_VALUES, parseYamlText, readYamlFile } from '../../src/config/read-config.ts';
 import { ConfigError, validate } from '../../src/config/validation.ts';
 import { z } from 'zod';
@@ -42,13 +42,6 @@ function refusal(read: () => unknown): { at: string; message: string; text: stri
 const aliasBomb = ['a: &a ["lol", "lol", "lol", "lol", "lol", "lol", "lol", "lol", "lol"]']
   .concat(['b', 'c', 'd', 'e', 'f', 'g', 'h', 'i'].map((name, i) => `${name}: &${name} [${Array(9).fill(`*${String.fromCharCode(97 + i)}`).join(', ')}]`))
   .join('\n');
-
-async function run(...argv: string[]): Promise<{ code: number; out: string; err: string }> {
-  let out = '';
-  let err = '';
-  const code = await main(argv, { out: (t) => (out += `${t}\n`), err: (t) => (err += `${t}\n`) });
-  return { code, out, err };
-}
 
 describe('readYamlFile: aliases', () => {
   it('refuses an alias that names no anchor, with its line and column', () => {
