@@ -766,13 +766,9 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       if (s.phase === 'awaiting-close') return s;
       // Its shutter may still be open: the layer is not finished, and goes on growing in its
       // records (crystal, fit) until the close is confirmed.
-      const names = s.unconfirmedCloses.join(', ');
-      return alert({ ...s, phase: 'awaiting-close', awaitingSinceS: Number.NaN }, events, 'close-unconfirmed', `${ALERTS['close-unconfirmed'].sentence} (${names})`);
+      return alertUnconfirmed({ ...s, phase: 'awaiting-close' }, events);
     }
-    if (s.phase === 'awaiting-close' && s.nowS >= s.awaitingSinceS + opts.settleS) {
-      const names = s.unconfirmedCloses.join(', ');
-      return alert({ ...s, awaitingSinceS: Number.NaN }, events, 'close-unconfirmed', `${ALERTS['close-unconfirmed'].sentence} (${names})`);
-    }
+    if (s.phase === 'awaiting-close' && s.nowS >= s.awaitingSinceS + opts.settleS) return alertUnconfirmed(s, events);
     if (s.phase !== 'depositing') return s;
     const plan = layerPlan(s);
     const layer = layerRecipe(s);
@@ -1003,9 +999,14 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
   /** A shutter command, and what it does to the closes awaiting confirmation (the newest command for a shutter replaces an older close). */
   function sendShutter(s: ControllerState, events: RunEvent[], action: 'open' | 'close', source: string, layer: number, timeS: number): ControllerState {
     events.push({ type: 'shutter', timeS, command: shutter(action, source, layer, timeS) });
-    const others = s.unconfirmedCloses.filter((name) => name !== source);
-    const unconfirmedCloses = action === 'close' && opts.confirmCloses ? [...others, source] : others;
-    return unconfirmedCloses.length === s.unconfirmedCloses.length && unconfirmedCloses.every((n, i) => n === s.unconfirmedCloses[i]) ? s : { ...s, unconfirmedCloses };
+    const awaited = action === 'close' && opts.confirmCloses;
+    if (awaited === s.unconfirmedCloses.includes(source)) return s;
+    return { ...s, unconfirmedCloses: awaited ? [...s.unconfirmedCloses, source] : s.unconfirmedCloses.filter((name) => name !== source) };
+  }
+
+  /** The wait for unconfirmed closes, said once (awaitingSinceS NaN from then on). */
+  function alertUnconfirmed(s: ControllerState, events: RunEvent[]): ControllerState {
+    return alert({ ...s, awaitingSinceS: Number.NaN }, events, 'close-unconfirmed', `${ALERTS['close-unconfirmed'].sentence} (${s.unconfirmedCloses.join(', ')})`);
   }
 
   function onShutterAck(s: ControllerState, ack: ShutterAck, events: RunEvent[]): StepResult {
