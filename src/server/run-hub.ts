@@ -24,6 +24,7 @@ import type { CutReason, RunEvent } from '../pipeline/events.ts';
 import type { OperatorAction, OperatorCommand, PipelineInput, Reading } from '../pipeline/types.ts';
 import { BoundedHistory } from './bounded-history.ts';
 import { Decimator, type DecimatedPoint } from './decimator.ts';
+import { resolvedStack } from '../pipeline/resolved-stack.ts';
 import { outcomeSpectrum } from './outcome.ts';
 import {
   VIEW_FORMAT_VERSION,
@@ -418,7 +419,8 @@ export function createRunHub(options: RunHubOptions): RunHub {
     if (outcome?.count !== finished) {
       let view: OutcomeView | null;
       try {
-        view = outcomeSpectrum(recipe, s ? s.achievedNm.slice(0, finished) : []);
+        const known = s ? resolvedStack(recipe, s) : { partNm: [], indexFactors: [] };
+        view = outcomeSpectrum(recipe, { partNm: known.partNm.slice(0, finished), indexFactors: known.indexFactors.slice(0, finished) });
       } catch {
         // A stack the optics cannot evaluate (a material without data in the band) has no outcome panel.
         view = null;

@@ -1,0 +1,55 @@
+/**
+ * The finished layers as the run knows them now: each layer's physical thickness on the parts
+ * and its index over the design's. A layer the model fit cut keeps the fit's figures (revised by
+ * every chip refit); a layer cut on the crystal takes its material's calibrated rate on the
+ * crystal's clock once that is known (ρ·crystal is its optical thickness), before that the
+ * optical thickness the watching fit saw, else the crystal's figure at the material's index.
+ *
+ * This is the rule the controller applies inside its reducer (its `resolvedStack`, whose
+ * `layer-finished` events carry these figures); it is written here, pure and exported, so that
+ * the dashboard and the run's records read the stack by the same rule. A test holds the two to
+ * the same numbers at every layer's end.
+ */
+import type { ResolvedRecipe } from '../model/plan/recipe.ts';
+import type { ControllerState } from './controller.ts';
+
+/** A material's rate on the crystal's clock known this well (fraction, rms) stands for the thickness of each of its layers (the controller's figure). */
+export const CALIBRATED_RATE_SIGMA = 0.005;
+
+export interface ResolvedStack {
+  /** Physical thickness of each finished layer on the parts, nm. */
+  readonly partNm: readonly number[];
+  /** Each finished layer's index over the design's (1 where nothing is known yet). */
+  readonly indexFactors: readonly number[];
+}
+
+type StackState = Pick<ControllerState, 'achievedNm' | 'indexFactors' | 'materialRate' | 'materialIndex' | 'crystalBelow' | 'opticalNm'>;
+
+export function resolvedStack(recipe: ResolvedRecipe, s: StackState): ResolvedStack {
+  const partNm: number[] = [];
+  const indexFactors: number[] = [];
+  s.achievedNm.forEach((achieved, i) => {
+    const layer = recipe.layers[i] as ResolvedRecipe['layers'][number];
+    const fitted = s.indexFactors[i] ?? Number.NaN;
+    const rate = s.materialRate[layer.materialName];
+    const crystalNm = (s.crystalBelow[i]?.thicknessNm ?? 0) * layer.toolingFactor;
+    const known = s.materialIndex[layer.materialName]?.factor;
+    if (!Number.isNaN(fitted)) {
+      partNm.push(achieved);
+      indexFactors.push(fitted);
+      return;
+    }
+    if (rate && rate.sigma < CALIBRATED_RATE_SIGMA * rate.factor && crystalNm > 0) {
+      const index = known ?? 1;
+      partNm.push((rate.factor * crystalNm) / index);
+      indexFactors.push(index);
+      return;
+    }
+    const watched = s.opticalNm[i] ?? Number.NaN;
+    // Before any fitted layer of the material, what the watching fit saw stands for its index too.
+    const index = known ?? (Number.isFinite(watched) && achieved > 0 ? Math.min(1.1, Math.max(0.9, watched / achieved)) : 1);
+    partNm.push((Number.isFinite(watched) ? watched : achieved * index) / index);
+    indexFactors.push(index);
+  });
+  return { partNm, indexFactors };
+}
