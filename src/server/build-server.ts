@@ -9,6 +9,7 @@ import { fileURLToPath } from 'node:url';
 import type { Writable } from 'node:stream';
 import fastifyStatic from '@fastify/static';
 import Fastify, { type FastifyInstance, type FastifyReply, type FastifyServerOptions } from 'fastify';
+import { DASHBOARD_WORDS } from '../pipeline/cut-words.ts';
 import { isLoopback, redactUrl } from './auth.ts';
 import { createHostRule, splitTarget, type HostRule } from './host-rule.ts';
 import { commandsPlugin, type CommandLimits } from './plugins/commands.ts';
@@ -152,6 +153,11 @@ export function buildServer(deps: ServerDeps, options: ServerOptions): FastifyIn
   void app.register(runsPlugin, { prefix: '/api' });
   void app.register(commandsPlugin, { prefix: '/api', ...options.commandLimits });
   void app.register(livePlugin, { prefix: '/api', ...options.live });
+  // The words for estimators and cut rules, from the one module the command line prints them from.
+  const wordsModule = `// Built by the server from src/pipeline/cut-words.ts.\nexport const WORDS = ${JSON.stringify(DASHBOARD_WORDS)};\n`;
+  app.get('/words.js', (_request, reply) => {
+    void reply.type('text/javascript; charset=utf-8').header('cache-control', 'no-cache').send(wordsModule);
+  });
   void app.register(fastifyStatic, { root: PUBLIC_DIR, prefix: '/', wildcard: false, index: 'index.html', cacheControl: false });
   void app.register(fastifyStatic, { root: UPLOT_DIR, prefix: '/vendor/uplot/', wildcard: false, decorateReply: false, maxAge: '1h' });
   return app;

@@ -24,8 +24,9 @@ export interface JournalReplay {
 export function startJournalReplay(folder: RunFolder, speed: number, signal?: AbortSignal): JournalReplay {
   const journal = openJournal(folder.journalFile);
   const recipe = JSON.parse(readFileSync(folder.recipeFile, 'utf8')) as ResolvedRecipe;
-  const hub = createRunHub({ recipe, source: 'replay', runId: folder.id, speed });
-  const run = createJournalRun(journal.records, createController(recipe, { estimator: journalEstimator(journal.header), confirmCloses: journalConfirmsCloses(journal.header) }), { onInput: hub.feed.input, onEvent: hub.feed.event });
+  const estimator = journalEstimator(journal.header);
+  const hub = createRunHub({ recipe, source: 'replay', runId: folder.id, speed, estimator });
+  const run = createJournalRun(journal.records, createController(recipe, { estimator, confirmCloses: journalConfirmsCloses(journal.header) }), { onInput: hub.feed.input, onEvent: hub.feed.event });
   hub.attach(run);
   const done = runPaced(run, speed, signal ? { signal } : {});
   return { hub, run, done };

@@ -26,6 +26,7 @@ import { BoundedHistory } from './bounded-history.ts';
 import { Decimator, type DecimatedPoint } from './decimator.ts';
 import { resolvedStack } from '../pipeline/resolved-stack.ts';
 import { outcomeSpectrum } from './outcome.ts';
+import { cutRuleFor, type Estimator } from '../pipeline/cut-words.ts';
 import {
   VIEW_FORMAT_VERSION,
   type AlertView,
@@ -71,6 +72,8 @@ export interface RunHubOptions {
   maxLog?: number;
   /** Take operator commands (default: yes, except for a replay). */
   acceptCommands?: boolean;
+  /** How the run's controller decides optical layers (default `plain`, the controller's default). */
+  estimator?: Estimator;
 }
 
 export type CommandOutcome =
@@ -107,6 +110,8 @@ interface LayerRecord {
   cut: CutMode;
   reason: CutReason | null;
   estimatedNm: number | null;
+  /** The figure the layer-finished event gave (what the log shows), before any refit. */
+  firstNm: number | null;
   skipped: boolean;
 }
 
@@ -119,6 +124,7 @@ export function createRunHub(options: RunHubOptions): RunHub {
   const maxRate = options.maxRatePoints ?? 4000;
   const maxLog = options.maxLog ?? 500;
   const acceptCommands = options.acceptCommands ?? options.source !== 'replay';
+  const estimator = options.estimator ?? 'plain';
   const f0 = recipe.crystal.bareFrequencyHz;
 
   let run: RunControl | undefined;
@@ -219,7 +225,7 @@ export function createRunHub(options: RunHubOptions): RunHub {
     if (event.type === 'layer-finished' || event.type === 'run-finished') flushDecimators();
     switch (event.type) {
       case 'layer-started':
-        records.set(event.layer, { cut: event.cut, reason: null, estimatedNm: null, skipped: false });
+        records.set(event.layer, { cut: event.cut, reason: null, estimatedNm: null, firstNm: null, skipped: false });
         traceLayer = event.layer;
         tracePoints.clear();
         break;
@@ -243,6 +249,7 @@ export function createRunHub(options: RunHubOptions): RunHub {
         const r = records.get(event.layer);
         if (r) {
           r.estimatedNm = event.estimatedNm;
+          r.firstNm = event.estimatedNm;
           r.skipped = event.skipped;
         }
         break;
@@ -309,6 +316,7 @@ export function createRunHub(options: RunHubOptions): RunHub {
         layer: null,
         material: null,
         cut: null,
+        cutBy: null,
         targetNm: null,
         thicknessNm: null,
         plusMinusNm: null,
@@ -336,6 +344,7 @@ export function createRunHub(options: RunHubOptions): RunHub {
       layer: layer.number,
       material: layer.materialName,
       cut: s.mode,
+      cutBy: ended ? null : currentRule(s),
       targetNm: layer.targetNm,
       thicknessNm: finite(ended ? (s.achievedNm[s.index] ?? thickness) : thickness),
       plusMinusNm: finite(fitted && !ended ? fitted.sigmaNm : (plan?.precisionNm ?? Number.NaN)),
@@ -346,7 +355,14 @@ export function createRunHub(options: RunHubOptions): RunHub {
     };
   }
 
+  /** The rule cutting the layer in progress, as the controller decides it: the fit while it runs on an optical layer. */
+  function currentRule(s: ControllerState): CutReason {
+    const material = recipe.layers[s.index]?.materialName ?? '';
+    return cutRuleFor(s.mode, s.fit ? 'fit' : 'plain', estimator === 'fit' && s.materialRate[material] !== undefined);
+  }
+
   function buildRows(s: ControllerState | undefined): StackRow[] {
+    const known = s ? resolvedStack(recipe, s) : null;
     return recipe.layers.map((layer, i): StackRow => {
       const record = records.get(layer.number);
       const planned = s ? s.plan.layers[i - (s.plan.fromLayer - 1)] : undefined;
@@ -355,19 +371,28 @@ export function createRunHub(options: RunHubOptions): RunHub {
         if (i < s.index || (i === s.index && s.phase === 'finished')) status = 'past';
         else if (i === s.index) status = 'current';
       }
-      const estimate = s?.achievedNm[i] ?? record?.estimatedNm ?? null;
+      // The finished layers as the run knows them now (chip refits revise them), else the cut's figure.
+      const estimate = known?.partNm[i] ?? record?.estimatedNm ?? null;
       const estimatedNm = estimate === null ? null : finite(estimate);
+      const firstNm = record?.firstNm ?? null;
+      const cut = record?.cut ?? planned?.cut ?? (layer.cutSetting === 'auto' ? 'level' : layer.cutSetting);
+      const live = started(s) && i === s.index && status === 'current' && isGrowing(s);
       return {
         number: layer.number,
         material: layer.materialName,
         targetNm: layer.targetNm,
-        cut: record?.cut ?? planned?.cut ?? (layer.cutSetting === 'auto' ? 'level' : layer.cutSetting),
+        cut,
+        cutRule: record?.reason ?? (live ? currentRule(s) : cutRuleFor(cut, estimator, estimator === 'fit' && s?.materialRate[layer.materialName] !== undefined)),
         status,
         chip: recipe.chips[layer.chip]?.label ?? '',
         wavelengthNm: layer.wavelengthNm,
         cutReason: record?.reason ?? null,
         skipped: record?.skipped ?? false,
         estimatedNm,
+        firstEstimatedNm: firstNm === null ? null : finite(firstNm),
+        // Shown to 0.01 nm: a change the table would show is a revision.
+        revised: estimatedNm !== null && firstNm !== null && Number.isFinite(firstNm) && Math.abs(estimatedNm - firstNm) >= 0.005,
+        indexFactor: finite(known?.indexFactors[i] ?? Number.NaN),
         errorNm: estimatedNm === null ? null : round(estimatedNm - layer.targetNm, 4),
         errorPercent: estimatedNm === null ? null : round((100 * (estimatedNm - layer.targetNm)) / layer.targetNm, 4),
       };
@@ -437,6 +462,7 @@ export function createRunHub(options: RunHubOptions): RunHub {
       source: options.source,
       runId: options.runId ?? null,
       speed: options.speed ?? null,
+      estimator,
       recipe: recipe.name,
       commandsAccepted: acceptCommands && run !== undefined,
       status: buildStatus(),

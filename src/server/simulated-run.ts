@@ -58,6 +58,7 @@ export function startSimulatedRun(options: SimulatedRunOptions): SimulatedRun {
     recipe,
     source: 'simulated',
     runId,
+    estimator,
     speed: Number.isFinite(options.speed) ? options.speed : null,
   });
   let journal: JournalWriter | undefined;

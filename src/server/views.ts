@@ -7,6 +7,7 @@ import type { Severity } from '../pipeline/codes.ts';
 import type { Phase } from '../pipeline/controller.ts';
 import type { CutReason, RunEvent } from '../pipeline/events.ts';
 import type { CutMode } from '../model/plan/recipe.ts';
+import type { Estimator } from '../pipeline/cut-words.ts';
 
 /** Bump when a field of a view changes meaning. */
 export const VIEW_FORMAT_VERSION = 1;
@@ -35,8 +36,13 @@ export interface RunStatus {
   readonly layer: number | null;
   readonly layers: number;
   readonly material: string | null;
-  /** How the current layer is being cut (after any fallback). */
+  /** How the current layer is being cut (after any fallback): its mode as planned. */
   readonly cut: CutMode | null;
+  /**
+   * The rule that cuts the current layer now: the model fit while it runs on an optical layer,
+   * else the plain rule of its mode (null when no layer is open).
+   */
+  readonly cutBy: CutReason | null;
   /** Design thickness of the current layer on the parts, nm. */
   readonly targetNm: number | null;
   /**
@@ -67,13 +73,21 @@ export interface StackRow {
   readonly material: string;
   readonly targetNm: number;
   readonly cut: CutMode;
+  /** The rule that cut the layer, or that is cutting it or will as planned. */
+  readonly cutRule: CutReason;
   readonly status: LayerStatus;
   readonly chip: string;
   readonly wavelengthNm: number;
   readonly cutReason: CutReason | null;
   readonly skipped: boolean;
-  /** Estimated achieved thickness on the parts, nm (once cut). */
+  /** Estimated achieved (physical) thickness on the parts, nm (once cut): the current figure, revised by chip refits. */
   readonly estimatedNm: number | null;
+  /** The figure the layer had when it finished (the log's), nm. */
+  readonly firstEstimatedNm: number | null;
+  /** The current figure differs from the first by what the table shows (0.01 nm). */
+  readonly revised: boolean;
+  /** The layer's index over the design's as the fits know it (null before it finished). */
+  readonly indexFactor: number | null;
   readonly errorNm: number | null;
   readonly errorPercent: number | null;
 }
@@ -149,6 +163,8 @@ export interface RunSnapshot {
   readonly runId: string | null;
   /** Multiple of real time (null for a live run). */
   readonly speed: number | null;
+  /** How the run's controller decides optical layers. */
+  readonly estimator: Estimator;
   readonly recipe: string;
   /** Commands are taken (false for a replay, or before a run is attached). */
   readonly commandsAccepted: boolean;

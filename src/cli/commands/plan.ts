@@ -5,7 +5,8 @@
 import { parseCommandArgs } from '../parse-command-args.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
-import { planRun, type LayerPlan, type RunPlan } from '../../model/plan/plan.ts';
+import { planRun, type RunPlan } from '../../model/plan/plan.ts';
+import { CUT_MODE_SHORT } from '../../pipeline/cut-words.ts';
 import { renderLineChart, type ChartMarker, type ChartPoint } from '../../report/index.ts';
 import { CliError, numberOption, outputFileOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
@@ -68,19 +69,12 @@ export function runPlan(argv: string[], io: CommandIo): number {
   return 0;
 }
 
-const CUT_NAMES: Record<LayerPlan['cut'], string> = {
-  'turning-point': 'turn',
-  level: 'level',
-  crystal: 'crystal',
-  time: 'time',
-};
-
 function formatPlan(plan: RunPlan): string {
   const pct = (x: number): string => (x * 100).toFixed(2);
   const rows = [
     `${plan.recipe}: layers ${plan.fromLayer}–${plan.fromLayer + plan.layers.length - 1}, ${formatDuration(plan.durationS)} planned; noise ${(plan.noise * 100).toFixed(3)} % at ${plan.sampleRateHz} Hz`,
     '',
-    ' #  material  target nm  cut      λ nm   chip     start %   cut %  trigger %  TPs  swing %  slope %/nm  ±nm fit  ±nm stack  ±nm rule  best λ (±%)    crystal Hz   time',
+    ' #  material  target nm  cut          λ nm   chip     start %   cut %  trigger %  TPs  swing %  slope %/nm  ±nm fit  ±nm stack  ±nm rule  best λ (±%)    crystal Hz   time',
   ];
   for (const l of plan.layers) {
     const suggestion = l.suggestion ? `${l.suggestion.wavelengthNm} (${l.suggestion.precisionPercent.toFixed(2)})` : '—';
@@ -89,7 +83,7 @@ function formatPlan(plan: RunPlan): string {
         String(l.number).padStart(2),
         l.material.padEnd(9),
         l.targetNm.toFixed(2).padStart(9),
-        CUT_NAMES[l.cut].padEnd(7),
+        CUT_MODE_SHORT[l.cut].padEnd(11),
         String(l.wavelengthNm).padStart(6),
         l.chip.padEnd(7),
         pct(l.startSignal).padStart(8),

@@ -9,6 +9,7 @@ import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { createController } from '../../pipeline/controller.ts';
+import { CUT_REASON_WORDS, wordFor } from '../../pipeline/cut-words.ts';
 import { replayJournal, replayJournalPaced, type CutComparison } from '../../pipeline/replay.ts';
 import { startJournalReplay } from '../../server/journal-run.ts';
 import { journalConfirmsCloses, journalEstimator } from '../../journal/journal-format.ts';
@@ -84,7 +85,7 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
   });
   const result = Number.isFinite(speed)
     ? await replayJournalPaced(journal.records, controller, speed, (e) => {
-        if (e.type === 'cut' && !values.json) io.out(`${e.timeS.toFixed(1).padStart(8)} s  layer ${e.layer} cut (${e.reason}), about ${e.estimatedNm.toFixed(2)} nm`);
+        if (e.type === 'cut' && !values.json) io.out(`${e.timeS.toFixed(1).padStart(8)} s  layer ${e.layer} cut on ${wordFor(CUT_REASON_WORDS, e.reason)}, about ${e.estimatedNm.toFixed(2)} nm`);
       })
     : replayJournal(journal.records, controller);
   warnOfDamage(recorded, io);
@@ -104,12 +105,12 @@ function formatComparison(runId: string, recipe: string, inputs: number, truncat
   const rows = [
     `replay of ${runId} with "${recipe}": ${inputs} inputs${truncated ? ' (the journal ends mid-line: read to its last complete line)' : ''}${resumed}`,
     '',
-    ' #   recorded cut s   replayed cut s    Δt s   recorded nm  replayed nm   reason',
+    ' #   recorded cut s   replayed cut s    Δt s   recorded nm  replayed nm   cut on',
   ];
   const f = (x: number | undefined, d: number, w: number): string => (x === undefined || Number.isNaN(x) ? '—' : x.toFixed(d)).padStart(w);
   for (const c of cuts) {
     rows.push(
-      `${String(c.layer).padStart(2)} ${f(c.recorded?.timeS, 2, 16)} ${f(c.replayed?.timeS, 2, 16)} ${f(c.deltaTimeS, 2, 8)} ${f(c.recorded?.estimatedNm, 2, 13)} ${f(c.replayed?.estimatedNm, 2, 12)}   ${c.replayed?.reason ?? c.recorded?.reason ?? ''}${c.differs ? '   DIFFERS' : ''}`,
+      `${String(c.layer).padStart(2)} ${f(c.recorded?.timeS, 2, 16)} ${f(c.replayed?.timeS, 2, 16)} ${f(c.deltaTimeS, 2, 8)} ${f(c.recorded?.estimatedNm, 2, 13)} ${f(c.replayed?.estimatedNm, 2, 12)}   ${wordFor(CUT_REASON_WORDS, c.replayed?.reason ?? c.recorded?.reason ?? '')}${c.differs ? '   DIFFERS' : ''}`,
     );
   }
   const n = cuts.filter((c) => c.differs).length;

@@ -14,6 +14,7 @@ import { createJournalWriter, describeLoss, JournalWriteError, type JournalWrite
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { ALERTS } from '../../pipeline/codes.ts';
 import { createController, type ControllerState } from '../../pipeline/controller.ts';
+import { CUT_REASON_WORDS, ESTIMATOR_WORDS, plannedCutWords, wordFor, type Estimator } from '../../pipeline/cut-words.ts';
 import type { RunEvent } from '../../pipeline/events.ts';
 import { createLiveRun } from '../../pipeline/live-run.ts';
 import { replayJournal } from '../../pipeline/replay.ts';
@@ -93,7 +94,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
     // The run goes on as it began: the recorded estimator (a different --estimator is refused).
     const recordedEstimator = journalEstimator(journal.header);
     if (values.estimator !== undefined && estimator !== recordedEstimator) {
-      throw new CliError(`the run in ${runDir} cuts with the ${recordedEstimator === 'fit' ? 'model fit' : 'plain rules'}; it resumes the same way (leave out --estimator)`);
+      throw new CliError(`the run in ${runDir} cuts with the ${ESTIMATOR_WORDS[recordedEstimator]}; it resumes the same way (leave out --estimator)`);
     }
     estimator = recordedEstimator;
     // And on its recorded clock (journals from before it was recorded: the arrival clock, then the only one).
@@ -205,7 +206,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
       for (const event of decision.events) {
         journal.event(event);
         hub?.feed.event(event);
-        if (event.type !== 'shutter' || event.command.action === 'close') io.out(describe(event));
+        if (event.type !== 'shutter' || event.command.action === 'close') io.out(describe(event, estimator));
       }
     },
   });
@@ -257,13 +258,13 @@ function firstReadings(sources: [string, ReadingSource][], timeoutMs: number): P
   ).then(() => undefined);
 }
 
-function describe(e: RunEvent): string {
+function describe(e: RunEvent, estimator: Estimator): string {
   const t = `${e.timeS.toFixed(1).padStart(8)} s`;
   switch (e.type) {
     case 'layer-started':
-      return `${t}  layer ${e.layer} ${e.material}: ${e.targetNm.toFixed(2)} nm, cut on ${e.cut}`;
+      return `${t}  layer ${e.layer} ${e.material}: ${e.targetNm.toFixed(2)} nm, cut on ${plannedCutWords(e.cut, estimator)}`;
     case 'cut':
-      return `${t}  layer ${e.layer} cut (${e.reason}), about ${e.estimatedNm.toFixed(2)} nm`;
+      return `${t}  layer ${e.layer} cut on ${wordFor(CUT_REASON_WORDS, e.reason)}, about ${e.estimatedNm.toFixed(2)} nm`;
     case 'layer-finished':
       return `${t}  layer ${e.layer} finished: ${e.estimatedNm.toFixed(2)} nm${e.skipped ? ' (skipped)' : ''}`;
     case 'alert':

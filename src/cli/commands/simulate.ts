@@ -14,6 +14,7 @@ import { createJournalWriter, type JournalWriter } from '../../journal/journal-w
 import { spectrumDeviation, type SpectrumDeviation } from '../../model/design/spectrum-deviation.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { createController } from '../../pipeline/controller.ts';
+import { CUT_REASON_WORDS, wordFor } from '../../pipeline/cut-words.ts';
 import type { CutReason, RunEvent } from '../../pipeline/events.ts';
 import { createSteppedRun, runPaced } from '../../pipeline/run-stepped.ts';
 import { CliError, estimatorOption, numberOption, outputFileOption, outputFolderOption } from '../cli-error.ts';
@@ -260,7 +261,7 @@ function formatReport(r: SimulationReport): string {
   ];
   for (const l of r.layers) {
     rows.push(
-      `${String(l.number).padStart(2)}  ${l.material.padEnd(8)} ${l.targetNm.toFixed(2).padStart(9)} ${l.trueNm.toFixed(2).padStart(10)} ${l.errorNm.toFixed(2).padStart(10)} ${l.errorPercent.toFixed(2).padStart(8)}  ${l.cutReason}`,
+      `${String(l.number).padStart(2)}  ${l.material.padEnd(8)} ${l.targetNm.toFixed(2).padStart(9)} ${l.trueNm.toFixed(2).padStart(10)} ${l.errorNm.toFixed(2).padStart(10)} ${l.errorPercent.toFixed(2).padStart(8)}  ${wordFor(CUT_REASON_WORDS, l.cutReason)}`,
     );
   }
   const errors = r.layers.map((l) => l.errorPercent);

@@ -8,6 +8,7 @@ import { parseCommandArgs } from '../parse-command-args.ts';
 import { loadSimProfile } from '../../../sim/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
+import { CUT_MODE_SHORT, CUT_MODE_WORDS, wordFor } from '../../pipeline/cut-words.ts';
 import { renderLineChart } from '../../report/index.ts';
 import { STRATEGIES } from '../../study/study-run.ts';
 import { runStudy, type StudyReport } from '../../study/study.ts';
@@ -97,7 +98,7 @@ export async function runStudyCommand(argv: string[], io: CommandIo): Promise<nu
 
 function formatStudy(r: StudyReport): string {
   const rows = [`${r.recipe}: ${r.runs} runs per strategy (the same seeds for each)`, ''];
-  const header = [' #  material cut    plan ±% stack ±%', ...r.strategies.map((s) => `${s.strategy.padStart(10)} rms% worst% n·d rms% n·d worst%`)].join(' ');
+  const header = [' #  material cut         plan ±% stack ±%', ...r.strategies.map((s) => `${s.strategy.padStart(10)} rms% worst% n·d rms% n·d worst%`)].join(' ');
   rows.push(header);
   const first = r.strategies[0];
   if (first) {
@@ -106,13 +107,13 @@ function formatStudy(r: StudyReport): string {
         const l = s.layers[i];
         return `${(l?.rmsPercent ?? Number.NaN).toFixed(3).padStart(15)} ${(l?.worstPercent ?? Number.NaN).toFixed(2).padStart(6)} ${(l?.opticalRmsPercent ?? Number.NaN).toFixed(3).padStart(8)} ${(l?.opticalWorstPercent ?? Number.NaN).toFixed(2).padStart(10)}`;
       });
-      rows.push(`${String(layer.number).padStart(2)}  ${layer.material.padEnd(8)} ${layer.cut.slice(0, 6).padEnd(6)} ${layer.plannedPercent.toFixed(3).padStart(7)} ${layer.plannedStackPercent.toFixed(3).padStart(8)} ${cells.join(' ')}`);
+      rows.push(`${String(layer.number).padStart(2)}  ${layer.material.padEnd(8)} ${wordFor(CUT_MODE_SHORT, layer.cut).padEnd(11)} ${layer.plannedPercent.toFixed(3).padStart(7)} ${layer.plannedStackPercent.toFixed(3).padStart(8)} ${cells.join(' ')}`);
     });
   }
   rows.push('');
   for (const s of r.strategies) {
     rows.push(
-      `${s.strategy}: ${Object.entries(s.byCut).map(([cut, c]) => `${cut} (${c.layers}) rms ${c.rmsPercent.toFixed(3)} %, n·d ${c.opticalRmsPercent.toFixed(3)} %`).join('; ')}\n  all: rms ${s.rmsPercent.toFixed(3)} %, worst ${s.worstPercent.toFixed(2)} %, optical thickness rms ${s.opticalRmsPercent.toFixed(3)} %; spectrum max |ΔT| mean ${(100 * s.spectrum.meanMaxAbsT).toFixed(2)} pp, worst ${(100 * s.spectrum.worstMaxAbsT).toFixed(2)} pp, mean |ΔT| ${(100 * s.spectrum.meanMeanAbsT).toFixed(3)} pp${s.incomplete ? `; ${s.incomplete} runs incomplete` : ''}`,
+      `${s.strategy}: ${Object.entries(s.byCut).map(([cut, c]) => `${wordFor(CUT_MODE_WORDS, cut)} (${c.layers}) rms ${c.rmsPercent.toFixed(3)} %, n·d ${c.opticalRmsPercent.toFixed(3)} %`).join('; ')}\n  all: rms ${s.rmsPercent.toFixed(3)} %, worst ${s.worstPercent.toFixed(2)} %, optical thickness rms ${s.opticalRmsPercent.toFixed(3)} %; spectrum max |ΔT| mean ${(100 * s.spectrum.meanMaxAbsT).toFixed(2)} pp, worst ${(100 * s.spectrum.worstMaxAbsT).toFixed(2)} pp, mean |ΔT| ${(100 * s.spectrum.meanMeanAbsT).toFixed(3)} pp${s.incomplete ? `; ${s.incomplete} runs incomplete` : ''}`,
     );
   }
   return rows.join('\n');
