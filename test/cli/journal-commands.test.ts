@@ -61,6 +61,11 @@ describe('a journal with damaged lines', () => {
     const file = join(runDir, 'journal.ndjson');
     const clean = await run('replay', runDir, '--json');
     expect(clean.code, clean.err).toBe(0);
+    // The table names what cut each layer in the words the dashboard uses, never a journal's code.
+    const table = await run('replay', runDir);
+    expect(table.out).toMatch(/ crystal thickness\n/);
+    expect(table.out).toMatch(/ model fit\n/);
+    expect(table.out).not.toMatch(/model-fit|crystal-thickness|trigger-level/);
     const lines = readFileSync(file, 'utf8').split('\n');
     // A torn line in the middle, as a resumed run used to leave, and a line of junk.
     lines.splice(40, 0, '{"k":"r","c":"o","t":3.1,"v":0.{"k":"r","c":"x","t":3.2,"v":5999000,"a":3.2}');

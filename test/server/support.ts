@@ -34,10 +34,11 @@ export interface ManualRun {
 
 /** A hub over a stepped run on the virtual chamber; nothing happens until the test calls `run.runUntil`. */
 export function manualRun(recipe: ResolvedRecipe, options: { profile?: SimProfile; seed?: number; hub?: Partial<RunHubOptions>; estimator?: 'plain' | 'fit' } = {}): ManualRun {
-  const hub = createRunHub({ recipe, source: 'simulated', runId: 'test-run', speed: null, ...options.hub });
+  const estimator = options.estimator ?? 'plain';
+  const hub = createRunHub({ recipe, source: 'simulated', runId: 'test-run', speed: null, estimator, ...options.hub });
   const inputs: PipelineInput[] = [];
   const events: RunEvent[] = [];
-  const run = createSteppedRun(createController(recipe, { estimator: options.estimator ?? 'plain' }), createVirtualChamber(recipe, options.profile ?? typical, options.seed ?? 1), {
+  const run = createSteppedRun(createController(recipe, { estimator }), createVirtualChamber(recipe, options.profile ?? typical, options.seed ?? 1), {
     onInput: (input) => {
       inputs.push(input);
       hub.feed.input(input);
