@@ -1,7 +1,8 @@
 /**
  * The summary a run leaves in `runs/<id>/summary.json`: per layer the target, the cut reason,
  * the estimated achieved thickness and its error against the target (and, for a simulated run,
- * the true thickness the chamber deposited).
+ * the true thickness the chamber deposited); for the run, how many layers were deposited and the
+ * rms error over the layers a rule cut (History shows these).
  */
 import type { AlertView, RunSnapshot } from './views.ts';
 
@@ -12,6 +13,8 @@ export interface RunSummaryLayer {
   cut: string;
   cutReason: string | null;
   skipped: boolean;
+  /** Its shutter opened: deposited wholly or in part (a layer an abort ended has no estimate). */
+  deposited: boolean;
   estimatedNm: number | null;
   errorNm: number | null;
   errorPercent: number | null;
@@ -20,7 +23,45 @@ export interface RunSummaryLayer {
   trueErrorPercent?: number;
 }
 
-export interface RunSummary {
+/** What History shows of a run: what was deposited, and how well the rules cut. */
+export interface RunFigures {
+  /** Layers the recipe has. */
+  layersPlanned: number;
+  /** Layers deposited, wholly or in part (cut, skipped, or cut short by an abort). */
+  layersDeposited: number;
+  /** Layers a rule cut (not the operator, not skipped, not an abort): the rms is over these. */
+  layersCutByRule: number;
+  /** Root-mean-square of those layers' estimated errors, % (null when none). */
+  rmsErrorPercent: number | null;
+  /** Simulated runs: the same over their true errors, % (null otherwise). */
+  rmsTrueErrorPercent: number | null;
+}
+
+/** Cuts that are no rule's: the operator's, and an abort's. */
+const NOT_A_RULE = new Set(['operator', 'abort']);
+
+/**
+ * The run's figures from its layers (a summary's, this version's or an older one's): a layer
+ * whose shutter opened was deposited (in an older summary, one with an estimate); one a rule cut
+ * counts in the rms.
+ */
+export function runFigures(layers: readonly Partial<Record<keyof RunSummaryLayer, unknown>>[]): RunFigures {
+  const deposited = layers.filter((l) => (typeof l.deposited === 'boolean' ? l.deposited : typeof l.estimatedNm === 'number'));
+  const byRule = deposited.filter((l) => typeof l.estimatedNm === 'number').filter((l) => l.skipped !== true && typeof l.cutReason === 'string' && !NOT_A_RULE.has(l.cutReason));
+  const rms = (key: 'errorPercent' | 'trueErrorPercent'): number | null => {
+    const values = byRule.map((l) => l[key]).filter((e): e is number => typeof e === 'number' && Number.isFinite(e));
+    return values.length > 0 ? Math.sqrt(values.reduce((sum, e) => sum + e * e, 0) / values.length) : null;
+  };
+  return {
+    layersPlanned: layers.length,
+    layersDeposited: deposited.length,
+    layersCutByRule: byRule.length,
+    rmsErrorPercent: rms('errorPercent'),
+    rmsTrueErrorPercent: rms('trueErrorPercent'),
+  };
+}
+
+export interface RunSummary extends RunFigures {
   runId: string;
   recipe: string;
   source: string;
@@ -40,13 +81,7 @@ export function buildRunSummary(
   const phase = snapshot.status.phase;
   const outcome = phase === 'finished' ? 'complete' : phase === 'aborted' ? 'aborted' : 'incomplete';
   const alerts = alertHistory.map((a) => ({ id: a.id, severity: a.severity, code: a.code, layer: a.layer, message: a.message }));
-  return {
-    runId: extra.runId,
-    recipe: snapshot.recipe,
-    source: extra.source,
-    outcome,
-    durationS: snapshot.status.nowS,
-    layers: snapshot.layers.map((row, i) => {
+  const layers = snapshot.layers.map((row, i) => {
       const layer: RunSummaryLayer = {
         number: row.number,
         material: row.material,
@@ -54,6 +89,7 @@ export function buildRunSummary(
         cut: row.cut,
         cutReason: row.cutReason,
         skipped: row.skipped,
+        deposited: row.status !== 'future',
         estimatedNm: row.estimatedNm,
         errorNm: row.errorNm,
         errorPercent: row.errorPercent,
@@ -64,7 +100,15 @@ export function buildRunSummary(
         layer.trueErrorPercent = (100 * (trueNm - row.targetNm)) / row.targetNm;
       }
       return layer;
-    }),
+    });
+  return {
+    runId: extra.runId,
+    recipe: snapshot.recipe,
+    source: extra.source,
+    outcome,
+    durationS: snapshot.status.nowS,
+    ...runFigures(layers),
+    layers,
     alerts,
     ...(extra.seed !== undefined ? { seed: extra.seed } : {}),
     ...(extra.profile !== undefined ? { profile: extra.profile } : {}),

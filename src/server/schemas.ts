@@ -134,6 +134,8 @@ const listingSchema = {
     source: nullableString,
     outcome: { type: 'string' },
     layers: { type: ['integer', 'null'] },
+    layersPlanned: { type: ['integer', 'null'] },
+    layersCutByRule: { type: ['integer', 'null'] },
     durationS: nullableNumber,
     rmsErrorPercent: nullableNumber,
     rmsTrueErrorPercent: nullableNumber,
