@@ -1,7 +1,8 @@
 /* global document, window, location, WebSocket, fetch, sessionStorage, Notification, AudioContext, requestAnimationFrame, setTimeout, clearTimeout, URLSearchParams, Event */
 // The dashboard: one WebSocket feed (the run, or a replay) into the same views; commands over
 // HTTP with the bearer token the operator entered (kept in this tab's sessionStorage only).
-import { createCrystalChart, createOutcomeChart, createTraceChart } from './charts.js';
+import { blobUrl, chartPng, chartSvg, csv, download } from './chart-export.js';
+import { createCrystalChart, createOutcomeChart, createTraceChart, setLargeType } from './charts.js';
 import * as fmt from './format.js';
 
 const $ = (id) => document.getElementById(id);
@@ -74,6 +75,8 @@ const model = {
   token: sessionStorage.getItem(TOKEN_KEY),
   tokenState: 'none', // none | checking | ok | refused
   quantity: null,
+  /** Stack rows whose detail is open. */
+  openRows: new Set(),
   sound: false,
   notify: false,
 };
@@ -130,7 +133,9 @@ function renderStatus() {
   if (!s) return;
   setText('st-layer', s.layer === null ? `– of ${s.layers}` : `${s.layer} of ${s.layers}`);
   setText('st-material', s.material ?? '–');
-  setText('st-cut', s.cut ? fmt.MODE_WORDS[s.cut] : '–');
+  // The rule that cuts this layer now (the model fit while it runs), its planned mode in the title.
+  setText('st-cut', s.cutBy ? fmt.reasonWords(s.cutBy) : '–');
+  $('st-cut').title = s.cut ? `planned: ${fmt.modeWords(s.cut)}; optical layers decided by the ${fmt.estimatorWords(model.snapshot?.estimator ?? 'plain')}` : '';
   let ttc = '–';
   if (s.phase === 'depositing' && s.timeToCutS !== null) ttc = fmt.clock(s.timeToCutS);
   else if (s.phase === 'closing') ttc = 'now';
@@ -168,13 +173,17 @@ function renderTrace() {
     return;
   }
   const signal = t.signal === 'reflection' ? 'reflectance' : 'transmittance';
-  setText('trace-sub', `layer ${t.layer} · ${t.material} · ${signal} at ${t.wavelengthNm} nm · ${t.chip} · cut on ${fmt.MODE_WORDS[t.cut] ?? t.cut}`);
+  const cutBy = model.status?.layer === t.layer && model.status.cutBy ? fmt.reasonWords(model.status.cutBy) : fmt.plannedCutWords(t.cut, model.snapshot?.estimator);
+  setText('trace-sub', `layer ${t.layer} · ${t.material} · ${signal} at ${t.wavelengthNm} nm · ${t.chip} · cut on ${cutBy}`);
   const last = model.tracePoints.last;
   setText('ro-signal', last ? fmt.percent(last[1]) : '–');
   const cutIndex = Math.round(t.chipTargetNm / t.stepNm);
   setText('ro-cutsignal', t.predicted.length > cutIndex ? fmt.percent(t.predicted[cutIndex]) : '–');
   setText('ro-trigger', t.triggerSignal === null ? 'not used' : fmt.percent(t.triggerSignal));
-  charts.trace.set(t.predicted.length > 0 ? t : null, model.tracePoints.values());
+  // The cuts sent in this layer, marked where the command went out.
+  const cuts = [];
+  for (const e of model.log.values()) if (e.type === 'cut' && e.layer === t.layer) cuts.push({ timeS: e.timeS, label: `cut · ${fmt.reasonWords(e.reason)}` });
+  charts.trace.set(t.predicted.length > 0 ? t : null, model.tracePoints.values(), cuts);
 }
 
 function renderOutcome() {
@@ -189,7 +198,8 @@ function renderOutcome() {
   const max = q === 'T' ? o.maxAbsT : o.maxAbsR;
   const n = o.layersEstimated;
   setText('outcome-sub', `${o.fromNm}–${o.toNm} nm`);
-  setText('outcome-deposited', n === 0 ? 'as deposited (none yet)' : `as deposited (1–${n} estimated)`);
+  setText('outcome-deposited', n === 0 ? 'as deposited (none yet)' : `as deposited (1–${n} as fitted)`);
+  setText('outcome-note', n === 0 ? 'No layer finished yet: the design.' : `Layers 1–${n} with the optical thickness and index the fits estimated${n < model.rows.length ? ', the rest as designed' : ''}.`);
   setText('outcome-figure', `largest |Δ${q}| ${(max * 100).toFixed(2)} pp`);
   charts.outcome.set(o, q);
 }
@@ -236,20 +246,36 @@ function escapeHtml(s) {
 /** The cut column: the mode for layers to come, what actually cut it once cut. */
 function cutCell(r) {
   if (r.skipped) return 'skipped';
-  if (r.cutReason) return fmt.REASON_SHORT[r.cutReason] ?? r.cutReason;
-  return fmt.MODE_SHORT[r.cut] ?? r.cut;
+  if (r.cutReason) return `✓ ${fmt.reasonWords(r.cutReason, true)}`;
+  return fmt.reasonWords(r.cutRule ?? r.cut, true);
 }
 
 function rowHtml(r) {
   const big = r.errorPercent !== null && Math.abs(r.errorPercent) > FLAG_ERROR_PERCENT;
   const label = r.status === 'current' ? 'now depositing' : r.status === 'past' ? 'done' : 'to come';
-  return (
-    `<tr data-status="${r.status}" data-layer="${r.number}" data-skipped="${r.skipped}" title="layer ${r.number}: ${label}">` +
-    `<td class="n">${r.number}</td><td>${escapeHtml(r.material)}</td><td class="num">${r.targetNm.toFixed(2)}</td>` +
+  const open = model.openRows.has(r.number);
+  // A finished layer's figure moves when the chip refit revises it: the current one is shown, marked.
+  const revised = r.revised ? `<span class="revised" title="revised by the chip refit: first ${fmt.nm(r.firstEstimatedNm)}">↻</span>` : '';
+  const row =
+    `<tr data-status="${r.status}" data-layer="${r.number}" data-skipped="${r.skipped}" data-revised="${r.revised === true}" aria-expanded="${open}" tabindex="0" title="layer ${r.number}: ${label}; click for details">` +
+    `<td class="n">${r.number}</td><td class="material">${escapeHtml(r.material)}</td><td class="num">${r.targetNm.toFixed(2)}</td>` +
     `<td class="cut-cell">${escapeHtml(cutCell(r))}</td>` +
-    `<td class="num">${r.estimatedNm === null ? '' : r.estimatedNm.toFixed(2)}</td>` +
-    `<td class="num${big ? ' big-error' : ''}" title="${r.errorNm === null ? '' : fmt.signed(r.errorNm, 2, ' nm')}">${r.errorPercent === null ? '' : fmt.signed(r.errorPercent, 2, '')}</td></tr>`
-  );
+    `<td class="num achieved">${r.estimatedNm === null ? '' : r.estimatedNm.toFixed(2)}${revised}</td>` +
+    `<td class="num${big ? ' big-error' : ''}" title="${r.errorNm === null ? '' : fmt.signed(r.errorNm, 2, ' nm')}">${r.errorPercent === null ? '' : fmt.signed(r.errorPercent, 2, '')}</td></tr>`;
+  return open ? row + `<tr class="detail" data-detail="${r.number}"><td colspan="6">${escapeHtml(rowDetail(r))}</td></tr>` : row;
+}
+
+/** A row's detail: how it is cut, its figures (the first one too when a refit revised it), its chip. */
+function rowDetail(r) {
+  const parts = [`${r.material}, target ${fmt.nm(r.targetNm)} at the design index`];
+  if (r.skipped) parts.push('skipped');
+  else if (r.cutReason) parts.push(`cut on ${fmt.reasonWords(r.cutReason)}`);
+  else parts.push(`${r.status === 'current' ? 'cutting' : 'to be cut'} on ${fmt.reasonWords(r.cutRule ?? r.cut)} (plan: ${fmt.modeWords(r.cut)})`);
+  if (r.estimatedNm !== null) parts.push(`now ${fmt.nm(r.estimatedNm)} (physical)`);
+  if (r.firstEstimatedNm !== null && r.firstEstimatedNm !== undefined) parts.push(`${r.revised ? 'first figure' : 'figure at its end'} ${fmt.nm(r.firstEstimatedNm)}${r.revised ? ', revised by the chip refit' : ''}`);
+  if (typeof r.indexFactor === 'number') parts.push(`index ${r.indexFactor.toFixed(3)} × the design's`);
+  parts.push(`${r.chip} at ${r.wavelengthNm} nm`);
+  return parts.join(' · ');
 }
 
 function renderLog() {
@@ -257,7 +283,7 @@ function renderLog() {
   const entries = [...model.log.entries()].sort((a, b) => b[0] - a[0]).slice(0, MAX_LOG);
   const parts = [];
   for (const [seq, e] of entries) {
-    const d = fmt.describeEvent(e);
+    const d = fmt.describeEvent(e, model.snapshot?.estimator);
     const alert = e.type === 'alert' ? model.alerts.get(e.id) : null;
     const open = alert?.open === true;
     const ack = open ? `<button type="button" class="ack" data-alert="${escapeHtml(e.id)}"${canCommand() ? '' : ' disabled title="needs the command token"'}>Acknowledge ${escapeHtml(e.id)}</button>` : '';
@@ -522,7 +548,7 @@ function onEvent(seq, e) {
       schedule('rows');
       if (live) {
         tone('cut');
-        notify(`Layer ${e.layer} cut`, `${fmt.REASON_WORDS[e.reason] ?? e.reason}, ≈ ${fmt.nm(e.estimatedNm)}`);
+        notify(`Layer ${e.layer} cut`, `${fmt.reasonWords(e.reason)}, ≈ ${fmt.nm(e.estimatedNm)}`);
       }
       break;
     }
@@ -660,7 +686,8 @@ async function loadHistory() {
         const replay = r.replayable ? `<button type="button" data-replay="${escapeHtml(r.id)}">Replay</button>` : '<span title="no recipe.json beside the journal">no replay</span>';
         return (
           `<tr><td>${escapeHtml(started)}</td><td>${escapeHtml(r.recipe ?? '–')}</td><td>${escapeHtml(r.source ?? '–')}</td><td>${escapeHtml(r.outcome)}</td>` +
-          `<td class="num">${r.layers ?? '–'}</td><td class="num">${fmt.clock(r.durationS)}</td><td class="num">${r.rmsErrorPercent === null ? '–' : `${r.rmsErrorPercent.toFixed(2)} %`}${r.rmsTrueErrorPercent === null ? '' : ` <span class="true-error">/ ${r.rmsTrueErrorPercent.toFixed(2)} %</span>`}</td>` +
+          `<td class="num">${r.layers === null ? '–' : `${r.layers} of ${r.layersPlanned}`}</td><td class="num">${fmt.clock(r.durationS)}</td>` +
+          `<td class="num" title="over the ${r.layersCutByRule ?? 0} layers a rule cut">${r.rmsErrorPercent === null ? '–' : `${r.rmsErrorPercent.toFixed(2)} %`}${r.rmsTrueErrorPercent === null ? '' : ` <span class="true-error">/ ${r.rmsTrueErrorPercent.toFixed(2)} %</span>`}${r.layersCutByRule === null ? '' : ` <span class="true-error">(${r.layersCutByRule})</span>`}</td>` +
           `<td><span class="actions"><button type="button" data-summary="${escapeHtml(r.id)}">Summary</button>${replay}` +
           `<a href="${escapeHtml(withViewer(`/api/runs/${encodeURIComponent(r.id)}/journal`))}" download>Journal (${fmt.bytes(r.journalBytes)})</a></span></td></tr>`
         );
@@ -685,7 +712,7 @@ async function showSummary(id) {
       const err = typeof l.errorPercent === 'number' ? fmt.signed(l.errorPercent, 2, '') : '';
       const truth = typeof l.trueNm === 'number' ? l.trueNm.toFixed(2) : '';
       const trueErr = typeof l.trueErrorPercent === 'number' ? fmt.signed(l.trueErrorPercent, 2, '') : '';
-      const reason = l.cutReason ? (fmt.REASON_WORDS[l.cutReason] ?? l.cutReason) : '–';
+      const reason = l.skipped ? 'skipped' : l.cutReason ? fmt.reasonWords(l.cutReason) : '–';
       return `<tr><td>${l.number}</td><td>${escapeHtml(l.material ?? '')}</td><td class="num">${Number(l.targetNm).toFixed(2)}</td><td>${escapeHtml(reason)}</td><td class="num">${est}</td><td class="num">${err}</td><td class="num">${truth}</td><td class="num">${trueErr}</td></tr>`;
     })
     .join('');
@@ -701,7 +728,68 @@ function showView(which) {
   else window.dispatchEvent(new Event('resize'));
 }
 
+// ---- downloads: the readings as CSV, the charts as PNG or SVG ------------------------------
+function fileStem(what) {
+  const run = (model.snapshot?.runId ?? 'run').replace(/[^A-Za-z0-9._-]/g, '_');
+  const layer = what === 'trace' && model.trace ? `-layer${model.trace.layer}` : '';
+  return `fringe-${run}-${what}${layer}`;
+}
+
+function readingsCsv(what) {
+  if (what === 'trace') {
+    const opened = model.trace?.openedAtS ?? 0;
+    return csv(
+      ['run time s', 'time in layer s', 'signal %', 'chip thickness nm'],
+      model.tracePoints.values().map((p) => [p[0].toFixed(3), (p[0] - opened).toFixed(3), (p[1] * 100).toFixed(4), p[2].toFixed(3)]),
+    );
+  }
+  if (what === 'crystal') {
+    return csv(['run time s', 'rate nm/s', 'band low nm/s', 'band high nm/s'], model.ratePoints.values().map((p) => [p[0].toFixed(3), p[1], p[2], p[3]]));
+  }
+  const o = model.outcome;
+  if (!o) return csv(['wavelength nm'], []);
+  return csv(
+    ['wavelength nm', 'design T %', 'as deposited T %', 'design R %', 'as deposited R %'],
+    o.wavelengthsNm.map((w, i) => [w, (o.design.T[i] * 100).toFixed(4), (o.deposited.T[i] * 100).toFixed(4), (o.design.R[i] * 100).toFixed(4), (o.deposited.R[i] * 100).toFixed(4)]),
+  );
+}
+
+function downloadChart(what, as) {
+  const stem = fileStem(what);
+  if (as === 'csv') {
+    const url = blobUrl(readingsCsv(what), 'text/csv;charset=utf-8');
+    download(`${stem}.csv`, url);
+    setTimeout(() => URL.revokeObjectURL(url), 10000);
+    return;
+  }
+  const chart = charts[what];
+  if (as === 'png') download(`${stem}.png`, chartPng(chart.chart.plot));
+  else {
+    const url = blobUrl(chartSvg(chart.chart.plot, chart.describe()), 'image/svg+xml');
+    download(`${stem}.svg`, url);
+    setTimeout(() => URL.revokeObjectURL(url), 10000);
+  }
+}
+
+// ---- the large-type view: status, thickness and trace, to read from afar ---------------------
+function setLarge(large) {
+  document.body.dataset.large = String(large);
+  $('large-toggle').setAttribute('aria-pressed', String(large));
+  $('large-toggle').textContent = large ? 'Normal type' : 'Large type';
+  setLargeType(large);
+  if (large) showView('live');
+  schedule('trace', 'rate', 'outcome');
+}
+
 // ---- wiring -------------------------------------------------------------------------------
+for (const b of document.querySelectorAll('[data-download]')) b.addEventListener('click', () => downloadChart(b.dataset.download, b.dataset.as));
+$('large-toggle').addEventListener('click', () => setLarge(document.body.dataset.large !== 'true'));
+document.addEventListener('keydown', (event) => {
+  // L toggles large type, except while typing or with a modifier (the browser's own keys).
+  if (event.key.toLowerCase() !== 'l' || event.ctrlKey || event.metaKey || event.altKey) return;
+  if (event.target.closest?.('input, select, textarea, dialog')) return;
+  setLarge(document.body.dataset.large !== 'true');
+});
 $('nav-live').addEventListener('click', () => showView('live'));
 $('nav-history').addEventListener('click', () => showView('history'));
 $('history-refresh').addEventListener('click', () => void loadHistory());
@@ -732,6 +820,18 @@ $('command-buttons').addEventListener('click', (event) => {
   const b = event.target.closest('button.cmd');
   if (b && !b.disabled) void sendCommand(b.dataset.action);
 });
+function toggleRow(event) {
+  const row = event.target.closest('tr[data-layer]');
+  if (!row || (event.type === 'keydown' && event.key !== 'Enter' && event.key !== ' ')) return;
+  event.preventDefault();
+  const n = Number(row.dataset.layer);
+  if (!model.openRows.delete(n)) model.openRows.add(n);
+  renderRows();
+  focusRow(n);
+}
+const focusRow = (n) => $('stack-body').querySelector(`tr[data-layer="${n}"]`)?.focus();
+$('stack-body').addEventListener('click', toggleRow);
+$('stack-body').addEventListener('keydown', toggleRow);
 $('log-list').addEventListener('click', (event) => {
   const b = event.target.closest('button.ack');
   if (b && !b.disabled) void sendCommand('acknowledge', b.dataset.alert);

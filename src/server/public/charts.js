@@ -8,8 +8,19 @@ const INK = '#1b2026';
 const INK_2 = '#48525e';
 const MODEL = '#6d84a3';
 const MODEL_FILL = 'rgba(109, 132, 163, 0.16)';
+const ACCENT = '#c4410c';
 const GRID = '#ecebe6';
-const FONT = '12px system-ui, -apple-system, "Segoe UI", Roboto, sans-serif';
+const FAMILY = 'system-ui, -apple-system, "Segoe UI", Roboto, sans-serif';
+/** Tick labels and marks, px: the normal view's, and the large-type view's (read from 2 m). */
+export const FONT_PX = { normal: 12, large: 18 };
+let fontPx = FONT_PX.normal;
+const font = () => `${fontPx}px ${FAMILY}`;
+const charts = new Set();
+/** Every chart in large type or not (rebuilt: uPlot fixes its axes at construction). */
+export function setLargeType(large) {
+  fontPx = large ? FONT_PX.large : FONT_PX.normal;
+  for (const c of charts) c.rebuild();
+}
 /** Tick steps for time axes, s: whole seconds and minutes. */
 const TIME_INCRS = [1, 2, 5, 10, 15, 30, 60, 120, 300, 600, 900, 1800, 3600, 7200];
 const mmss = (_u, values) => values.map((v) => clock(v));
@@ -18,16 +29,16 @@ function axis(label, extra = {}) {
   return {
     label,
     stroke: INK_2,
-    font: FONT,
-    labelFont: FONT,
-    labelSize: 18,
+    font: font(),
+    labelFont: font(),
+    labelSize: Math.round(fontPx * 1.5),
     grid: { stroke: GRID, width: 1 },
     ticks: { stroke: GRID, width: 1, size: 4 },
     ...extra,
   };
 }
 
-const timeAxis = (label) => axis(label, { values: mmss, incrs: TIME_INCRS, space: 60, ...(label ? {} : { label: null, labelSize: 0 }) });
+const timeAxis = (label) => axis(label, { values: mmss, incrs: TIME_INCRS, space: 5 * fontPx, ...(label ? {} : { label: null, labelSize: 0 }) });
 
 /**
  * A uPlot chart that keeps the size of its box and can be rebuilt with new options (uPlot fixes
@@ -36,19 +47,30 @@ const timeAxis = (label) => axis(label, { values: mmss, incrs: TIME_INCRS, space
 function managedChart(el, makeOptions, emptyData) {
   let chart = null;
   const size = () => ({ width: Math.max(120, Math.floor(el.clientWidth)), height: Math.max(90, Math.floor(el.clientHeight)) });
+  let data = emptyData();
   const build = () => {
     chart?.destroy();
-    chart = new uPlot({ ...makeOptions(), ...size() }, emptyData(), el);
+    chart = new uPlot({ ...makeOptions(), ...size() }, data, el);
+    el.dataset.fontPx = String(fontPx);
   };
   new ResizeObserver(() => {
     const s = size();
     if (chart && (s.width !== chart.width || s.height !== chart.height)) chart.setSize(s);
   }).observe(el);
   build();
-  return {
+  const managed = {
     rebuild: build,
-    setData: (data) => chart.setData(data),
+    setData: (next) => {
+      data = next;
+      chart.setData(next);
+    },
+    /** The uPlot instance (for pictures of the chart). */
+    get plot() {
+      return chart;
+    },
   };
+  charts.add(managed);
+  return managed;
 }
 
 const common = {
@@ -65,6 +87,7 @@ const common = {
 export function createTraceChart(el) {
   let view = null;
   let points = [];
+  let cuts = [];
   let mode = 'nm';
   const xOfNm = (nmValue) => (mode === 'nm' ? nmValue : nmValue / view.chipRateNmPerS);
   const xOfPoint = (p) => (mode === 'nm' ? p[2] : p[0] - (view.openedAtS ?? 0));
@@ -78,7 +101,7 @@ export function createTraceChart(el) {
     ctx.beginPath();
     ctx.rect(left, top, width, height);
     ctx.clip();
-    ctx.font = `${Math.round(12 * px)}px system-ui, sans-serif`;
+    ctx.font = `${Math.round(fontPx * px)}px ${FAMILY}`;
     ctx.textBaseline = 'top';
 
     if (view.triggerSignal !== null) {
@@ -103,10 +126,22 @@ export function createTraceChart(el) {
     ctx.moveTo(xt, top);
     ctx.lineTo(xt, top + height);
     ctx.stroke();
-    ctx.fillStyle = INK;
     ctx.textAlign = 'right';
     const label = mode === 'nm' ? `target ${view.chipTargetNm.toFixed(2)} nm` : `target ≈ ${clock(xOfNm(view.chipTargetNm))} at the planned rate`;
-    ctx.fillText(label, xt - 6 * px, top + 5 * px);
+    // The label sits at the top left of the line, unless a turning point's mark is there: then at the bottom.
+    const labelW = ctx.measureText(label).width;
+    const labelH = (fontPx + 6) * px;
+    const hidesMark = (y0) =>
+      view.turningPoints.some((tp) => {
+        const x = u.valToPos(xOfNm(tp.thicknessNm), 'x', true);
+        const y = u.valToPos(tp.signal * 100, 'y', true);
+        return x >= xt - labelW - 16 * px && x <= xt + 8 * px && y >= y0 - 14 * px && y <= y0 + labelH + 14 * px;
+      });
+    const labelY = hidesMark(top + 4 * px) ? top + height - labelH - 4 * px : top + 4 * px;
+    ctx.fillStyle = 'rgba(255, 255, 255, 0.85)';
+    ctx.fillRect(xt - 8 * px - labelW, labelY, labelW + 4 * px, labelH);
+    ctx.fillStyle = INK;
+    ctx.fillText(label, xt - 6 * px, labelY + 3 * px);
 
     ctx.fillStyle = MODEL;
     const s = 5 * px;
@@ -122,6 +157,35 @@ export function createTraceChart(el) {
       ctx.lineTo(x + s, y + dir * (gap + 1.6 * s));
       ctx.closePath();
       ctx.fill();
+    }
+
+    // Cuts sent in this layer: a diamond on the measured trace where the command went out.
+    for (const cut of cuts) {
+      let at = null;
+      for (const p of points) {
+        if (p[0] > cut.timeS) break;
+        at = p;
+      }
+      if (!at) continue;
+      const x = u.valToPos(xOfPoint(at), 'x', true);
+      const y = u.valToPos(at[1] * 100, 'y', true);
+      const d = 7 * px;
+      ctx.fillStyle = ACCENT;
+      ctx.strokeStyle = '#fff';
+      ctx.lineWidth = 1.5 * px;
+      ctx.beginPath();
+      ctx.moveTo(x, y - d);
+      ctx.lineTo(x + d, y);
+      ctx.lineTo(x, y + d);
+      ctx.lineTo(x - d, y);
+      ctx.closePath();
+      ctx.fill();
+      ctx.stroke();
+      ctx.fillStyle = INK;
+      ctx.textAlign = 'left';
+      ctx.textBaseline = 'bottom';
+      ctx.fillText(cut.label, x + d + 3 * px, y - 3 * px);
+      ctx.textBaseline = 'top';
     }
 
     const last = points[points.length - 1];
@@ -148,7 +212,7 @@ export function createTraceChart(el) {
         },
       },
     },
-    axes: [mode === 'nm' ? axis('thickness of this layer on the chip, nm') : timeAxis('time in this layer, mm:ss'), axis('signal, %', { size: 54 })],
+    axes: [mode === 'nm' ? axis('thickness of this layer on the chip, nm') : timeAxis('time in this layer, mm:ss'), axis('signal, %', { size: 4.5 * fontPx })],
     series: [
       {},
       { label: 'model', stroke: MODEL, width: 1.5, dash: [7, 5], spanGaps: true, points: { show: false } },
@@ -177,11 +241,21 @@ export function createTraceChart(el) {
   };
 
   return {
-    set(traceView, measured) {
+    /** `cutMarks`: [{ timeS, label }] of the cuts sent in this layer. */
+    set(traceView, measured, cutMarks = []) {
       view = traceView;
       points = measured;
+      cuts = cutMarks;
       redraw();
     },
+    chart,
+    describe: () => ({
+      title: view ? `Layer ${view.layer} (${view.material}): ${view.signal === 'reflection' ? 'reflectance' : 'transmittance'} at ${view.wavelengthNm} nm` : 'Trace',
+      xLabel: mode === 'nm' ? 'thickness of this layer on the chip, nm' : 'time in this layer, s',
+      yLabel: 'signal, %',
+      vLines: view ? [{ x: xOfNm(view.chipTargetNm), label: 'target' }] : [],
+      hLines: view?.triggerSignal != null ? [{ y: view.triggerSignal * 100, label: 'trigger' }] : [],
+    }),
     setMode(next) {
       if (next === mode) return;
       mode = next;
@@ -201,7 +275,7 @@ export function createCrystalChart(el) {
     () => ({
       ...common,
       scales: { x: { time: false } },
-      axes: [timeAxis(''), axis('rate, nm/s', { size: 54 })],
+      axes: [timeAxis(''), axis('rate, nm/s', { size: 4.5 * fontPx })],
       series: [
         {},
         { label: 'band low', stroke: MODEL, width: 1, paths: uPlot.paths.stepped({ align: 1 }), points: { show: false } },
@@ -238,6 +312,8 @@ export function createCrystalChart(el) {
       });
       chart.setData([t, lo, hi, r]);
     },
+    chart,
+    describe: () => ({ title: 'Crystal: deposition rate', xLabel: 'run time, s', yLabel: 'rate, nm/s', vLines: [], hLines: [] }),
   };
 }
 
@@ -252,7 +328,7 @@ export function createOutcomeChart(el) {
         x: { time: false },
         y: { range: (_u, min, max) => [Math.max(0, Math.floor(min / 5) * 5 - 2), Math.min(102, Math.ceil(max / 5) * 5 + 2)] },
       },
-      axes: [axis('wavelength, nm'), axis(quantity === 'T' ? 'T, %' : 'R, %', { size: 46 })],
+      axes: [axis('wavelength, nm'), axis(quantity === 'T' ? 'T, %' : 'R, %', { size: 4 * fontPx })],
       series: [
         {},
         { label: 'design', stroke: MODEL, width: 1.5, dash: [7, 5], points: { show: false } },
@@ -273,5 +349,7 @@ export function createOutcomeChart(el) {
       }
       chart.setData([outcome.wavelengthsNm, outcome.design[q].map((v) => v * 100), outcome.deposited[q].map((v) => v * 100)]);
     },
+    chart,
+    describe: () => ({ title: `Outcome: ${quantity === 'T' ? 'transmittance' : 'reflectance'}, as deposited and as designed`, xLabel: 'wavelength, nm', yLabel: `${quantity}, %`, vLines: [], hLines: [] }),
   };
 }

@@ -1,4 +1,7 @@
 // Numbers and words for the dashboard: units on every number, signals in percent, time as mm:ss.
+// The words for estimators and cut rules come from the server (/words.js, built from the module
+// the command line prints them from); journal codes become words only here.
+import { WORDS } from '/words.js';
 
 /** A value or an en dash when it is missing. */
 const ok = (x) => typeof x === 'number' && Number.isFinite(x);
@@ -55,43 +58,19 @@ export const PHASE_WORDS = {
   aborted: 'Aborted',
 };
 
-export const MODE_WORDS = {
-  'turning-point': 'turning point',
-  level: 'trigger level',
-  crystal: 'crystal',
-  time: 'time',
-};
+/** A code in words from one of the tables; an unknown code (a newer journal's) as it is. */
+const word = (table, code) => (Object.hasOwn(table, code) ? table[code] : code);
 
-/** Short forms for the stack table. */
-export const MODE_SHORT = { 'turning-point': 'turn. pt', level: 'level', crystal: 'crystal', time: 'time' };
-export const REASON_SHORT = {
-  'trigger-level': '✓ level',
-  'turning-point': '✓ turn. pt',
-  'model-fit': '✓ model fit',
-  'crystal-thickness': '✓ crystal',
-  'crystal-calibrated': '✓ crystal (cal.)',
-  time: '✓ time',
-  'thickness-ceiling': '! ceiling',
-  'time-ceiling': '! time ceiling',
-  operator: '✓ operator',
-  abort: '■ aborted',
-};
-
-export const REASON_WORDS = {
-  'trigger-level': 'trigger level',
-  'turning-point': 'turning point',
-  'model-fit': 'model fit',
-  'crystal-thickness': 'crystal',
-  'crystal-calibrated': 'crystal, calibrated by the optical fits',
-  time: 'time',
-  'thickness-ceiling': 'thickness ceiling',
-  'time-ceiling': 'time ceiling',
-  operator: 'operator',
-  abort: 'abort',
-};
+/** A cut mode as planned (`level`, …). */
+export const modeWords = (mode) => word(WORDS.mode, mode);
+/** What cut a layer, or is cutting it (`model-fit`, …); `short` for narrow columns. */
+export const reasonWords = (reason, short = false) => word(short ? WORDS.reasonShort : WORDS.reason, reason);
+/** The cut a layer planned in `mode` gets under the run's estimator. */
+export const plannedCutWords = (mode, estimator) => word(WORDS.planned[estimator] ?? WORDS.planned.plain, mode);
+export const estimatorWords = (estimator) => word(WORDS.estimator, estimator);
 
 /** Where the readout's thickness comes from, and what its ± means. */
-export const SOURCE_WORDS = { fit: 'model fit', crystal: 'crystal', clock: 'clock' };
+export const SOURCE_WORDS = WORDS.source;
 export const SOURCE_TITLES = {
   fit: "the model fit of the layer's optical signal: its thickness at the design index, as the cut compares it, and its rms",
   crystal: "the crystal's thickness; ± the plan's expected rms precision of this layer's cut",
@@ -102,12 +81,12 @@ export const SEVERITY_WORDS = { info: 'Note', warning: 'Warning', critical: 'Cri
 export const SEVERITY_MARKS = { info: '●', warning: '▲', critical: '■' };
 
 /** One log line for an event: a mark, the words, and the severity for alerts. */
-export function describeEvent(e) {
+export function describeEvent(e, estimator = 'plain') {
   switch (e.type) {
     case 'run-started':
       return { mark: '▶', text: `Run started: ${e.layers} layers` };
     case 'layer-started':
-      return { mark: '▶', text: `Layer ${e.layer} (${e.material}) started: target ${nm(e.targetNm)}, cut on ${MODE_WORDS[e.cut] ?? e.cut}` };
+      return { mark: '▶', text: `Layer ${e.layer} (${e.material}) started: target ${nm(e.targetNm)}, cut on ${plannedCutWords(e.cut, estimator)}` };
     case 'shutter':
       return { mark: e.command.action === 'open' ? '○' : '◌', text: `Shutter ${e.command.source} ${e.command.action === 'open' ? 'opened' : 'closed'} (layer ${e.command.layer})` };
     case 'approaching-cut':
@@ -115,14 +94,14 @@ export function describeEvent(e) {
     case 'cut':
       return {
         mark: '✂',
-        text: `Layer ${e.layer} cut on ${REASON_WORDS[e.reason] ?? e.reason} at ≈ ${nm(e.estimatedNm)}${ok(e.signal) ? `, signal ${percent(e.signal)}` : ''}`,
+        text: `Layer ${e.layer} cut on ${reasonWords(e.reason)} at ≈ ${nm(e.estimatedNm)}${ok(e.signal) ? `, signal ${percent(e.signal)}` : ''}`,
       };
     case 'layer-finished':
       return e.skipped
         ? { mark: '⤼', text: `Layer ${e.layer} skipped at ≈ ${nm(e.estimatedNm)}` }
         : { mark: '✓', text: `Layer ${e.layer} finished: ≈ ${nm(e.estimatedNm)}${ok(e.crystalNm) ? ` (crystal ${nm(e.crystalNm)})` : ''}` };
     case 'mode-changed':
-      return { mark: '↪', text: `Layer ${e.layer}: cut mode ${MODE_WORDS[e.from] ?? e.from} → ${MODE_WORDS[e.to] ?? e.to}` };
+      return { mark: '↪', text: `Layer ${e.layer}: cut mode ${modeWords(e.from)} → ${modeWords(e.to)}` };
     case 'alert':
       return { mark: SEVERITY_MARKS[e.severity] ?? '●', severity: e.severity, text: `${SEVERITY_WORDS[e.severity] ?? e.severity} ${e.id}: ${e.message}` };
     case 'alert-acknowledged':
