@@ -109,7 +109,7 @@ function render(now) {
   if (dirty.has('crystal')) renderCrystalFigures();
   if (chartsDue) {
     if (dirty.has('trace')) renderTrace();
-    if (dirty.has('rate')) charts.crystal.set(model.ratePoints.values());
+    if (dirty.has('rate')) renderCrystalChart();
     if (dirty.has('outcome')) renderOutcome();
     lastChartDraw = now;
     for (const p of ['trace', 'rate', 'outcome']) dirty.delete(p);
@@ -181,8 +181,10 @@ function renderTrace() {
   setText('ro-cutsignal', t.predicted.length > cutIndex ? fmt.percent(t.predicted[cutIndex]) : '–');
   setText('ro-trigger', t.triggerSignal === null ? 'not used' : fmt.percent(t.triggerSignal));
   // The cuts sent in this layer, marked where the command went out.
-  const cuts = [];
-  for (const e of model.log.values()) if (e.type === 'cut' && e.layer === t.layer) cuts.push({ timeS: e.timeS, label: `cut · ${fmt.reasonWords(e.reason)}` });
+  const cuts = cutsSoFar()
+    .filter((c) => c.layer === t.layer)
+    .map((c) => ({ timeS: c.timeS, label: `cut · ${fmt.reasonWords(c.reason)}` }));
+  el.dataset.cuts = String(cuts.length);
   charts.trace.set(t.predicted.length > 0 ? t : null, model.tracePoints.values(), cuts);
 }
 
@@ -202,6 +204,19 @@ function renderOutcome() {
   setText('outcome-note', n === 0 ? 'No layer finished yet: the design.' : `Layers 1–${n} with the optical thickness and index the fits estimated${n < model.rows.length ? ', the rest as designed' : ''}.`);
   setText('outcome-figure', `largest |Δ${q}| ${(max * 100).toFixed(2)} pp`);
   charts.outcome.set(o, q);
+}
+
+/** The cuts in the log, oldest first: [{ timeS, layer, reason }]. */
+function cutsSoFar() {
+  const out = [];
+  for (const e of model.log.values()) if (e.type === 'cut') out.push({ timeS: e.timeS, layer: e.layer, reason: e.reason });
+  return out.sort((a, b) => a.timeS - b.timeS);
+}
+
+function renderCrystalChart() {
+  const cuts = cutsSoFar();
+  $('crystal-chart').dataset.cuts = String(cuts.length);
+  charts.crystal.set(model.ratePoints.values(), cuts);
 }
 
 function renderCrystalFigures() {
@@ -545,7 +560,7 @@ function onEvent(seq, e) {
           ? { ...r, cutReason: e.reason, estimatedNm: e.estimatedNm, errorNm: e.estimatedNm - r.targetNm, errorPercent: (100 * (e.estimatedNm - r.targetNm)) / r.targetNm }
           : r,
       );
-      schedule('rows');
+      schedule('rows', 'trace', 'rate');
       if (live) {
         tone('cut');
         notify(`Layer ${e.layer} cut`, `${fmt.reasonWords(e.reason)}, ≈ ${fmt.nm(e.estimatedNm)}`);
@@ -754,21 +769,13 @@ function readingsCsv(what) {
   );
 }
 
-function downloadChart(what, as) {
-  const stem = fileStem(what);
-  if (as === 'csv') {
-    const url = blobUrl(readingsCsv(what), 'text/csv;charset=utf-8');
-    download(`${stem}.csv`, url);
-    setTimeout(() => URL.revokeObjectURL(url), 10000);
-    return;
-  }
+async function downloadChart(what, as) {
   const chart = charts[what];
-  if (as === 'png') download(`${stem}.png`, chartPng(chart.chart.plot));
-  else {
-    const url = blobUrl(chartSvg(chart.chart.plot, chart.describe()), 'image/svg+xml');
-    download(`${stem}.svg`, url);
-    setTimeout(() => URL.revokeObjectURL(url), 10000);
-  }
+  const content = as === 'csv' ? readingsCsv(what) : as === 'png' ? await chartPng(chart.chart.plot) : chartSvg(chart.chart.plot, chart.describe());
+  const url = blobUrl(content, as === 'csv' ? 'text/csv;charset=utf-8' : 'image/svg+xml');
+  download(`${fileStem(what)}.${as}`, url);
+  // The browser has taken the file once the link was followed; the URL can go a little later.
+  setTimeout(() => URL.revokeObjectURL(url), 10000);
 }
 
 // ---- the large-type view: status, thickness and trace, to read from afar ---------------------
@@ -782,7 +789,7 @@ function setLarge(large) {
 }
 
 // ---- wiring -------------------------------------------------------------------------------
-for (const b of document.querySelectorAll('[data-download]')) b.addEventListener('click', () => downloadChart(b.dataset.download, b.dataset.as));
+for (const b of document.querySelectorAll('[data-download]')) b.addEventListener('click', () => void downloadChart(b.dataset.download, b.dataset.as));
 $('large-toggle').addEventListener('click', () => setLarge(document.body.dataset.large !== 'true'));
 document.addEventListener('keydown', (event) => {
   // L toggles large type, except while typing or with a modifier (the browser's own keys).

@@ -19,7 +19,7 @@ export function niceTicks(min, max, count = 6) {
   return ticks;
 }
 
-/** The PNG of a uPlot chart, on white (the canvas itself is transparent). */
+/** The PNG of a uPlot chart, on white (the canvas itself is transparent), as a Blob. */
 export function chartPng(plot) {
   const source = plot.ctx.canvas;
   const canvas = document.createElement('canvas');
@@ -29,7 +29,7 @@ export function chartPng(plot) {
   ctx.fillStyle = '#ffffff';
   ctx.fillRect(0, 0, canvas.width, canvas.height);
   ctx.drawImage(source, 0, 0);
-  return canvas.toDataURL('image/png');
+  return new Promise((resolve, reject) => canvas.toBlob((blob) => (blob ? resolve(blob) : reject(new Error('no picture'))), 'image/png'));
 }
 
 /**
@@ -114,6 +114,6 @@ export function download(name, href) {
   a.remove();
 }
 
-export function blobUrl(text, type) {
-  return URL.createObjectURL(new Blob([text], { type }));
+export function blobUrl(content, type) {
+  return URL.createObjectURL(content instanceof Blob ? content : new Blob([content], { type }));
 }

@@ -212,7 +212,7 @@ export function createTraceChart(el) {
         },
       },
     },
-    axes: [mode === 'nm' ? axis('thickness of this layer on the chip, nm') : timeAxis('time in this layer, mm:ss'), axis('signal, %', { size: 4.5 * fontPx })],
+    axes: [mode === 'nm' ? axis('thickness on the chip, nm') : timeAxis('time in the layer, mm:ss'), axis('signal, %', { size: 4.5 * fontPx })],
     series: [
       {},
       { label: 'model', stroke: MODEL, width: 1.5, dash: [7, 5], spanGaps: true, points: { show: false } },
@@ -270,6 +270,35 @@ export const CRYSTAL_WINDOW_S = 600;
 
 /** The crystal strip: rate against run time over the last ten minutes, with its allowed band shaded. */
 export function createCrystalChart(el) {
+  let cuts = [];
+  // Past cuts across the strip: a dashed line at each, its layer's number beside a diamond.
+  const drawCuts = (u) => {
+    const px = uPlot.pxRatio;
+    const ctx = u.ctx;
+    const { left, top, width, height } = u.bbox;
+    ctx.save();
+    ctx.beginPath();
+    ctx.rect(left, top, width, height);
+    ctx.clip();
+    ctx.font = `${Math.round(fontPx * px)}px ${FAMILY}`;
+    ctx.textBaseline = 'top';
+    ctx.textAlign = 'left';
+    for (const cut of cuts) {
+      const x = u.valToPos(cut.timeS, 'x', true);
+      if (!(x >= left && x <= left + width)) continue;
+      ctx.strokeStyle = ACCENT;
+      ctx.lineWidth = 1 * px;
+      ctx.setLineDash([3 * px, 3 * px]);
+      ctx.beginPath();
+      ctx.moveTo(x, top);
+      ctx.lineTo(x, top + height);
+      ctx.stroke();
+      ctx.setLineDash([]);
+      ctx.fillStyle = ACCENT;
+      ctx.fillText(`◆${cut.layer}`, x + 2 * px, top + 2 * px);
+    }
+    ctx.restore();
+  };
   const chart = managedChart(
     el,
     () => ({
@@ -283,11 +312,14 @@ export function createCrystalChart(el) {
         { label: 'rate', stroke: INK, width: 1.75, points: { show: false } },
       ],
       bands: [{ series: [2, 1], fill: MODEL_FILL }],
+      hooks: { draw: [drawCuts] },
     }),
     () => [[], [], [], []],
   );
   return {
-    set(allPoints) {
+    /** `cutMarks`: [{ timeS, layer }] of the cuts so far. */
+    set(allPoints, cutMarks = []) {
+      cuts = cutMarks;
       const end = allPoints.length > 0 ? allPoints[allPoints.length - 1][0] : 0;
       const points = allPoints.filter((p) => p[0] >= end - CRYSTAL_WINDOW_S);
       // Break the lines where the rate was not measured (between layers, shutter closed).
