@@ -7,6 +7,7 @@
 import { closeSync, existsSync, openSync, readdirSync, readFileSync, readSync, realpathSync, statSync } from 'node:fs';
 import { join, resolve, sep } from 'node:path';
 import { headerProblem, parseRecord, type JournalHeader } from '../journal/journal-format.ts';
+import { runFigures } from './run-summary.ts';
 
 /** Run ids are folder names: letters, digits, dot, dash and underscore, not starting with a dot. */
 export const RUN_ID_PATTERN = '^[A-Za-z0-9][A-Za-z0-9._-]{0,127}$';
@@ -19,11 +20,16 @@ export interface RunListing {
   source: string | null;
   /** From the summary; `in progress` while the run has none. */
   outcome: string;
+  /** Layers deposited, wholly or in part (null without a summary). */
   layers: number | null;
+  /** Layers the recipe has (null without a summary). */
+  layersPlanned: number | null;
+  /** Layers a rule cut: the rms errors are over these (null without a summary). */
+  layersCutByRule: number | null;
   durationS: number | null;
-  /** Root-mean-square of the layers' estimated errors, % (null without a summary). */
+  /** Root-mean-square of the estimated errors of the layers a rule cut, % (null without a summary). */
   rmsErrorPercent: number | null;
-  /** Simulated runs: root-mean-square of the layers' true errors, % (null otherwise). */
+  /** Simulated runs: root-mean-square of the same layers' true errors, % (null otherwise). */
   rmsTrueErrorPercent: number | null;
   journalBytes: number;
   replayable: boolean;
@@ -101,21 +107,21 @@ export function listRuns(runsDir: string): RunListing[] {
     if (!folder) continue;
     const header = readJournalHeader(folder.journalFile);
     const summary = readSummary(folder);
-    const layers = Array.isArray(summary?.layers) ? (summary.layers as Record<string, unknown>[]) : null;
-    const rms = (key: string): number | null => {
-      const values = (layers ?? []).map((l) => l[key]).filter((e): e is number => typeof e === 'number' && Number.isFinite(e));
-      return values.length > 0 ? Math.sqrt(values.reduce((s, e) => s + e * e, 0) / values.length) : null;
-    };
+    // Figures from the layers themselves, so that an older summary reads the same way.
+    const layers = Array.isArray(summary?.layers) ? (summary.layers as unknown[]).filter((l): l is Record<string, unknown> => l !== null && typeof l === 'object') : null;
+    const figures = layers ? runFigures(layers) : null;
     out.push({
       id: name,
       recipe: typeof summary?.recipe === 'string' ? summary.recipe : (header?.recipe ?? null),
       startedAt: header?.startedAt ?? null,
       source: typeof header?.meta.source === 'string' ? header.meta.source : null,
       outcome: typeof summary?.outcome === 'string' ? summary.outcome : 'in progress',
-      layers: layers ? layers.length : null,
+      layers: figures?.layersDeposited ?? null,
+      layersPlanned: figures?.layersPlanned ?? null,
+      layersCutByRule: figures?.layersCutByRule ?? null,
       durationS: typeof summary?.durationS === 'number' ? summary.durationS : null,
-      rmsErrorPercent: rms('errorPercent'),
-      rmsTrueErrorPercent: rms('trueErrorPercent'),
+      rmsErrorPercent: figures?.rmsErrorPercent ?? null,
+      rmsTrueErrorPercent: figures?.rmsTrueErrorPercent ?? null,
       journalBytes: statSync(folder.journalFile).size,
       replayable: existsSync(folder.recipeFile),
     });
