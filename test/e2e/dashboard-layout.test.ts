@@ -106,6 +106,16 @@ if (!haveChromium && inCi) {
           expect(normal.clipped, `${viewport.width} px`).toEqual([]);
           await page.screenshot({ path: `${ARTIFACTS}layout-${viewport.width}.png`, fullPage: true });
 
+          // History, with a run's summary open, fits too.
+          await page.click('#nav-history');
+          await expect.poll(() => page.locator('#runs-body tr').count()).toBeGreaterThan(0);
+          await page.locator('#runs-body button[data-summary]').first().click();
+          await expect.poll(() => page.isVisible('#summary-panel')).toBe(true);
+          const history = await fits(page);
+          expect(history.scrollWidth, `${viewport.width} px history`).toBeLessThanOrEqual(history.innerWidth);
+          expect(history.clipped, `${viewport.width} px history`).toEqual([]);
+          await page.click('#nav-live');
+
           // One key turns on large type: the status, the readout and the trace alone, in ≥ 14 px.
           await page.keyboard.press('l');
           await expect.poll(() => page.getAttribute('body', 'data-large')).toBe('true');

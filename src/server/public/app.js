@@ -700,10 +700,10 @@ async function loadHistory() {
         const started = r.startedAt ? new Date(r.startedAt).toLocaleString() : r.id;
         const replay = r.replayable ? `<button type="button" data-replay="${escapeHtml(r.id)}">Replay</button>` : '<span title="no recipe.json beside the journal">no replay</span>';
         return (
-          `<tr><td>${escapeHtml(started)}</td><td>${escapeHtml(r.recipe ?? '–')}</td><td>${escapeHtml(r.source ?? '–')}</td><td>${escapeHtml(r.outcome)}</td>` +
-          `<td class="num">${r.layers === null ? '–' : `${r.layers} of ${r.layersPlanned}`}</td><td class="num">${fmt.clock(r.durationS)}</td>` +
-          `<td class="num" title="over the ${r.layersCutByRule ?? 0} layers a rule cut">${r.rmsErrorPercent === null ? '–' : `${r.rmsErrorPercent.toFixed(2)} %`}${r.rmsTrueErrorPercent === null ? '' : ` <span class="true-error">/ ${r.rmsTrueErrorPercent.toFixed(2)} %</span>`}${r.layersCutByRule === null ? '' : ` <span class="true-error">(${r.layersCutByRule})</span>`}</td>` +
-          `<td><span class="actions"><button type="button" data-summary="${escapeHtml(r.id)}">Summary</button>${replay}` +
+          `<tr><td data-label="Started">${escapeHtml(started)}</td><td data-label="Recipe">${escapeHtml(r.recipe ?? '–')}</td><td data-label="Source">${escapeHtml(r.source ?? '–')}</td><td data-label="Outcome">${escapeHtml(r.outcome)}</td>` +
+          `<td class="num" data-label="Layers">${r.layers === null ? '–' : `${r.layers} of ${r.layersPlanned}`}</td><td class="num" data-label="Run time">${fmt.clock(r.durationS)}</td>` +
+          `<td class="num" data-label="rms error" title="over the ${r.layersCutByRule ?? 0} layers a rule cut">${r.rmsErrorPercent === null ? '–' : `${r.rmsErrorPercent.toFixed(2)} %`}${r.rmsTrueErrorPercent === null ? '' : ` <span class="true-error">/ ${r.rmsTrueErrorPercent.toFixed(2)} %</span>`}${r.layersCutByRule === null ? '' : ` <span class="true-error">(${r.layersCutByRule})</span>`}</td>` +
+          `<td data-label="Actions"><span class="actions"><button type="button" data-summary="${escapeHtml(r.id)}">Summary</button>${replay}` +
           `<a href="${escapeHtml(withViewer(`/api/runs/${encodeURIComponent(r.id)}/journal`))}" download>Journal (${fmt.bytes(r.journalBytes)})</a></span></td></tr>`
         );
       })
@@ -728,7 +728,10 @@ async function showSummary(id) {
       const truth = typeof l.trueNm === 'number' ? l.trueNm.toFixed(2) : '';
       const trueErr = typeof l.trueErrorPercent === 'number' ? fmt.signed(l.trueErrorPercent, 2, '') : '';
       const reason = l.skipped ? 'skipped' : l.cutReason ? fmt.reasonWords(l.cutReason) : '–';
-      return `<tr><td>${l.number}</td><td>${escapeHtml(l.material ?? '')}</td><td class="num">${Number(l.targetNm).toFixed(2)}</td><td>${escapeHtml(reason)}</td><td class="num">${est}</td><td class="num">${err}</td><td class="num">${truth}</td><td class="num">${trueErr}</td></tr>`;
+      return (
+        `<tr><td data-label="#">${l.number}</td><td data-label="Material">${escapeHtml(l.material ?? '')}</td><td class="num" data-label="Target nm">${Number(l.targetNm).toFixed(2)}</td><td data-label="Cut">${escapeHtml(reason)}</td>` +
+        `<td class="num" data-label="Estimated nm">${est}</td><td class="num" data-label="Error %">${err}</td><td class="num" data-label="True nm">${truth}</td><td class="num" data-label="True error %">${trueErr}</td></tr>`
+      );
     })
     .join('');
   panel.scrollIntoView({ block: 'nearest' });

@@ -181,10 +181,12 @@ export function createTraceChart(el) {
       ctx.closePath();
       ctx.fill();
       ctx.stroke();
+      // The label beside the mark, on whichever side has room for it.
+      const room = left + width - (x + d + 3 * px) >= ctx.measureText(cut.label).width;
       ctx.fillStyle = INK;
-      ctx.textAlign = 'left';
+      ctx.textAlign = room ? 'left' : 'right';
       ctx.textBaseline = 'bottom';
-      ctx.fillText(cut.label, x + d + 3 * px, y - 3 * px);
+      ctx.fillText(cut.label, room ? x + d + 3 * px : x - d - 3 * px, y - 3 * px);
       ctx.textBaseline = 'top';
     }
 
