@@ -38,7 +38,7 @@ export const CUT_REASON_WORDS: Readonly<Record<CutReason, string>> = {
   'trigger-level': 'trigger level',
   'turning-point': 'turning point',
   'crystal-thickness': 'crystal thickness',
-  'crystal-calibrated': 'crystal, calibrated by the fits',
+  'crystal-calibrated': 'crystal, calibrated',
   time: 'time',
   'thickness-ceiling': 'thickness ceiling',
   'time-ceiling': 'time ceiling',

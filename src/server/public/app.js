@@ -200,8 +200,8 @@ function renderOutcome() {
   const max = q === 'T' ? o.maxAbsT : o.maxAbsR;
   const n = o.layersEstimated;
   setText('outcome-sub', `${o.fromNm}–${o.toNm} nm`);
-  setText('outcome-deposited', n === 0 ? 'as deposited (none yet)' : `as deposited (1–${n} as fitted)`);
-  setText('outcome-note', n === 0 ? 'No layer finished yet: the design.' : `Layers 1–${n} with the optical thickness and index the fits estimated${n < model.rows.length ? ', the rest as designed' : ''}.`);
+  // Say what the curve is: the finished layers as the fits know them (optical thickness and index), the rest as designed.
+  setText('outcome-deposited', n === 0 ? 'as deposited (none yet: the design)' : `as deposited: 1–${n} from the fits’ n·d and index${n < model.rows.length ? ', the rest as designed' : ''}`);
   setText('outcome-figure', `largest |Δ${q}| ${(max * 100).toFixed(2)} pp`);
   charts.outcome.set(o, q);
 }
