@@ -6,6 +6,7 @@ import { Writable } from 'node:stream';
 import type { FastifyInstance } from 'fastify';
 import { afterEach, beforeAll, describe, expect, it } from 'vitest';
 import { readJournal } from '../../src/journal/journal-reader.ts';
+import { DASHBOARD_WORDS } from '../../src/pipeline/cut-words.ts';
 import { buildServer, type ServerOptions } from '../../src/server/build-server.ts';
 import { startSimulatedRun } from '../../src/server/simulated-run.ts';
 import { ar4, manualRun, tempDir, TOKEN, typical, VIEWER_TOKEN, type ManualRun } from './support.ts';
@@ -77,9 +78,20 @@ describe('health and the run on show', () => {
     expect(page.headers['content-type']).toMatch(/text\/html/);
     expect(page.body).toContain('not a safety system');
     expect(page.headers['content-security-policy']).toContain("default-src 'self'");
-    for (const url of ['/app.js', '/charts.js', '/format.js', '/style.css', '/vendor/uplot/uPlot.esm.js', '/vendor/uplot/uPlot.min.css']) {
+    for (const url of ['/app.js', '/charts.js', '/chart-export.js', '/format.js', '/style.css', '/vendor/uplot/uPlot.esm.js', '/vendor/uplot/uPlot.min.css']) {
       expect((await app.inject({ method: 'GET', url })).statusCode, url).toBe(200);
     }
+  });
+
+  it('serves the words for estimators and cut rules as a module, from the one the command line prints', async () => {
+    const app = serve(manualRun(ar4), runsDir);
+    const words = await app.inject({ method: 'GET', url: '/words.js' });
+    expect(words.statusCode).toBe(200);
+    expect(words.headers['content-type']).toMatch(/^text\/javascript/);
+    expect(words.headers['content-security-policy']).toContain("script-src 'self'");
+    const json = /export const WORDS = (.*);\n$/.exec(words.body)?.[1];
+    expect(JSON.parse(json ?? 'null')).toEqual(DASHBOARD_WORDS);
+    expect(DASHBOARD_WORDS.reason['model-fit']).toBe('model fit');
   });
 });
 
