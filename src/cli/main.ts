@@ -10,6 +10,7 @@ import { planUsage, runPlan } from './commands/plan.ts';
 import { demoUsage, runDemo } from './commands/demo.ts';
 import { exportUsage, runExport } from './commands/export.ts';
 import { replayUsage, runReplay } from './commands/replay.ts';
+import { reportUsage, runReport } from './commands/report.ts';
 import { runLive, runUsage } from './commands/run.ts';
 import { runSimulate, simulateUsage } from './commands/simulate.ts';
 import { runSpectrum, spectrumUsage } from './commands/spectrum.ts';
@@ -23,6 +24,7 @@ const commands: Record<string, { run: (argv: string[], io: CommandIo) => number 
   run: { run: runLive, usage: runUsage },
   replay: { run: runReplay, usage: replayUsage },
   export: { run: runExport, usage: exportUsage },
+  report: { run: runReport, usage: reportUsage },
   study: { run: runStudyCommand, usage: studyUsage },
   demo: { run: runDemo, usage: demoUsage },
   tooling: { run: runTooling, usage: toolingUsage },
@@ -39,6 +41,7 @@ Commands:
   run --chamber F R   a live run on the chamber's instruments (--resume RUN after a crash)
   replay RUN          a recorded run through the controller again, cut by cut
   export RUN --csv    a run's readings and events as CSV
+  report RUN          one self-contained HTML page of a run, to open, print or send
   study RECIPE        many seeded simulated runs per cut strategy: errors against the plan's precision
   demo                a simulated run with the live dashboard on http://127.0.0.1:7300
   tooling             a corrected tooling factor from a calibration run

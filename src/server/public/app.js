@@ -662,6 +662,7 @@ async function loadHistory() {
           `<tr><td>${escapeHtml(started)}</td><td>${escapeHtml(r.recipe ?? '–')}</td><td>${escapeHtml(r.source ?? '–')}</td><td>${escapeHtml(r.outcome)}</td>` +
           `<td class="num">${r.layers ?? '–'}</td><td class="num">${fmt.clock(r.durationS)}</td><td class="num">${r.rmsErrorPercent === null ? '–' : `${r.rmsErrorPercent.toFixed(2)} %`}${r.rmsTrueErrorPercent === null ? '' : ` <span class="true-error">/ ${r.rmsTrueErrorPercent.toFixed(2)} %</span>`}</td>` +
           `<td><span class="actions"><button type="button" data-summary="${escapeHtml(r.id)}">Summary</button>${replay}` +
+          (r.replayable ? `<a href="${escapeHtml(withViewer(`/api/runs/${encodeURIComponent(r.id)}/report`))}" target="_blank" rel="noopener">Report</a>` : '') +
           `<a href="${escapeHtml(withViewer(`/api/runs/${encodeURIComponent(r.id)}/journal`))}" download>Journal (${fmt.bytes(r.journalBytes)})</a></span></td></tr>`
         );
       })
