@@ -107,3 +107,24 @@ describe('a bare substrate', () => {
     expect(oneLine(p.err)).toEqual([`fringe plan: ${recipe}: design: the design has no layers, a bare substrate: a recipe deposits at least one (the bare substrate is for fringe spectrum)`]);
   });
 });
+
+describe('inline materials in a recipe', () => {
+  it('are named n=… (n=…,k=… when absorbing): that is their key in process, and process.default covers the rest', async () => {
+    const design = write(
+      'inline-design.yaml',
+      'formatVersion: 1\nname: inline\nsubstrate: { material: N-BK7 }\nreferenceWavelengthNm: 550\nlayers:\n  - { material: { n: 2.1 }, quarterWaves: 1 }\n  - { material: { n: 1.45, k: 0.001 }, quarterWaves: 1 }\n  - { material: SiO2, quarterWaves: 1 }\n',
+    );
+    const recipe = write(
+      'inline-recipe.yaml',
+      `formatVersion: 1\nname: inline\ndesign: ${design}\nprocess:\n  "n=2.1": { rateNmPerS: 0.3 }\n  "n=1.45,k=0.001": { rateNmPerS: 0.7 }\n  default: { rateNmPerS: 0.9 }\ndefaults: { cut: crystal }\n`,
+    );
+    const r = await run('plan', recipe, '--json', '--no-suggest');
+    expect(r.code, r.err).toBe(0);
+    const plan = JSON.parse(r.out) as { layers: { material: string; rateNmPerS: number }[] };
+    expect(plan.layers.map((l) => [l.material, l.rateNmPerS])).toEqual([
+      ['n=2.1', 0.3],
+      ['n=1.45,k=0.001', 0.7],
+      ['SiO2', 0.9],
+    ]);
+  });
+});
