@@ -29,7 +29,7 @@ export type {
 export { scaledDispersion } from '../src/model/optics/dispersion.ts';
 export { fluctuationGridS, SourceRate } from './source-rate.ts';
 export type { SourceRateSettings } from './source-rate.ts';
-export { createVirtualChamber, INHOMOGENEITY_SLICES, trueStackSpec } from './virtual-chamber.ts';
+export { createVirtualChamber, INHOMOGENEITY_SLICES, trueOpticalErrorPercent, trueStackSpec } from './virtual-chamber.ts';
 export type {
   ChamberTruth,
   ShutterMove,

@@ -702,6 +702,17 @@ class DropoutSchedule {
   }
 }
 
+/**
+ * A layer's true optical thickness n·d at its monitor wavelength against the design's
+ * (the design index times `targetNm`), %: what optical monitoring controls, so index and chip
+ * ratio errors show here and not as a cut's error. NaN for a layer never deposited.
+ */
+export function trueOpticalErrorPercent(layer: Pick<LayerRecipe, 'dispersion' | 'wavelengthNm'>, truth: TrueLayer | undefined, targetNm: number): number {
+  if (!truth) return Number.NaN;
+  const nDesign = indexAt({ n: 0, k: 0 }, layer.dispersion, truth.wavelengthNm).n;
+  return 100 * ((truth.nTrue * truth.partNm) / (nDesign * targetNm) - 1);
+}
+
 /** The stack as it was really deposited on the parts: the design's media, true indices and thicknesses. */
 export function trueStackSpec(recipe: ResolvedRecipe, truth: ChamberTruth): StackSpec {
   const design = recipe.design.stack;

@@ -6,10 +6,12 @@ import { OpticalModelError } from '../model/optics/optical-model.ts';
 import { describeRefusedPath, FolderError } from '../files/writable-folder.ts';
 import { CliError } from './cli-error.ts';
 import { processIo, type CommandIo } from './command-io.ts';
+import { materialsUsage, runMaterials } from './commands/materials.ts';
 import { planUsage, runPlan } from './commands/plan.ts';
 import { demoUsage, runDemo } from './commands/demo.ts';
 import { exportUsage, runExport } from './commands/export.ts';
 import { replayUsage, runReplay } from './commands/replay.ts';
+import { reportUsage, runReport } from './commands/report.ts';
 import { runLive, runUsage } from './commands/run.ts';
 import { runSimulate, simulateUsage } from './commands/simulate.ts';
 import { runSpectrum, spectrumUsage } from './commands/spectrum.ts';
@@ -23,9 +25,11 @@ const commands: Record<string, { run: (argv: string[], io: CommandIo) => number 
   run: { run: runLive, usage: runUsage },
   replay: { run: runReplay, usage: replayUsage },
   export: { run: runExport, usage: exportUsage },
+  report: { run: runReport, usage: reportUsage },
   study: { run: runStudyCommand, usage: studyUsage },
   demo: { run: runDemo, usage: demoUsage },
   tooling: { run: runTooling, usage: toolingUsage },
+  materials: { run: runMaterials, usage: materialsUsage },
 };
 
 const usage = `fringe: live monitoring and layer cutting for optical coating runs.
@@ -39,9 +43,11 @@ Commands:
   run --chamber F R   a live run on the chamber's instruments (--resume RUN after a crash)
   replay RUN          a recorded run through the controller again, cut by cut
   export RUN --csv    a run's readings and events as CSV
+  report RUN          one self-contained HTML page of a run, to open, print or send
   study RECIPE        many seeded simulated runs per cut strategy: errors against the plan's precision
   demo                a simulated run with the live dashboard on http://127.0.0.1:7300
   tooling             a corrected tooling factor from a calibration run
+  materials [NAME]    the material library: range, dispersion, sources; --plot of n and k
 
 fringe is process control, not a safety system: interlocks, manual shutter controls and the
 equipment maker's instructions stay in charge.

@@ -21,5 +21,24 @@ export function resolveDesignData(data: unknown, library: MaterialLibrary, file:
 }
 
 export function loadDesign(file: string, library: MaterialLibrary = loadMaterialLibrary()): ResolvedDesign {
-  return resolveDesignData(readYamlFile(file), library, file);
+  const data = readYamlFile(file);
+  if (looksLikeRecipe(data)) {
+    const named = typeof data.design === 'string' ? ` (its \`design:\` names ${data.design})` : ' (its design is written inside it, under `design:`)';
+    throw new ConfigError(file, [
+      { at: '', message: `this is a recipe, not a design: plan, simulate, study, run and demo take a recipe; \`fringe spectrum\` takes the design it names${named}` },
+    ]);
+  }
+  return resolveDesignData(data, library, file);
+}
+
+const isRecord = (value: unknown): value is Record<string, unknown> => typeof value === 'object' && value !== null && !Array.isArray(value);
+
+/** A parsed file with a design's own keys and no recipe's: given where a recipe was expected, it is said so. */
+export function looksLikeDesign(data: unknown): boolean {
+  return isRecord(data) && !('design' in data) && ('substrate' in data || 'shorthand' in data || Array.isArray(data.layers));
+}
+
+/** A parsed file with a recipe's own keys: given where a design was expected, it is said so. */
+export function looksLikeRecipe(data: unknown): data is Record<string, unknown> {
+  return isRecord(data) && 'design' in data && !('substrate' in data);
 }

@@ -101,7 +101,8 @@ export function parseYamlText(text: string, file: string): unknown {
     if (/call stack/i.test(first.message)) refuse(`nests too deeply to read (at most ${MAX_CONFIG_DEPTH} levels)`, at);
     refuse((first.message.split('\n')[0] ?? first.message).replace(/ at line \d+, column \d+:?$/, ''), at);
   }
-  if (doc.contents === null) refuse('the file is empty (or holds only comments)');
+  // A lone "---" parses as a null scalar written as nothing: that file is as empty as a blank one.
+  if (doc.contents === null || (isScalar(doc.contents) && doc.contents.value === null && doc.contents.source === '')) refuse('the file is empty (or holds only comments)');
   const problem = checkShape(doc);
   if (problem) refuse(problem.message, position(problem.offset));
   try {

@@ -99,10 +99,15 @@ export function editDistance(a: string, b: string): number {
   return prev[y.length] as number;
 }
 
-/** Up to `count` of `known` closest to `name`, nearest first. */
+/**
+ * Up to `count` of `known` near `name`, nearest first: within a third of the longer name's
+ * letters (at least one edit), so that a typo finds its name and a name of another world finds
+ * none rather than three unrelated ones.
+ */
 export function nearestNames(name: string, known: Iterable<string>, count = 3): string[] {
   return [...known]
     .map((k) => ({ k, d: editDistance(name, k) }))
+    .filter((e) => e.d <= Math.max(1, Math.floor(Math.max(name.length, e.k.length) / 3)))
     .sort((a, b) => a.d - b.d || a.k.localeCompare(b.k))
     .slice(0, count)
     .map((e) => e.k);

@@ -123,7 +123,7 @@ function readHeader(file: string, chunkBytes: number): JournalHeader {
     const why = code === 'ENOENT' ? 'no such file' : (describeFileError(error) ?? (error as Error).message);
     throw new JournalError(`${file} cannot be read: ${why}`);
   }
-  if (first === undefined || first === '') throw new JournalError(`${file} holds no complete line`);
+  if (first === undefined || first === '') throw new JournalError(statSync(file).size === 0 ? `${file} is empty: it holds no journal` : `${file} holds no complete line`);
   let value: unknown = null;
   if (first !== null) {
     try {

@@ -74,6 +74,8 @@ export interface ChartOptions {
   yPercent?: boolean;
   markers?: ChartMarker[];
   points?: ChartPoint[];
+  /** Ids inside the document start with this (default "fringe-plot"): give each chart its own when several share one HTML page. */
+  idPrefix?: string;
   hLines?: ChartHLine[];
   bands?: ChartBand[];
 }
@@ -396,6 +398,7 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
   const inX = (x: number): boolean => Number.isFinite(x) && x >= xr.lo && x <= xr.hi;
   const inY = (y: number): boolean => Number.isFinite(y) && y >= yr.lo && y <= yr.hi;
 
+  const clipId = `${escapeXml(options.idPrefix ?? 'fringe-plot')}-clip`;
   const out: string[] = [];
   out.push('<?xml version="1.0" encoding="UTF-8"?>');
   out.push(
@@ -403,7 +406,7 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
   );
   out.push(`<title>${escapeXml(options.title)}</title>`);
   out.push(
-    `<defs><clipPath id="fringe-plot-clip"><rect x="${plotLeft}" y="${plotTop}" width="${plotW}" height="${plotH}"/></clipPath></defs>`,
+    `<defs><clipPath id="${clipId}"><rect x="${plotLeft}" y="${plotTop}" width="${plotW}" height="${plotH}"/></clipPath></defs>`,
   );
   out.push(`<rect width="${width}" height="${height}" fill="#ffffff"/>`);
   out.push(`<rect class="plot-area" x="${plotLeft}" y="${plotTop}" width="${plotW}" height="${plotH}" fill="#ffffff"/>`);
@@ -411,7 +414,7 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
   // Bands.
   const bandLabels: string[] = [];
   if (bands.length > 0) {
-    out.push('<g class="bands" clip-path="url(#fringe-plot-clip)">');
+    out.push(`<g class="bands" clip-path="url(#${clipId})">`);
     for (const b of bands) {
       if (!Number.isFinite(b.from) || !Number.isFinite(b.to)) continue;
       const lo = Math.min(b.from, b.to);
@@ -457,7 +460,7 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
   // Series. One <path> per unbroken run of finite points.
   const styles: LineStyle[] = series.map((s, i) => s.style ?? STYLE_CYCLE[i % STYLE_CYCLE.length] ?? 'solid');
   const colors: string[] = series.map((s, i) => s.color ?? CHART_PALETTE[i % CHART_PALETTE.length] ?? INK);
-  out.push('<g class="series" fill="none" clip-path="url(#fringe-plot-clip)">');
+  out.push(`<g class="series" fill="none" clip-path="url(#${clipId})">`);
   series.forEach((s, i) => {
     const style = styles[i] ?? 'solid';
     const lw = s.lineWidth ?? 1.6;
@@ -497,7 +500,7 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
     );
   };
   if (hLines.length > 0) {
-    shapes.push(`<g class="hlines" clip-path="url(#fringe-plot-clip)" stroke="${AXIS}" stroke-width="1.2" stroke-dasharray="5 3">`);
+    shapes.push(`<g class="hlines" clip-path="url(#${clipId})" stroke="${AXIS}" stroke-width="1.2" stroke-dasharray="5 3">`);
     for (const h of hLines) {
       if (!inY(h.y)) continue;
       const y = r2(py(h.y));
@@ -509,7 +512,7 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
     shapes.push('</g>');
   }
   if (markers.length > 0) {
-    shapes.push(`<g class="markers" clip-path="url(#fringe-plot-clip)" stroke="${ACCENT}" stroke-width="1.5">`);
+    shapes.push(`<g class="markers" clip-path="url(#${clipId})" stroke="${ACCENT}" stroke-width="1.5">`);
     for (const m of markers) {
       if (!inX(m.x)) continue;
       const x = r2(px(m.x));
@@ -523,7 +526,7 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
     shapes.push('</g>');
   }
   if (points.length > 0) {
-    shapes.push(`<g class="points" clip-path="url(#fringe-plot-clip)" stroke="${INK}" fill="${INK}">`);
+    shapes.push(`<g class="points" clip-path="url(#${clipId})" stroke="${INK}" fill="${INK}">`);
     for (const p of points) {
       if (!inX(p.x) || !inY(p.y)) continue;
       const x = px(p.x);

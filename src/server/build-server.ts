@@ -138,7 +138,10 @@ export function buildServer(deps: ServerDeps, options: ServerOptions): FastifyIn
     }
   });
   app.addHook('onSend', async (_request, reply, payload) => {
+    // A route may set a policy of its own (the run report's inline style, by hash); every other header stays.
+    const own = reply.getHeader('content-security-policy');
     reply.headers(SECURITY_HEADERS);
+    if (typeof own === 'string') reply.header('content-security-policy', own);
     return payload;
   });
   app.setErrorHandler((error: Error & { code?: string; statusCode?: number }, request) => {

@@ -31,6 +31,8 @@ export interface SimulatedRunOptions {
   hub?: Pick<RunHubOptions, 'pointsPerS' | 'maxTracePoints' | 'maxRatePoints' | 'maxLog'>;
   /** Run-time chunk between yields to the event loop, s (default: runPaced's). */
   chunkS?: number;
+  /** More facts for the journal header's meta (the demo marks its runs `demo: true`). */
+  meta?: Readonly<Record<string, unknown>>;
 }
 
 export interface SimulatedRun {
@@ -67,7 +69,7 @@ export function startSimulatedRun(options: SimulatedRunOptions): SimulatedRun {
       runId,
       startedAt: new Date().toISOString(),
       recipe: recipe.name,
-      meta: { source: 'simulator', seed: options.seed, profile: options.profileName ?? options.profile.name, speed: options.speed, estimator },
+      meta: { ...options.meta, source: 'simulator', seed: options.seed, profile: options.profileName ?? options.profile.name, speed: options.speed, estimator },
     });
     // The recipe as run, so that a replay needs nothing else.
     try {

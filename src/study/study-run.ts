@@ -2,9 +2,8 @@
  * One seeded simulated run of a recipe with a cut strategy, reduced to what the accuracy study
  * keeps: each layer's thickness error and the spectrum's deviation from the design.
  */
-import { createVirtualChamber, trueStackSpec, type SimProfile } from '../../sim/index.ts';
+import { createVirtualChamber, trueOpticalErrorPercent, trueStackSpec, type SimProfile } from '../../sim/index.ts';
 import { spectrumDeviation } from '../model/design/spectrum-deviation.ts';
-import { indexAt } from '../model/optics/dispersion.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import { createController, type ControllerOptions } from '../pipeline/controller.ts';
 import { runStepped } from '../pipeline/run-stepped.ts';
@@ -61,11 +60,7 @@ export function runOne(recipe: ResolvedRecipe, profile: SimProfile, strategy: st
   const truth = chamber.truth();
   const targets = recipe.layers.map((l, i) => state.targetsNm[i] ?? l.targetNm);
   const errorPercent = targets.map((target, i) => (100 * ((truth.layers[i]?.partNm ?? 0) - target)) / target);
-  const opticalErrorPercent = recipe.layers.map((l, i) => {
-    const t = truth.layers[i];
-    const nDesign = indexAt({ n: 0, k: 0 }, l.dispersion, t?.wavelengthNm ?? l.wavelengthNm).n;
-    return t ? 100 * ((t.nTrue * t.partNm) / (nDesign * (targets[i] as number)) - 1) : Number.NaN;
-  });
+  const opticalErrorPercent = recipe.layers.map((l, i) => trueOpticalErrorPercent(l, truth.layers[i], targets[i] as number));
   let deviation: { maxAbsT: number; meanAbsT: number; maxAbsR: number; meanAbsR: number; deposited: { T: ArrayLike<number> } } = {
     maxAbsT: Number.NaN,
     meanAbsT: Number.NaN,

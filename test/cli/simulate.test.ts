@@ -13,6 +13,8 @@ import { readJournal } from '../../src/journal/journal-reader.ts';
 import { createController } from '../../src/pipeline/controller.ts';
 import { replayJournal } from '../../src/pipeline/replay.ts';
 import { fortyLayerRecipe } from '../sim/support.ts';
+import { loadMaterialLibrary } from '../../src/config/load-design.ts';
+import { loadRecipe } from '../../src/config/load-recipe.ts';
 
 const root = fileURLToPath(new URL('../../', import.meta.url));
 const ar4 = join(root, 'config/recipes/ar4-visible.yaml');
@@ -81,6 +83,51 @@ describe('fringe simulate', () => {
     expect(other.cuts.some((c) => c.differs)).toBe(true);
     const plain = replayJournal(journal.records, createController(recipe, { estimator: 'plain' }));
     expect(plain.cuts.some((c) => c.differs)).toBe(true);
+  });
+});
+
+describe('fringe simulate: estimator, optical thickness, progress', () => {
+  const ideal = join(root, 'config/sim/ideal.yaml');
+
+  it('names the estimator and shows the n·d error beside the physical one', async () => {
+    const fit = await run('simulate', ar4, '--seed', '3');
+    expect(fit.code, fit.err).toBe(0);
+    expect(fit.out).toMatch(/optical layers cut by the model fit \(--estimator fit\)/);
+    expect(fit.out).toMatch(/n·d err %/);
+    expect(fit.out).toMatch(/optical thickness \(n·d, what the monitor controls\) rms \d+\.\d\d %/);
+    const plain = await run('simulate', ar4, '--seed', '3', '--estimator', 'plain', '--json');
+    const report = JSON.parse(plain.out) as SimulationReport;
+    expect(report.estimator).toBe('plain');
+    // The typical chamber's films are 1 % denser in index than the design's (config/sim/typical.yaml):
+    // the optical error differs from the physical one.
+    for (const l of report.layers) expect(Number.isFinite(l.opticalErrorPercent)).toBe(true);
+    expect(report.layers.some((l) => Math.abs(l.opticalErrorPercent - l.errorPercent) > 0.1)).toBe(true);
+  });
+
+  it('on a chamber with the design indices the n·d error is the physical error', async () => {
+    const r = await run('simulate', ar4, '--profile', ideal, '--json');
+    const report = JSON.parse(r.out) as SimulationReport;
+    // n_true = n_design, so n·d/(n·d_target) − 1 = d/d_target − 1 (derived).
+    for (const l of report.layers) expect(l.opticalErrorPercent).toBeCloseTo(l.errorPercent, 9);
+  });
+
+  it('draws one progress bar in place on a terminal at a paced speed, nothing at full speed or off a terminal', async () => {
+    const recipe = loadRecipe(ar4, loadMaterialLibrary());
+    const profile = loadSimProfile(join(root, 'config/sim/typical.yaml'));
+    const drawn = async (isTTY: boolean, speed: number): Promise<string> => {
+      let text = '';
+      await simulateRun(recipe, { profile, profileName: 'typical', seed: 1, speed, progress: { isTTY, write: (t: string) => (text += t) } });
+      return text;
+    };
+    // ar4 runs ~10 min of run time; at 2,000× a chunk is 100 s of it (runPaced): six redraws in 0.3 s.
+    const paced = await drawn(true, 2_000);
+    expect(paced).toMatch(/^\r\[[#.]{30}\] layer [12]\/4, /);
+    expect(paced.split('\r').length).toBeGreaterThan(3);
+    // One line, redrawn in place, ended once.
+    expect(paced.indexOf('\n')).toBe(paced.length - 1);
+    expect(paced).toMatch(/\[#{30}\] layer 4\/4, [^\r]*\n$/);
+    expect(await drawn(true, Number.POSITIVE_INFINITY)).toBe('');
+    expect(await drawn(false, 2_000)).toBe('');
   });
 });
 

@@ -178,7 +178,8 @@ describe('reading a journal as a stream', () => {
       ['bad-start.ndjson', '{"journal":"fringe","version":1,"runId":"a","startedAt":5,"recipe":"r","meta":{}}\n', /its startedAt is not a string/],
       ['no-meta.ndjson', '{"journal":"fringe","version":1,"runId":"a","startedAt":"x","recipe":"r"}\n', /its meta is not an object/],
       ['version.ndjson', '{"journal":"fringe","version":"one"}\n', /is journal version of no known version; this fringe reads version 1/],
-      ['empty.ndjson', '', /holds no complete line/],
+      ['empty.ndjson', '', /empty\.ndjson is empty: it holds no journal/],
+      ['torn.ndjson', '{"journal":"fri', /torn\.ndjson holds no complete line/],
     ];
     for (const [name, content, message] of cases) {
       writeFileSync(join(dir, name), content);

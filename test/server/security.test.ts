@@ -215,7 +215,7 @@ describe('run ids', () => {
     expect((await exchange(port, 'GET /api/runs/real')).status).toBe(200);
     for (const id of ESCAPES) {
       // Sent as written (a URL parser would fold the dots and backslashes before the server saw them).
-      for (const path of [`/api/runs/${id}`, `/api/runs/${id}/journal`, `/api/runs/${id}/../../outside/journal`]) {
+      for (const path of [`/api/runs/${id}`, `/api/runs/${id}/journal`, `/api/runs/${id}/report`, `/api/runs/${id}/../../outside/journal`]) {
         const r = await exchange(port, `GET ${path}`);
         expect([400, 404, 414], `${path.slice(0, 80)} → ${r.status}`).toContain(r.status);
         expect(r.body, path.slice(0, 80)).not.toContain(SECRET);

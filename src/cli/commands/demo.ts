@@ -14,6 +14,7 @@ import { buildServer } from '../../server/build-server.ts';
 import { startSimulatedRun } from '../../server/simulated-run.ts';
 import { allowHostOption, CliError, estimatorOption, numberOption, outputFolderOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
+import { DEMO_RUNS_KEPT, pruneDemoRuns } from '../demo-runs.ts';
 import { DEFAULT_PROFILE } from './simulate.ts';
 
 export const DEFAULT_DEMO_RECIPE = fileURLToPath(new URL('../../../config/recipes/edge-longpass-visible.yaml', import.meta.url));
@@ -22,7 +23,9 @@ export const demoUsage = `Usage: fringe demo [options]
 
 Runs a simulated coating run on the virtual chamber and serves the live dashboard: the trace of
 every layer against its prediction, the stack, the crystal, the outcome spectrum and the log,
-with the controls. The run is kept in the runs folder; the server stays up after it ends.
+with the controls. The run is kept in the runs folder, marked as the demo's; of the demo's runs
+only the last few are kept (older ones are removed at start; any other run is never touched).
+The server stays up after the run ends.
 Ctrl-C stops everything: a run still going is aborted (its shutters closed, the abort
 journalled) and the dashboard stops.
 
@@ -37,6 +40,7 @@ journalled) and the dashboard stops.
                         a forwarded port): it answers only to 127.0.0.1, localhost, [::1], the
                         bound address and the address it was reached at; any other Host gets 421
   --runs DIR            runs folder: where this run is kept and past runs are listed (default runs)
+  --keep-demo-runs N    demo runs kept in the runs folder, this one included (default ${DEMO_RUNS_KEPT})
   --materials FILE      material library (default: the shipped config/materials.yaml)
 
 A command token is made at start and printed once: enter it on the dashboard to use the controls.
@@ -64,6 +68,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
       host: { type: 'string' },
       'allow-host': { type: 'string', multiple: true },
       runs: { type: 'string' },
+      'keep-demo-runs': { type: 'string' },
       materials: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
     },
@@ -79,6 +84,8 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   if (!Number.isInteger(port) || port < 0 || port > 65535) throw new CliError(`--port must be a whole number from 0 to 65535, got ${port}`);
   const seed = numberOption('seed', values.seed) ?? 1;
   if (!Number.isInteger(seed) || seed < 0 || seed > 2 ** 32 - 1) throw new CliError(`--seed must be a whole number from 0 to 4294967295, got ${seed}`);
+  const keep = numberOption('keep-demo-runs', values['keep-demo-runs']) ?? DEMO_RUNS_KEPT;
+  if (!Number.isInteger(keep) || keep < 1 || keep > 10000) throw new CliError(`--keep-demo-runs must be a whole number from 1 to 10000, got ${keep}`);
   const host = values.host ?? '127.0.0.1';
   const allowedHosts = allowHostOption(values['allow-host']);
 
@@ -86,13 +93,15 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   const profileFile = values.profile ?? DEFAULT_PROFILE;
   const profile = loadSimProfile(profileFile);
   const runsDir = outputFolderOption('runs', values.runs ?? 'runs');
+  // Room for this run among the demo's last few.
+  const pruned = pruneDemoRuns(runsDir, keep - 1);
 
   const token = generateToken();
   const exposed = !isLoopback(host);
   const viewerToken = exposed ? generateToken() : undefined;
   const stop = new AbortController();
   const estimator = estimatorOption(values.estimator);
-  const simulated = startSimulatedRun({ recipe, profile, profileName: profileFile, seed, speed, journalDir: runsDir, signal: stop.signal, controller: { estimator } });
+  const simulated = startSimulatedRun({ recipe, profile, profileName: profileFile, seed, speed, journalDir: runsDir, signal: stop.signal, controller: { estimator }, meta: { demo: true } });
   const app = buildServer({ hub: simulated.hub, runsDir }, { token, viewerToken, host, allowedHosts });
 
   let address: string;
@@ -114,6 +123,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
     );
   }
   io.out(`run kept in ${simulated.dir ?? runsDir}`);
+  if (pruned.length > 0) io.out(`removed ${pruned.length} older demo run${pruned.length === 1 ? '' : 's'} from ${runsDir} (the demo keeps its last ${keep}; other runs are never removed)`);
   io.out("fringe is process control, not a safety system: interlocks, manual shutter controls and the equipment maker's instructions stay in charge.");
   hooks.onListening?.({ url, token, viewerToken });
 

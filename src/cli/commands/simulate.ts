@@ -7,7 +7,7 @@ import { randomUUID } from 'node:crypto';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { parseCommandArgs } from '../parse-command-args.ts';
-import { createPtyPair, createVirtualChamber, loadSimProfile, serveOnPty, serveOnTcp, trueStackSpec, type ChamberTruth } from '../../../sim/index.ts';
+import { createPtyPair, createVirtualChamber, loadSimProfile, serveOnPty, serveOnTcp, trueOpticalErrorPercent, trueStackSpec, type ChamberTruth } from '../../../sim/index.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import { createJournalWriter, type JournalWriter } from '../../journal/journal-writer.ts';
@@ -19,6 +19,7 @@ import type { CutReason, RunEvent } from '../../pipeline/events.ts';
 import { createSteppedRun, runPaced } from '../../pipeline/run-stepped.ts';
 import { CliError, estimatorOption, numberOption, outputFileOption, outputFolderOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
+import { createProgressBar, type ProgressSink } from '../progress-bar.ts';
 
 export const DEFAULT_PROFILE = fileURLToPath(new URL('../../../config/sim/typical.yaml', import.meta.url));
 
@@ -29,7 +30,8 @@ layer's true thickness and error and the true stack's spectrum against the desig
 
   --profile FILE        simulator profile (default: config/sim/typical.yaml)
   --seed N              random seed; the same seed gives the same run (default 1)
-  --speed X|max         run at X times real time, or as fast as possible (default max)
+  --speed X|max         run at X times real time (a progress bar on a terminal), or as fast as
+                        possible (default max)
   --journal DIR         keep the run in DIR/<run id>/ (journal, summary)
   --estimator fit|plain cut optical layers on the model fit (default) or the plain rules
   --json                print one object with a "layers" array and a "spectrum" block
@@ -49,6 +51,8 @@ export interface SimulatedLayer {
   trueNm: number;
   errorNm: number;
   errorPercent: number;
+  /** The true optical thickness n·d at the monitor wavelength against the design's, %: what the monitor controls. */
+  opticalErrorPercent: number;
   cutReason: CutReason | 'not-cut';
   estimatedNm: number;
 }
@@ -57,6 +61,8 @@ export interface SimulationReport {
   recipe: string;
   seed: number;
   profile: string;
+  /** How optical layers were cut: the model fit, or the plain rules. */
+  estimator: 'fit' | 'plain';
   outcome: 'complete' | 'aborted' | 'incomplete';
   durationS: number;
   layers: SimulatedLayer[];
@@ -102,7 +108,7 @@ export async function runSimulate(argv: string[], io: CommandIo): Promise<number
   if (values.journal !== undefined && !values.serve) outputFolderOption('journal', values.journal);
   if (values.serve) return serve(recipe, profile, seed, Number.isFinite(speed) ? speed : 1, values, io);
   if (values.pty !== undefined || values.tcp !== undefined) throw new CliError('--pty and --tcp go with --serve');
-  const report = await simulateRun(recipe, { profile, profileName: profileFile, seed, speed, journalDir: values.journal, io, estimator });
+  const report = await simulateRun(recipe, { profile, profileName: profileFile, seed, speed, journalDir: values.journal, estimator });
   io.out(values.json ? JSON.stringify(report) : formatReport(report));
   return report.outcome === 'complete' ? 0 : 1;
 }
@@ -147,10 +153,11 @@ export interface SimulateOptions {
   seed: number;
   speed: number;
   journalDir?: string | undefined;
-  /** Where the progress bar goes (stderr of a terminal only). */
-  io?: CommandIo;
-  /** Whether to draw a progress bar (default: stderr is a terminal). */
-  progress?: boolean;
+  /**
+   * Where a paced run (finite speed) draws its progress bar, drawn only on a terminal (default
+   * stderr); false: none. A run at full speed draws none: it is over before a bar would tell much.
+   */
+  progress?: ProgressSink | false;
   /** How optical layers are cut (default fit). */
   estimator?: 'plain' | 'fit';
 }
@@ -185,15 +192,13 @@ export async function simulateRun(recipe: ResolvedRecipe, options: SimulateOptio
       journal?.event(event);
     },
   });
-  const showProgress = options.progress ?? (process.stderr.isTTY && options.io !== undefined);
+  const bar = options.progress !== false && Number.isFinite(options.speed) ? createProgressBar(options.progress) : null;
   const total = run.state.plan.durationS;
   await runPaced(run, options.speed, {
-    onChunk: (r) => {
-      if (showProgress) options.io?.err(progressLine(r.state.index + 1, recipe.layers.length, r.nowS, total));
-    },
+    onChunk: (r) => bar?.update(r.nowS / Math.max(1, total), `layer ${Math.min(r.state.index + 1, recipe.layers.length)}/${recipe.layers.length}, ${formatClock(r.nowS)} of ~${formatClock(total)} run time`),
   });
-  if (showProgress) process.stderr.write('\n');
-  const report = buildReport(recipe, chamber.truth(), events, options, run.nowS);
+  bar?.end();
+  const report = buildReport(recipe, chamber.truth(), events, { ...options, estimator }, run.nowS, run.state.targetsNm);
   if (journal) {
     try {
       journal.writeFile('summary.json', `${JSON.stringify(report, null, 2)}\n`);
@@ -205,19 +210,13 @@ export async function simulateRun(recipe: ResolvedRecipe, options: SimulateOptio
   return report;
 }
 
-function progressLine(layer: number, layers: number, nowS: number, totalS: number): string {
-  const width = 30;
-  const fraction = Math.min(1, nowS / Math.max(1, totalS));
-  const filled = Math.round(fraction * width);
-  return `\r[${'#'.repeat(filled)}${'.'.repeat(width - filled)}] layer ${layer}/${layers}, ${formatClock(nowS)} of ~${formatClock(totalS)} run time`;
-}
-
 function buildReport(
   recipe: ResolvedRecipe,
   truth: ChamberTruth,
   events: RunEvent[],
-  options: SimulateOptions,
+  options: SimulateOptions & { estimator: 'fit' | 'plain' },
   nowS: number,
+  targetsNm: readonly number[],
 ): SimulationReport {
   const cuts = new Map<number, Extract<RunEvent, { type: 'cut' }>>();
   const finished = new Map<number, Extract<RunEvent, { type: 'layer-finished' }>>();
@@ -231,13 +230,16 @@ function buildReport(
   }
   const layers = recipe.layers.map((layer, i): SimulatedLayer => {
     const trueNm = truth.layers[i]?.partNm ?? 0;
+    // A compensated run moves the later targets: each layer is judged against the target it was cut to.
+    const targetNm = targetsNm[i] ?? layer.targetNm;
     return {
       number: layer.number,
       material: layer.materialName,
-      targetNm: layer.targetNm,
+      targetNm,
       trueNm,
-      errorNm: trueNm - layer.targetNm,
-      errorPercent: (100 * (trueNm - layer.targetNm)) / layer.targetNm,
+      errorNm: trueNm - targetNm,
+      errorPercent: (100 * (trueNm - targetNm)) / targetNm,
+      opticalErrorPercent: trueOpticalErrorPercent(layer, truth.layers[i], targetNm),
       cutReason: cuts.get(layer.number)?.reason ?? 'not-cut',
       estimatedNm: finished.get(layer.number)?.estimatedNm ?? Number.NaN,
     };
@@ -250,23 +252,27 @@ function buildReport(
     const d = spectrumDeviation(design, deposited, band);
     spectrum = { fromNm: d.fromNm, toNm: d.toNm, stepNm: d.stepNm, maxAbsR: d.maxAbsR, meanAbsR: d.meanAbsR, maxAbsT: d.maxAbsT, meanAbsT: d.meanAbsT };
   }
-  return { recipe: recipe.name, seed: options.seed, profile: options.profileName, outcome, durationS: nowS, layers, spectrum, alerts };
+  return { recipe: recipe.name, seed: options.seed, profile: options.profileName, estimator: options.estimator, outcome, durationS: nowS, layers, spectrum, alerts };
 }
 
 function formatReport(r: SimulationReport): string {
   const rows = [
-    `${r.recipe}: simulated (seed ${r.seed}, ${r.profile}), ${r.outcome}, ${formatClock(r.durationS)} run time`,
+    `${r.recipe}: simulated (seed ${r.seed}, ${r.profile}), optical layers cut by ${ESTIMATOR_WORDS[r.estimator]} (--estimator ${r.estimator}), ${r.outcome}, ${formatClock(r.durationS)} run time`,
     '',
-    ' #  material  target nm    true nm   error nm  error %  cut',
+    ' #  material  target nm    true nm   error nm  error %  n·d err %  cut',
   ];
   for (const l of r.layers) {
     rows.push(
-      `${String(l.number).padStart(2)}  ${l.material.padEnd(8)} ${l.targetNm.toFixed(2).padStart(9)} ${l.trueNm.toFixed(2).padStart(10)} ${l.errorNm.toFixed(2).padStart(10)} ${l.errorPercent.toFixed(2).padStart(8)}  ${wordFor(CUT_REASON_WORDS, l.cutReason)}`,
+      `${String(l.number).padStart(2)}  ${l.material.padEnd(8)} ${l.targetNm.toFixed(2).padStart(9)} ${l.trueNm.toFixed(2).padStart(10)} ${l.errorNm.toFixed(2).padStart(10)} ${l.errorPercent.toFixed(2).padStart(8)} ${l.opticalErrorPercent.toFixed(2).padStart(10)}  ${wordFor(CUT_REASON_WORDS, l.cutReason)}`,
     );
   }
-  const errors = r.layers.map((l) => l.errorPercent);
-  const rms = Math.sqrt(errors.reduce((s, e) => s + e * e, 0) / Math.max(1, errors.length));
-  rows.push('', `rms thickness error ${rms.toFixed(2)} %, worst ${Math.max(...errors.map(Math.abs)).toFixed(2)} %`);
+  const physical = spread(r.layers.map((l) => l.errorPercent));
+  const optical = spread(r.layers.map((l) => l.opticalErrorPercent));
+  rows.push(
+    '',
+    `rms thickness error ${physical.rms.toFixed(2)} %, worst ${physical.worst.toFixed(2)} %; ` +
+      `optical thickness (n·d, what the monitor controls) rms ${optical.rms.toFixed(2)} %, worst ${optical.worst.toFixed(2)} %`,
+  );
   if (r.spectrum) {
     const s = r.spectrum;
     rows.push(
@@ -279,6 +285,15 @@ function formatReport(r: SimulationReport): string {
   }
   if (r.journal) rows.push('', `journal: ${r.journal}`);
   return rows.join('\n');
+}
+
+const ESTIMATOR_WORDS: Record<SimulationReport['estimator'], string> = { fit: 'the model fit', plain: 'the plain rules' };
+
+/** rms and largest magnitude of the finite values (a layer never deposited has none). */
+function spread(values: readonly number[]): { rms: number; worst: number } {
+  const finite = values.filter(Number.isFinite);
+  if (finite.length === 0) return { rms: Number.NaN, worst: Number.NaN };
+  return { rms: Math.sqrt(finite.reduce((s, e) => s + e * e, 0) / finite.length), worst: Math.max(...finite.map(Math.abs)) };
 }
 
 function formatClock(seconds: number): string {

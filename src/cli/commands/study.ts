@@ -14,6 +14,7 @@ import { STRATEGIES } from '../../study/study-run.ts';
 import { runStudy, type StudyReport } from '../../study/study.ts';
 import { CliError, numberOption, outputFileOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
+import { createProgressBar } from '../progress-bar.ts';
 
 const DEFAULT_PROFILE = fileURLToPath(new URL('../../../config/sim/typical.yaml', import.meta.url));
 
@@ -72,17 +73,15 @@ export async function runStudyCommand(argv: string[], io: CommandIo): Promise<nu
   const profile = loadSimProfile(values.profile ?? DEFAULT_PROFILE);
   // A study takes minutes: a plot that could not be written is refused before it starts.
   if (values.plot !== undefined) outputFileOption('plot', values.plot);
-  const tty = process.stderr.isTTY;
+  const bar = createProgressBar();
   const report = await runStudy(recipe, profile, {
     runs,
     strategies,
     firstSeed,
     ...(workers !== undefined ? { workers } : {}),
-    onProgress: (done, total) => {
-      if (tty) io.err(`\r[${'#'.repeat(Math.round((30 * done) / total)).padEnd(30, '.')}] ${done}/${total} runs`);
-    },
+    onProgress: (done, total) => bar.update(done / total, `${done}/${total} runs`),
   });
-  if (tty) process.stderr.write('\n');
+  bar.end();
   if (values.plot !== undefined) {
     writeOutputFile(values.plot, plotStudy(report));
     io.err(`wrote ${values.plot}`);

@@ -54,7 +54,8 @@ export const DesignSchema = z
       .strictObject({ fromNm: positive, toNm: positive })
       .refine((b) => b.fromNm < b.toNm, { message: 'fromNm must be below toNm' })
       .optional(),
-    layers: z.array(DesignLayerSchema).min(1).optional(),
+    /** Absent or empty (with no shorthand either): the bare substrate, for `fringe spectrum`; a recipe refuses it. */
+    layers: z.array(DesignLayerSchema).optional(),
     /** Textbook shorthand such as `(HL)^7 H`, read in deposition order; symbols name materials. */
     shorthand: z
       .strictObject({
@@ -63,8 +64,8 @@ export const DesignSchema = z
       })
       .optional(),
   })
-  .refine((d) => (d.layers === undefined) !== (d.shorthand === undefined), {
-    message: 'give the layers either as `layers` or as `shorthand`, not both or neither',
+  .refine((d) => d.layers === undefined || d.shorthand === undefined, {
+    message: 'give the layers either as `layers` or as `shorthand`, not both (neither: the bare substrate)',
   });
 
 export type Design = z.infer<typeof DesignSchema>;
@@ -127,9 +128,10 @@ export function resolveDesign(
     }
     const d = Object.hasOwn(BUILT_IN, ref) ? BUILT_IN[ref] : Object.hasOwn(library.materials, ref) ? library.materials[ref]?.dispersion : undefined;
     if (d) return { name: ref, dispersion: d };
+    const near = suggest(ref, known);
     violations.push({
       at,
-      message: `unknown material "${ref}"; nearest known: ${suggest(ref, known).join(', ')}`,
+      message: `unknown material "${ref}"; ${near.length > 0 ? `nearest known: ${near.join(', ')}` : 'no known name is near it (fringe materials lists the library)'}`,
     });
     return undefined;
   };

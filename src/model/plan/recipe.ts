@@ -189,6 +189,9 @@ export type RecipeResult =
 export function resolveRecipe(recipe: Recipe, design: ResolvedDesign, library: MaterialLibrary): RecipeResult {
   const violations: { at: string; message: string }[] = [];
   const count = design.layers.length;
+  if (count === 0) {
+    return { ok: false, violations: [{ at: 'design', message: 'the design has no layers, a bare substrate: a recipe deposits at least one (the bare substrate is for fringe spectrum)' }] };
+  }
 
   // Per-layer settings: the defaults, then the widest ranges down to single layers, so the most
   // specific entry wins (an object's key order cannot carry the order written).

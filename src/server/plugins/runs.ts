@@ -5,11 +5,15 @@
  *   GET /api/runs             past runs in the runs folder, newest first
  *   GET /api/runs/:id         one run's header and summary
  *   GET /api/runs/:id/journal the journal, as a download
+ *   GET /api/runs/:id/report  the run's report: one self-contained HTML page (made in a worker
+ *                             thread, one at a time, so a live run's cuts never wait for it)
  * With a viewer token configured each needs it (header `x-fringe-viewer` or query `viewer`).
  */
 import { createReadStream, existsSync } from 'node:fs';
 import type { FastifyInstance, FastifyReply, FastifyRequest } from 'fastify';
 import { mayView } from '../auth.ts';
+import { makeRunReportPage, RunReportError } from '../run-report.ts';
+import { REPORT_CONTENT_SECURITY_POLICY } from '../run-report-page.ts';
 import { listRuns, readJournalHeader, readSummary, runFolder } from '../run-store.ts';
 import { errorSchema, runDetailResponse, runIdParams, runResponse, runsResponse, snapshotResponse, viewerQuery } from '../schemas.ts';
 
@@ -98,6 +102,31 @@ export function runsPlugin(app: FastifyInstance, _options: unknown, done: (error
         .type('application/x-ndjson; charset=utf-8')
         .header('content-disposition', `attachment; filename="${folder.id}-journal.ndjson"`)
         .send(createReadStream(folder.journalFile));
+    },
+  );
+  let reportBusy = false;
+  app.get<{ Params: { id: string } }>(
+    '/runs/:id/report',
+    { schema: { params: runIdParams, querystring: viewerQuery, response: { 401: errorSchema, 404: errorSchema, 409: errorSchema, 503: errorSchema } } },
+    async (request, reply) => {
+      const folder = runFolder(app.fringe.runsDir, request.params.id);
+      if (!folder) return reply.code(404).send(notFound(request.params.id));
+      if (reportBusy) {
+        return reply.code(503).header('retry-after', '5').send({ statusCode: 503, error: 'Service Unavailable', message: 'another report is being made; try again in a few seconds' });
+      }
+      reportBusy = true;
+      try {
+        const page = await makeRunReportPage(folder.dir, folder.id);
+        // Its own policy: the page's one style element by hash, nothing fetched, nothing run (the hook keeps a route's own).
+        return reply.type('text/html; charset=utf-8').header('content-security-policy', REPORT_CONTENT_SECURITY_POLICY).send(page);
+      } catch (error) {
+        if (!(error instanceof RunReportError)) throw error;
+        // Paths stay on the server: the sentence names the run, not the folder.
+        const message = error.message.split(folder.dir).join(`run ${folder.id}`);
+        return reply.code(409).send({ statusCode: 409, error: 'Conflict', message: `no report can be made: ${message}` });
+      } finally {
+        reportBusy = false;
+      }
     },
   );
   done();

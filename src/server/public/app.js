@@ -704,6 +704,7 @@ async function loadHistory() {
           `<td class="num" data-label="Layers">${r.layers === null ? '–' : `${r.layers} of ${r.layersPlanned}`}</td><td class="num" data-label="Run time">${fmt.clock(r.durationS)}</td>` +
           `<td class="num" data-label="rms error" title="over the ${r.layersCutByRule ?? 0} layers a rule cut">${r.rmsErrorPercent === null ? '–' : `${r.rmsErrorPercent.toFixed(2)} %`}${r.rmsTrueErrorPercent === null ? '' : ` <span class="true-error">/ ${r.rmsTrueErrorPercent.toFixed(2)} %</span>`}${r.layersCutByRule === null ? '' : ` <span class="true-error">(${r.layersCutByRule})</span>`}</td>` +
           `<td data-label="Actions"><span class="actions"><button type="button" data-summary="${escapeHtml(r.id)}">Summary</button>${replay}` +
+          (r.replayable ? `<a href="${escapeHtml(withViewer(`/api/runs/${encodeURIComponent(r.id)}/report`))}" target="_blank" rel="noopener">Report</a>` : '') +
           `<a href="${escapeHtml(withViewer(`/api/runs/${encodeURIComponent(r.id)}/journal`))}" download>Journal (${fmt.bytes(r.journalBytes)})</a></span></td></tr>`
         );
       })
