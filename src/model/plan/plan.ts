@@ -492,7 +492,7 @@ function turnKeeping(search: WavelengthSearch, layers: readonly LayerPlan[]): Wa
     const row = byLayer.get(l.number);
     if (!row || l.cut !== 'turning-point') continue;
     const own = search.gridNm.findIndex((w) => Math.abs(w - l.wavelengthNm) < 1e-9);
-    if (own < 0 || !Number.isFinite(row.precisionPercent[own] as number)) {
+    if (own < 0 || !Number.isFinite(row.precisionPercent[own])) {
       byLayer.delete(l.number);
       continue;
     }
