@@ -69,6 +69,8 @@ export interface ChartBand {
   label?: string;
   /** Default 'x': a vertical strip. 'y': a horizontal strip (for example an allowed rate band). */
   axis?: 'x' | 'y';
+  /** Default true; false draws only the label (for example every other of a row of bands, so that neighbours are told apart). */
+  shaded?: boolean;
 }
 
 export interface ChartOptions {
@@ -539,7 +541,7 @@ function renderChartElement(seriesIn: readonly ChartSeries[], optionsIn: ChartOp
         const x0 = Math.max(plotLeft, px(lo));
         const x1 = Math.min(plotRight, px(hi));
         if (x1 <= x0) continue;
-        out.push(`<rect class="band" x="${r2(x0)}" y="${plotTop}" width="${r2(x1 - x0)}" height="${plotH}" fill="${BAND_FILL}" fill-opacity="0.7"/>`);
+        if (b.shaded !== false) out.push(`<rect class="band" x="${r2(x0)}" y="${plotTop}" width="${r2(x1 - x0)}" height="${plotH}" fill="${BAND_FILL}" fill-opacity="0.7"/>`);
         if (b.label !== undefined) {
           bandLabels.push(
             `<text class="band-label" x="${r2(x0 + 5)}" y="${plotBottom - 7}" font-size="11" fill="${MUTED_TEXT}">${escapeXml(b.label)}</text>`,
