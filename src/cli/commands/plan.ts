@@ -2,12 +2,16 @@
  * `fringe plan RECIPE`: what every signal should do, layer by layer, and how precisely each
  * layer can be cut — as a table, JSON, and/or an SVG plot of the whole run's monitor signal.
  */
+import { dirname, relative, resolve } from 'node:path';
+import { Document } from 'yaml';
 import { parseCommandArgs } from '../parse-command-args.ts';
+import { readYamlFile } from '../../config/read-config.ts';
+import { proposeStrategy, type Proposal } from '../../model/plan/propose.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import { planRun, type LayerPlan, type RunPlan } from '../../model/plan/plan.ts';
 import { renderLineChart, type ChartBand, type ChartLegendEntry, type ChartMarker, type ChartPoint } from '../../report/index.ts';
-import { CliError, numberOption, plotFileOption, writeOutputFile } from '../cli-error.ts';
+import { CliError, numberOption, outputFileOption, plotFileOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 
 export const planUsage = `Usage: fringe plan RECIPE [options]
@@ -21,6 +25,9 @@ the expected precision of the cut, warnings, a suggested monitor wavelength, and
   --sample-rate HZ      optical readings per second (default: the recipe's, else 10)
   --whole-run           also suggest one wavelength plan for the run with few changes
   --no-suggest          skip the wavelength search
+  --propose FILE.yaml   search, layer by layer, the cut (crystal, level or turn) and the monitor
+                        wavelength that lower the run's expected error (the stack figures, Σ %²),
+                        write the recipe with them to FILE.yaml and print what changed and why
   --materials FILE      material library (default: the shipped config/materials.yaml)
 `;
 
@@ -36,6 +43,7 @@ export function runPlan(argv: string[], io: CommandIo): number {
       'sample-rate': { type: 'string' },
       'whole-run': { type: 'boolean' },
       'no-suggest': { type: 'boolean' },
+      propose: { type: 'string' },
       materials: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
     },
@@ -54,7 +62,20 @@ export function runPlan(argv: string[], io: CommandIo): number {
   if (sampleRateHz !== undefined && !(sampleRateHz > 0 && sampleRateHz <= 1e5)) {
     throw new CliError(`--sample-rate must be above 0 and at most 100000 Hz, got ${sampleRateHz}`);
   }
+  if (values.propose !== undefined && !/\.ya?ml$/i.test(values.propose)) {
+    throw new CliError(`--propose writes a recipe: name a file ending in .yaml, got "${values.propose}"`);
+  }
+  if (values.propose !== undefined && (values.json || values.plot !== undefined || noisePercent !== undefined || sampleRateHz !== undefined)) {
+    throw new CliError('--propose plans with the recipe\'s own monitor and prints its own report: drop --json, --plot, --noise and --sample-rate');
+  }
+  const proposeFile = values.propose === undefined ? undefined : outputFileOption('propose', values.propose);
   const recipe = loadRecipe(positionals[0] as string, loadMaterialLibrary(values.materials));
+  if (proposeFile !== undefined) {
+    const proposal = proposeStrategy(recipe);
+    writeOutputFile(proposeFile, proposedRecipeText(positionals[0] as string, proposeFile, proposal));
+    io.out(formatProposal(proposal, proposeFile));
+    return 0;
+  }
   const plan = planRun(recipe, {
     ...(noisePercent !== undefined ? { noise: noisePercent / 100 } : {}),
     ...(sampleRateHz !== undefined ? { sampleRateHz } : {}),
@@ -233,4 +254,34 @@ function plotRun(plan: RunPlan): string {
     // One chip needs no band: the whole plot is it.
     ...(bands.length > 1 ? { bands } : {}),
   });
+}
+
+/** The recipe file as written, with the proposal's layer settings over it (single-layer keys win over ranges). */
+function proposedRecipeText(recipeFile: string, outFile: string, proposal: Proposal): string {
+  const raw = readYamlFile(recipeFile) as { design: unknown; layers?: Record<string, Record<string, unknown>> };
+  const layers: Record<string, Record<string, unknown>> = { ...raw.layers };
+  for (const c of proposal.changes) {
+    layers[String(c.layer)] = { ...layers[String(c.layer)], cut: c.to.cut, wavelengthNm: c.to.wavelengthNm };
+  }
+  // A design named by path is found from the new file's folder.
+  const design = typeof raw.design === 'string' ? relative(dirname(resolve(outFile)), resolve(dirname(recipeFile), raw.design)) : raw.design;
+  const doc = new Document({ ...raw, design, layers });
+  doc.commentBefore = ` Proposed by fringe plan --propose from ${recipeFile}: ${proposal.changes.length} layers changed;\n run cost (Σ stack figure², %²) ${proposal.costBefore.toFixed(3)} → ${proposal.costAfter.toFixed(3)}.`;
+  return String(doc);
+}
+
+function formatProposal(p: Proposal, file: string): string {
+  const rows = [
+    `${p.plan.recipe}: ${p.changes.length} of ${p.plan.layers.length} layers changed; wrote ${file}`,
+    `run cost (the layers' stack figures squared and summed, %²): ${p.costBefore.toFixed(3)} → ${p.costAfter.toFixed(3)}`,
+  ];
+  if (p.changes.length > 0) rows.push('');
+  for (const c of p.changes) {
+    rows.push(
+      `  layer ${c.layer}: ${CUT_NAMES[c.from.cut]} at ${c.from.wavelengthNm} nm → ${CUT_NAMES[c.to.cut]}${c.to.cut === 'crystal' ? '' : ` at ${c.to.wavelengthNm} nm`}: ` +
+        `its stack figure ${fixed(c.beforePercent, 3)} % → ${fixed(c.afterPercent, 3)} %, the run's cost ${fixed(c.costBefore, 3)} → ${fixed(c.costAfter, 3)}`,
+    );
+  }
+  rows.push('', 'The figures are the plan\'s own error model; check the proposal with fringe study before relying on it.');
+  return rows.join('\n');
 }
