@@ -175,8 +175,10 @@ function plotSpectrum(
     const series: ChartSeries[] = [{ label: quantity === 'R' ? 'reflectance R' : 'transmittance T', x: grid, y: values, color: '#1d2733', style: 'solid' }];
     const points: ChartPoint[] = [];
     for (const t of tolerances.filter((tol) => tol.quantity === quantity)) {
-      const inside = grid.filter((w) => w >= t.fromNm && w <= t.toNm);
-      const r = marginOf(t, inside, inside.map((w) => values[grid.indexOf(w)] as number));
+      // Indices, not a search per point: the grid may hold a million wavelengths.
+      const at = Array.from(grid.keys()).filter((i) => (grid[i] as number) >= t.fromNm && (grid[i] as number) <= t.toNm);
+      const inside = at.map((i) => grid[i] as number);
+      const r = marginOf(t, inside, at.map((i) => values[i] as number));
       const verdict = inside.length === 0 ? '' : r.pass ? ' (met)' : ' (missed)';
       const range = t.fromNm === t.toNm ? `at ${t.fromNm} nm` : `${t.fromNm}–${t.toNm} nm`;
       const bound = (b: number | undefined, sign: string): void => {
