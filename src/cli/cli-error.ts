@@ -104,3 +104,11 @@ export function outputFileOption(name: string, file: string): string {
   }
   return file;
 }
+
+/** The SVG file a `--plot FILE.svg` option names: the name must say what is written, then as {@link outputFileOption}. */
+export function plotFileOption(file: string): string {
+  if (file.trim() !== '' && !/\.svg$/i.test(file)) {
+    throw new CliError(`--plot writes an SVG drawing: name a file ending in .svg, got "${file}"`);
+  }
+  return outputFileOption('plot', file);
+}

@@ -1,9 +1,11 @@
-export { CHART_PALETTE, escapeXml, formatTick, niceTicks, renderLineChart } from './svg-chart.ts';
+export { CHART_PALETTE, escapeXml, formatTick, niceTicks, renderChartStack, renderLineChart } from './svg-chart.ts';
 export type {
   ChartBand,
   ChartHLine,
+  ChartLegendEntry,
   ChartMarker,
   ChartOptions,
+  ChartPanel,
   ChartPoint,
   ChartSeries,
   LineStyle,

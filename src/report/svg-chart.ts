@@ -32,6 +32,20 @@ export interface ChartSeries {
 export interface ChartMarker {
   x: number;
   label?: string;
+  /** Default solid. */
+  style?: LineStyle;
+  /** Default the accent colour ("act now"). */
+  color?: string;
+}
+
+/** A legend entry for something that is not a series: a kind of marker or of point. */
+export interface ChartLegendEntry {
+  label: string;
+  /** A vertical marker line (with `style` and `color` as the markers it names), or a point shape. */
+  kind: 'marker' | 'point' | 'band';
+  style?: LineStyle;
+  color?: string;
+  shape?: ChartPoint['shape'];
 }
 
 /** A single marked point (for example a turning point). Default shape: tick. */
@@ -55,6 +69,8 @@ export interface ChartBand {
   label?: string;
   /** Default 'x': a vertical strip. 'y': a horizontal strip (for example an allowed rate band). */
   axis?: 'x' | 'y';
+  /** Default true; false draws only the label (for example every other of a row of bands, so that neighbours are told apart). */
+  shaded?: boolean;
 }
 
 export interface ChartOptions {
@@ -72,6 +88,13 @@ export interface ChartOptions {
   yRange?: [number, number];
   /** y values are fractions 0..1, shown as percent tick labels. Default false. */
   yPercent?: boolean;
+  /**
+   * A logarithmic y axis (decades, with 2 and 5 between them over a short span). Values ≤ 0
+   * cannot be drawn on it and break the line like a non-finite value. Default false.
+   */
+  yLog?: boolean;
+  /** Legend entries after the series': what the markers, points and bands mean. */
+  legend?: ChartLegendEntry[];
   markers?: ChartMarker[];
   points?: ChartPoint[];
   /** Ids inside the document start with this (default "fringe-plot"): give each chart its own when several share one HTML page. */
@@ -298,6 +321,92 @@ function checkPositive(name: string, v: number | undefined, fallback: number): n
  * differ.
  */
 export function renderLineChart(series: readonly ChartSeries[], options: ChartOptions): string {
+  return `<?xml version="1.0" encoding="UTF-8"?>\n${renderChartElement(series, options, { y: 0, id: 'fringe-plot-clip' })}`;
+}
+
+/** One chart in a stack of panels (see {@link renderChartStack}). */
+export interface ChartPanel {
+  series: readonly ChartSeries[];
+  options: ChartOptions;
+}
+
+/**
+ * Several charts one above the other in one standalone SVG document, each with its own axes
+ * and scale (for example R and T of a coating, each scaled to its own data). The document is
+ * as wide as the widest panel.
+ */
+export function renderChartStack(panels: readonly ChartPanel[]): string {
+  if (panels.length === 0) throw new RangeError('renderChartStack needs at least one panel');
+  const heights = panels.map((p) => checkPositive('height', p.options.height, 480));
+  const width = Math.max(...panels.map((p) => checkPositive('width', p.options.width, 800)));
+  const height = heights.reduce((a, b) => a + b, 0);
+  const out = [
+    '<?xml version="1.0" encoding="UTF-8"?>',
+    `<svg xmlns="http://www.w3.org/2000/svg" version="1.1" width="${width}" height="${height}" viewBox="0 0 ${width} ${height}" font-family="${escapeXml(FONT)}">`,
+    `<title>${escapeXml(panels.map((p) => p.options.title).join(' / '))}</title>`,
+    `<rect width="${width}" height="${height}" fill="#ffffff"/>`,
+  ];
+  let y = 0;
+  panels.forEach((p, i) => {
+    out.push(renderChartElement(p.series, p.options, { y, id: `fringe-plot-clip-${i + 1}` }).trimEnd());
+    y += heights[i] as number;
+  });
+  out.push('</svg>');
+  return out.join('\n') + '\n';
+}
+
+const log10OrNaN = (v: number): number => (v > 0 ? Math.log10(v) : Number.NaN);
+
+/** Decade ticks of a log10 range (with 2× and 5× when it spans under three decades), as log10 values. */
+function logTicks(range: Range): NiceTicks {
+  const ticks: number[] = [];
+  const mantissas = range.hi - range.lo < 3 ? [1, 2, 5] : [1];
+  for (let e = Math.floor(range.lo) - 1; e <= Math.ceil(range.hi); e++) {
+    for (const m of mantissas) {
+      const t = Math.log10(m) + e;
+      if (t >= range.lo - 1e-9 && t <= range.hi + 1e-9) ticks.push(t);
+    }
+  }
+  return { step: Number.NaN, ticks };
+}
+
+/** A log tick's label: 1, 2 or 5 times a power of ten, in plain decimals where they stay short. */
+function formatLogTick(log: number, percent: boolean): string {
+  const v = Number((10 ** log * (percent ? 100 : 1)).toPrecision(1));
+  const text = v >= 1e-4 && v < 1e7 ? String(v) : v.toExponential(0);
+  return percent ? `${text}%` : text;
+}
+
+/** Greedy word wrap to lines of at most `maxWidth` px (a single long word stays whole). */
+function wrapWords(text: string, maxWidth: number, fontSize: number): string[] {
+  const lines: string[] = [];
+  let line = '';
+  for (const word of text.split(/\s+/).filter((w) => w !== '')) {
+    const candidate = line === '' ? word : `${line} ${word}`;
+    if (line !== '' && textWidth(candidate, fontSize) > maxWidth) {
+      lines.push(line);
+      line = word;
+    } else {
+      line = candidate;
+    }
+  }
+  if (line !== '' || lines.length === 0) lines.push(line);
+  return lines;
+}
+
+function renderChartElement(seriesIn: readonly ChartSeries[], optionsIn: ChartOptions, place: { y: number; id: string }): string {
+  // A log axis is drawn as a linear axis of log10 y: everything on y is mapped once, here.
+  const yLog = optionsIn.yLog === true;
+  const series: readonly ChartSeries[] = yLog ? seriesIn.map((s) => ({ ...s, y: Array.from(s.y, log10OrNaN) })) : seriesIn;
+  const options: ChartOptions = yLog
+    ? {
+        ...optionsIn,
+        ...(optionsIn.yRange ? { yRange: optionsIn.yRange.map(log10OrNaN) as [number, number] } : {}),
+        ...(optionsIn.points ? { points: optionsIn.points.map((p) => ({ ...p, y: log10OrNaN(p.y) })) } : {}),
+        ...(optionsIn.hLines ? { hLines: optionsIn.hLines.map((h) => ({ ...h, y: log10OrNaN(h.y) })) } : {}),
+        ...(optionsIn.bands ? { bands: optionsIn.bands.map((b) => (b.axis === 'y' ? { ...b, from: log10OrNaN(b.from), to: log10OrNaN(b.to) } : b)) } : {}),
+      }
+    : optionsIn;
   const width = checkPositive('width', options.width, 800);
   const height = checkPositive('height', options.height, 480);
   const percent = options.yPercent === true;
@@ -342,14 +451,17 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
   const yr = yRange;
 
   // Layout. Fonts: title 15 bold, axis labels 13, ticks and legend 12, annotations 11.
-  const titleBaseline = 24;
-  const legendItems = series.map((s) => ({ label: s.label, width: 30 + 7 + textWidth(s.label, 12) + 20 }));
+  const extras = options.legend ?? [];
+  const legendItems = [...series.map((s) => s.label), ...extras.map((e) => e.label)].map((label) => ({ label, width: 30 + 7 + textWidth(label, 12) + 20 }));
   const yTargetGuess = Math.max(2, Math.round((height - 140) / 55));
-  const yTicks = ticksInside(yr, yTargetGuess);
-  const yTickLabels = yTicks.ticks.map((t) => formatTick(t, yTicks.step, percent));
+  const yTicks = yLog ? logTicks(yr) : ticksInside(yr, yTargetGuess);
+  const yTickLabels = yTicks.ticks.map((t) => (yLog ? formatLogTick(t, percent) : formatTick(t, yTicks.step, percent)));
   const maxYLabelWidth = Math.max(0, ...yTickLabels.map((t) => textWidth(t, 12)));
   const plotLeft = Math.round(24 + maxYLabelWidth + 12);
   const plotRightGuess = width - 24;
+  // A title wider than the chart is wrapped onto more lines rather than cut off at the edge.
+  const titleLines = wrapWords(options.title, width - plotLeft - 16, 15);
+  const titleBaseline = 24 + (titleLines.length - 1) * 19;
 
   // Legend: one row at natural widths if it fits; otherwise a grid of equal columns, so wrapped
   // rows line up.
@@ -398,11 +510,11 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
   const inX = (x: number): boolean => Number.isFinite(x) && x >= xr.lo && x <= xr.hi;
   const inY = (y: number): boolean => Number.isFinite(y) && y >= yr.lo && y <= yr.hi;
 
-  const clipId = `${escapeXml(options.idPrefix ?? 'fringe-plot')}-clip`;
+  // Ids unique within the document: a panel's own, under the chart's prefix when several charts share a page.
+  const clipId = options.idPrefix === undefined ? place.id : `${escapeXml(options.idPrefix)}-${place.id}`;
   const out: string[] = [];
-  out.push('<?xml version="1.0" encoding="UTF-8"?>');
   out.push(
-    `<svg xmlns="http://www.w3.org/2000/svg" version="1.1" width="${width}" height="${height}" viewBox="0 0 ${width} ${height}" font-family="${escapeXml(FONT)}">`,
+    `<svg xmlns="http://www.w3.org/2000/svg" version="1.1"${place.y !== 0 ? ` y="${place.y}"` : ''} width="${width}" height="${height}" viewBox="0 0 ${width} ${height}" font-family="${escapeXml(FONT)}">`,
   );
   out.push(`<title>${escapeXml(options.title)}</title>`);
   out.push(
@@ -433,7 +545,7 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
         const x0 = Math.max(plotLeft, px(lo));
         const x1 = Math.min(plotRight, px(hi));
         if (x1 <= x0) continue;
-        out.push(`<rect class="band" x="${r2(x0)}" y="${plotTop}" width="${r2(x1 - x0)}" height="${plotH}" fill="${BAND_FILL}" fill-opacity="0.7"/>`);
+        if (b.shaded !== false) out.push(`<rect class="band" x="${r2(x0)}" y="${plotTop}" width="${r2(x1 - x0)}" height="${plotH}" fill="${BAND_FILL}" fill-opacity="0.7"/>`);
         if (b.label !== undefined) {
           bandLabels.push(
             `<text class="band-label" x="${r2(x0 + 5)}" y="${plotBottom - 7}" font-size="11" fill="${MUTED_TEXT}">${escapeXml(b.label)}</text>`,
@@ -516,11 +628,12 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
     for (const m of markers) {
       if (!inX(m.x)) continue;
       const x = r2(px(m.x));
-      shapes.push(`<line class="marker" x1="${x}" y1="${plotTop}" x2="${x}" y2="${plotBottom}"/>`);
+      const look = `${m.color !== undefined ? ` stroke="${escapeXml(m.color)}"` : ''}${m.style !== undefined && m.style !== 'solid' ? ` ${strokeStyleAttrs(m.style, 1.5)}` : ''}`;
+      shapes.push(`<line class="marker" x1="${x}" y1="${plotTop}" x2="${x}" y2="${plotBottom}"${look}/>`);
       if (m.label !== undefined) {
         // Label to the right of the line, or to its left when it would run off the plot.
         const fits = px(m.x) + 6 + textWidth(m.label, 11) <= plotRight;
-        annotate('marker-label', px(m.x) + (fits ? 5 : -5), plotTop + 14, fits ? 'start' : 'end', ACCENT, m.label);
+        annotate('marker-label', px(m.x) + (fits ? 5 : -5), plotTop + 14, fits ? 'start' : 'end', m.color ?? ACCENT, m.label);
       }
     }
     shapes.push('</g>');
@@ -581,15 +694,26 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
   out.push(
     `<text class="axis-label axis-label-y" x="${yLabelX}" y="${yLabelY}" transform="rotate(-90 ${yLabelX} ${yLabelY})" text-anchor="middle" font-size="13" fill="${INK}">${escapeXml(options.yLabel)}</text>`,
   );
-  out.push(`<text class="chart-title" x="${plotLeft}" y="${titleBaseline}" font-size="15" font-weight="bold" fill="${INK}">${escapeXml(options.title)}</text>`);
+  const titleText =
+    titleLines.length === 1
+      ? escapeXml(options.title)
+      : titleLines.map((line, i) => `<tspan x="${plotLeft}" dy="${i === 0 ? 0 : 19}">${escapeXml(line)}</tspan>`).join('');
+  out.push(`<text class="chart-title" x="${plotLeft}" y="24" font-size="15" font-weight="bold" fill="${INK}">${titleText}</text>`);
 
   // Legend: a line sample in each series' colour and dash style, then its name.
-  if (series.length > 0) {
+  if (legendItems.length > 0) {
     out.push('<g class="legend" font-size="12">');
     let index = 0;
     legendRows.forEach((row, r) => {
       const y = legendTop + r * legendRowHeight;
       for (const item of row) {
+        const extra = extras[index - series.length];
+        if (extra !== undefined) {
+          out.push(legendSample(extra, item.x, y));
+          out.push(`<text class="legend-label" x="${r2(item.x + 37)}" y="${y + 4}" fill="${INK}">${escapeXml(item.label)}</text>`);
+          index++;
+          continue;
+        }
         const style = styles[index] ?? 'solid';
         const lw = series[index]?.lineWidth ?? 1.6;
         out.push(
@@ -604,4 +728,22 @@ export function renderLineChart(series: readonly ChartSeries[], options: ChartOp
 
   out.push('</svg>');
   return out.join('\n') + '\n';
+}
+
+/** The legend's sample of a marker (a short vertical line), a point shape or a band (a shaded box). */
+function legendSample(entry: ChartLegendEntry, x: number, y: number): string {
+  const cx = x + 15;
+  if (entry.kind === 'marker') {
+    const color = escapeXml(entry.color ?? ACCENT);
+    return `<line class="legend-sample legend-marker" x1="${r2(cx)}" y1="${y - 7}" x2="${r2(cx)}" y2="${y + 7}" stroke="${color}" ${strokeStyleAttrs(entry.style ?? 'solid', 1.5)}/>`;
+  }
+  if (entry.kind === 'band') {
+    return `<rect class="legend-sample legend-band" x="${r2(x)}" y="${y - 6}" width="30" height="12" fill="${BAND_FILL}" stroke="${AXIS}" stroke-width="0.5"/>`;
+  }
+  const shape = entry.shape ?? 'tick';
+  if (shape === 'circle') return `<circle class="legend-sample legend-point" cx="${r2(cx)}" cy="${y}" r="3.5" fill="#ffffff" stroke="${INK}" stroke-width="1.5"/>`;
+  if (shape === 'triangle') {
+    return `<path class="legend-sample legend-point" d="M${r2(cx)} ${y - 4.5}L${r2(cx + 4.5)} ${y + 3.5}L${r2(cx - 4.5)} ${y + 3.5}Z" fill="${INK}"/>`;
+  }
+  return `<line class="legend-sample legend-point" x1="${r2(cx)}" y1="${y - 6}" x2="${r2(cx)}" y2="${y + 6}" stroke="${INK}" stroke-width="1.5"/>`;
 }

@@ -7,9 +7,10 @@ import { availableParallelism } from 'node:os';
 import { Worker } from 'node:worker_threads';
 import type { SimProfile } from '../../sim/index.ts';
 import { spectrumDeviation } from '../model/design/spectrum-deviation.ts';
+import { describeTolerance, wilsonInterval } from '../model/design/tolerances.ts';
 import { planRun } from '../model/plan/plan.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
-import { STRATEGIES, type StudyRunResult } from './study-run.ts';
+import { strategyProblem, type StudyRunResult } from './study-run.ts';
 
 export interface StudyOptions {
   runs: number;
@@ -48,11 +49,22 @@ export interface StrategyStatistics {
   /** The same over the layers of each cut mode (the plan's): physical and optical RMS, %. */
   byCut: Record<string, { layers: number; rmsPercent: number; opticalRmsPercent: number }>;
   spectrum: { meanMaxAbsT: number; worstMaxAbsT: number; meanMeanAbsT: number };
+  /**
+   * Percentage of the runs that finished with a stack meeting every tolerance of the design
+   * (null when the design has none); an unfinished run counts as failed.
+   */
+  yieldPercent: number | null;
+  /** The yield's binomial 95 % interval (Wilson score; see `wilsonInterval`), %. */
+  yieldIntervalPercent: { low: number; high: number; method: 'Wilson score, 95 %' } | null;
+  /** Per design tolerance: the worst margin over the runs (pp, negative when missed) and the share of runs meeting it, %. */
+  tolerances: { tolerance: string; worstMarginPp: number; meetPercent: number }[];
 }
 
 export interface StudyReport {
   recipe: string;
   runs: number;
+  /** The recipe's compensation settings, which the compensated strategies use (absent: the defaults). */
+  compensation?: NonNullable<ResolvedRecipe['compensation']>;
   /** The design's T over its band (2 nm steps), beside each run's `depositedT`. */
   band: { fromNm: number; stepNm: number; designT: number[] } | null;
   strategies: StrategyStatistics[];
@@ -61,7 +73,8 @@ export interface StudyReport {
 
 export async function runStudy(recipe: ResolvedRecipe, profile: SimProfile, options: StudyOptions): Promise<StudyReport> {
   for (const s of options.strategies) {
-    if (!STRATEGIES[s]) throw new Error(`unknown strategy "${s}"; the strategies are ${Object.keys(STRATEGIES).join(', ')}`);
+    const problem = strategyProblem(recipe, s);
+    if (problem !== undefined) throw new Error(problem);
   }
   const first = options.firstSeed ?? 1;
   const tasks = options.strategies.flatMap((strategy) => Array.from({ length: options.runs }, (_, i) => ({ strategy, seed: first + i })));
@@ -93,6 +106,7 @@ export async function runStudy(recipe: ResolvedRecipe, profile: SimProfile, opti
   return {
     recipe: recipe.name,
     runs: options.runs,
+    ...(recipe.compensation ? { compensation: recipe.compensation } : {}),
     band: band
       ? { fromNm: band.fromNm, stepNm: 2, designT: Array.from(spectrumDeviation(recipe.design.stack, recipe.design.stack, band, { stepNm: 2 }).design.T) }
       : null,
@@ -124,6 +138,9 @@ function summarise(
     };
   });
   const all = runs.flatMap((r) => r.errorPercent);
+  const tolerances = recipe.design.tolerances;
+  const met = runs.filter((r) => r.meetsTolerances).length;
+  const interval = wilsonInterval(met, runs.length);
   const maxT = runs.map((r) => r.maxAbsT);
   return {
     strategy,
@@ -151,6 +168,14 @@ function summarise(
       worstMaxAbsT: Math.max(...maxT),
       meanMeanAbsT: runs.reduce((s, r) => s + r.meanAbsT, 0) / Math.max(1, runs.length),
     },
+    yieldPercent: tolerances.length > 0 && runs.length > 0 ? (100 * met) / runs.length : null,
+    yieldIntervalPercent:
+      tolerances.length > 0 && runs.length > 0 ? { low: 100 * interval.low, high: 100 * interval.high, method: 'Wilson score, 95 %' } : null,
+    tolerances: tolerances.map((t, k) => ({
+      tolerance: describeTolerance(t),
+      worstMarginPp: Math.min(...runs.map((r) => r.toleranceMarginsPp[k] ?? Number.NEGATIVE_INFINITY)),
+      meetPercent: (100 * runs.filter((r) => r.complete && (r.toleranceMarginsPp[k] ?? -1) >= 0).length) / Math.max(1, runs.length),
+    })),
   };
 }
 

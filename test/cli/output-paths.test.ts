@@ -63,7 +63,8 @@ describe('a folder option naming a file', () => {
 
 describe('an output file that cannot be written', () => {
   it('is refused naming it, in plain words: a folder in its place, a file on its path', async () => {
-    const dir = temp();
+    const dir = join(temp(), 'named-like-a-plot.svg');
+    mkdirSync(dir);
     const file = join(dir, 'a-file');
     writeFileSync(file, 'x');
     expectOneSentence(await run('spectrum', ar4Design, '--plot', dir), 'spectrum', `--plot ${dir}: it is a folder`);

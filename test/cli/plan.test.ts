@@ -46,11 +46,26 @@ describe('fringe plan', () => {
       const row = lines.find((line) => new RegExp(`^\\s*${n} +(SiO2|TiO2) `).test(line));
       expect(row, `layer ${n}`).toBeDefined();
     }
-    // The edge recipe already steers round the plan's warnings; the mirror's last layers keep theirs.
-    expect(r.out).not.toContain('Warnings:');
+    // The edge recipe steers round the plan's warnings but one (layer 8's figure with the layers
+    // below); the mirror's last layers keep theirs.
+    expect(r.out.slice(r.out.indexOf('Warnings:')).match(/\[[a-z-]+\]/g)).toEqual(['[imprecise-cut]']);
     const m = await run('plan', mirror, '--no-suggest');
     expect(m.out).toContain('Warnings:');
-    expect(m.out).toMatch(/layer 19: .*\[small-swing\]/);
+    expect(m.out).toMatch(/layer 19: [^[]*\[small-swing\]/);
+  });
+
+  it('fits its table and warnings in 120 columns, explains the terse columns under it, and prints no −0', async () => {
+    for (const file of [edge, mirror, ar4]) {
+      const r = await run('plan', file);
+      const lines = r.out.split('\n');
+      for (const line of lines) expect(line.length, line).toBeLessThanOrEqual(120);
+      expect(r.out).not.toMatch(/-0\.0*(?![0-9]*[1-9])\b/);
+      const header = lines.findIndex((l) => l.trimStart().startsWith('# material'));
+      const notes = lines.slice(header).join('\n');
+      expect(notes).toMatch(/^±nm stack: the same with the layer's index and the layers below it on the chip uncertain/m);
+      expect(notes).toMatch(/^TPs: turning points \(extrema of the signal\) the layer passes before its cut/m);
+      expect(notes).toMatch(/^best λ \(±%\): the monitor wavelength where the fit would cut this layer most precisely/m);
+    }
   });
 
   it('--plot writes an SVG of the run', async () => {
@@ -62,6 +77,22 @@ describe('fringe plan', () => {
     expect(svg.startsWith('<?xml') || svg.startsWith('<svg')).toBe(true);
     expect(svg).toContain('</svg>');
     expect(svg).toContain('Edge filter 600 nm');
+    // A legend for what the marks mean, the chips told apart, wavelength changes marked, and an
+    // axis that names the quantity (the edge recipe watches T, at 600 nm and at 480 and 490 nm).
+    const legend = [...svg.matchAll(/class="legend-label"[^>]*>([^<]+)</g)].map((m) => m[1]);
+    expect(legend).toEqual(['predicted monitor signal', 'cut (layer number)', 'turning point', 'monitor wavelength changes', 'witness chip (a fresh one starts bare)']);
+    expect([...svg.matchAll(/class="band-label"[^>]*>([^<]+)</g)].map((m) => m[1])).toEqual(['chip A', 'chip B']);
+    expect([...svg.matchAll(/class="point-label"[^>]*>([^<]+)</g)].map((m) => m[1])).toEqual(['480 nm', '600 nm', '490 nm', '600 nm']);
+    expect(svg).toMatch(/class="axis-label axis-label-y"[^>]*>T at each layer&apos;s monitor wavelength \(%\)</);
+    const mirrorPlot = join(mkdtempSync(join(tmpdir(), 'fringe-plan-plot-')), 'mirror.svg');
+    await run('plan', mirror, '--plot', mirrorPlot, '--no-suggest');
+    expect(readFileSync(mirrorPlot, 'utf8')).toMatch(/class="axis-label axis-label-y"[^>]*>T at 1064 nm \(%\)</);
+  });
+
+  it('--plot refuses a file name not ending in .svg, before any work', async () => {
+    const r = await run('plan', edge, '--plot', join(tmpdir(), 'run.png'));
+    expect(r.code).toBe(2);
+    expect(r.err.trim()).toMatch(/^.*--plot writes an SVG drawing: name a file ending in \.svg, got ".*run\.png"$/);
   });
 
   it('--noise 0.2 raises every optical fit precision by more than 1× and at most 2×; the plain rules scale exactly', async () => {

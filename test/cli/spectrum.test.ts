@@ -57,6 +57,59 @@ describe('fringe spectrum', () => {
     expect(svg).toContain('one quarter-wave');
   });
 
+  it('marks the tolerances on the table and gives the verdict with the worst margin', async () => {
+    // The quarter-wave's R = 1.2601 % at 550 nm (above); at 500 and 600 nm it is higher.
+    const file = tempDesign(`${quarterWave}tolerances:
+  - { fromNm: 540, toNm: 560, quantity: R, atMostPercent: 1.3 }
+  - { fromNm: 550, toNm: 550, quantity: T, atLeastPercent: 99 }
+  - { fromNm: 550, toNm: 550, quantity: R, atMostPercent: 5, angleDeg: 45, pol: s }
+`);
+    const r = await run('spectrum', file, '--from', '500', '--to', '600', '--step', '50');
+    expect(r.code).toBe(0);
+    const rows = r.out.split('\n');
+    expect(rows.find((l) => l.trim().startsWith('500'))).not.toMatch(/#1/);
+    expect(rows.find((l) => l.trim().startsWith('550'))).toMatch(/#1 ok \+0\.040 pp; #2 MISS −0\.260 pp/);
+    expect(r.out).toMatch(/Tolerances: FAIL, 2 of 3 met; worst margin −0\.260 pp/);
+    expect(r.out).toMatch(/2\. T ≥ 99 % at 550 nm, 0°, unpolarised: MISSED, worst margin −0\.260 pp at 550 nm \(T 98\.740 %\)/);
+    // The third is judged at its own angle and polarisation, and says so.
+    expect(r.out).toMatch(/3\. R ≤ 5 % at 550 nm, 45°, s-polarised: met.*judged under its own conditions/);
+    const json = JSON.parse((await run('spectrum', file, '--wavelength', '550', '--json')).out) as { tolerances: { pass: boolean; each: { pass: boolean }[] } };
+    expect(json.tolerances.pass).toBe(false);
+    expect(json.tolerances.each.map((t) => t.pass)).toEqual([true, false, true]);
+  });
+
+  it('--front shows the coated face alone: bare glass reflects R_f, not 2R_f/(1+R_f)', async () => {
+    // Fresnel, ((1.52 − 1)/2.52)² = 4.2580 %; with the incoherent back face 8.1683 % (derived).
+    const glass = tempDesign(`formatVersion: 1
+name: bare glass
+substrate: { material: { n: 1.52 } }
+layers: [{ material: { n: 1.52 }, thicknessNm: 1 }]
+`);
+    const part = JSON.parse((await run('spectrum', glass, '--wavelength', '550', '--json')).out) as { R: number[] };
+    const front = JSON.parse((await run('spectrum', glass, '--wavelength', '550', '--json', '--front')).out) as { R: number[] };
+    expect(front.R[0]).toBeCloseTo(((1.52 - 1) / 2.52) ** 2, 12);
+    expect(part.R[0]).toBeCloseTo((2 * ((1.52 - 1) / 2.52) ** 2) / (1 + ((1.52 - 1) / 2.52) ** 2), 12);
+  });
+
+  it('--plot draws R and T each scaled to its data with the tolerances, and prints the table only with --table', async () => {
+    const dir = mkdtempSync(join(tmpdir(), 'fringe-plot-'));
+    const plot = join(dir, 'ar.svg');
+    const ar = join(root, 'config/designs/ar4-visible.yaml');
+    const r = await run('spectrum', ar, '--front', '--plot', plot);
+    expect(r.code).toBe(0);
+    expect(r.out).not.toMatch(/λ \(nm\)/);
+    expect(r.out).toMatch(/^Tolerances: PASS/);
+    const svg = readFileSync(plot, 'utf8');
+    // Two panels; the reflectance axis reaches no further than the AR's data and bounds (< 1 %).
+    expect(svg.match(/class="chart-title"/g)).toHaveLength(2);
+    const rPanel = svg.slice(0, svg.indexOf('Four-layer visible AR on N-BK7: T'));
+    const rTicks = [...rPanel.matchAll(/class="tick-label tick-y"[^>]*>([^<]+)%</g)].map((m) => Number(m[1]));
+    expect(Math.max(...rTicks)).toBeLessThan(1);
+    expect(svg).toContain('R ≤ 0.6 %, 420–680 nm (met)');
+    const both = await run('spectrum', ar, '--plot', plot, '--table');
+    expect(both.out).toMatch(/λ \(nm\)/);
+  });
+
   it('refuses bad input with one sentence and a non-zero code', async () => {
     const file = tempDesign(quarterWave);
     const cases: [string[], number, RegExp][] = [
@@ -65,7 +118,8 @@ describe('fringe spectrum', () => {
       [['--angle', '95'], 2, /--angle must be/],
       [['--from', '600', '--to', '500'], 2, /must be above/],
       [['--step', 'abc'], 2, /--step expects a number/],
-      [['--json', '--csv'], 2, /one of --json or --csv/],
+      [['--json', '--csv'], 2, /one of --json, --csv or --table/],
+      [['--plot', 'r.png'], 2, /--plot writes an SVG drawing: name a file ending in \.svg, got "r\.png"/],
       [['--nonsense'], 2, /Unknown option/],
     ];
     for (const [args, code, message] of cases) {

@@ -2,7 +2,7 @@ import { mkdirSync, writeFileSync } from 'node:fs';
 import { fileURLToPath } from 'node:url';
 import { describe, it, expect } from 'vitest';
 import fc from 'fast-check';
-import { escapeXml, formatTick, niceTicks, renderLineChart } from '../../src/report/index.ts';
+import { escapeXml, formatTick, niceTicks, renderChartStack, renderLineChart } from '../../src/report/index.ts';
 import type { ChartOptions, ChartSeries } from '../../src/report/index.ts';
 
 // ---------------------------------------------------------------------------------------------
@@ -488,5 +488,75 @@ describe('formatTick', () => {
     expect(formatTick(0.125, 0.005, true)).toBe('12.5%');
     expect(formatTick(3e8, 1e8)).toBe('3e+8');
     expect(formatTick(1e-16, 0.1)).toBe('0');
+  });
+});
+
+describe('log axis, long titles, legend entries for marks, stacked panels', () => {
+  it('draws y on decades: equal ratios are equal distances, ticks 1-2-5 per decade, values ≤ 0 break the line', () => {
+    const svg = renderLineChart([{ label: 'error', x: [1, 2, 3, 4], y: [0.01, 0.1, 1, 0] }], { ...baseOptions, yLog: true });
+    const root = parseXml(svg);
+    const labels = byClass(root, 'tick-y').map((n) => n.text);
+    expect(labels).toContain('0.01');
+    expect(labels).toContain('0.1');
+    expect(labels).toContain('1');
+    expect(labels).toContain('0.2');
+    const [line] = byClass(root, 'series-line');
+    const pts = pathPoints(line?.attrs.get('d') ?? '');
+    // Three points drawn (the 0 cannot be), one decade apart each.
+    expect(pts).toHaveLength(3);
+    const [a, b, c] = pts.map((p) => p[1]) as [number, number, number];
+    expect(a - b).toBeCloseTo(b - c, 1);
+    expect(a - b).toBeGreaterThan(20);
+  });
+
+  it('wraps a title wider than the chart onto lines that fit, and moves the plot down for them', () => {
+    const title = 'Edge filter 600 nm, levels on two chips: n·d error per layer, 50 runs per strategy, typical chamber';
+    const root = parseXml(renderLineChart([{ label: 'a', ...ramp(5, (i) => i) }], { ...baseOptions, title, width: 500 }));
+    const [heading] = byClass(root, 'chart-title');
+    const lines = (heading?.children ?? []).filter((c) => c.name === 'tspan').map((t) => t.text);
+    expect(lines.length).toBeGreaterThan(1);
+    expect(lines.join(' ')).toBe(title);
+    const left = plotArea(root).left;
+    for (const line of lines) expect(left + line.length * 15 * 0.6).toBeLessThanOrEqual(500);
+    const short = parseXml(renderLineChart([{ label: 'a', ...ramp(5, (i) => i) }], { ...baseOptions, width: 500 }));
+    expect(plotArea(root).top).toBeGreaterThan(plotArea(short).top);
+  });
+
+  it('lists markers, points and bands in the legend after the series, each with its own sample', () => {
+    const root = parseXml(
+      renderLineChart([{ label: 'signal', ...ramp(5, (i) => i) }], {
+        ...baseOptions,
+        markers: [{ x: 2 }],
+        legend: [
+          { label: 'cut', kind: 'marker' },
+          { label: 'turning point', kind: 'point', shape: 'tick' },
+          { label: 'chip', kind: 'band' },
+        ],
+      }),
+    );
+    expect(byClass(root, 'legend-label').map((n) => n.text)).toEqual(['signal', 'cut', 'turning point', 'chip']);
+    expect(byClass(root, 'legend-marker')).toHaveLength(1);
+    expect(byClass(root, 'legend-point')).toHaveLength(1);
+    expect(byClass(root, 'legend-band')).toHaveLength(1);
+  });
+
+  it('an unshaded band keeps its label and draws no strip', () => {
+    const root = parseXml(renderLineChart([{ label: 's', ...ramp(5, (i) => i) }], { ...baseOptions, bands: [{ from: 0, to: 2, label: 'A' }, { from: 2, to: 4, label: 'B', shaded: false }] }));
+    expect(byClass(root, 'band')).toHaveLength(1);
+    expect(byClass(root, 'band-label').map((n) => n.text)).toEqual(['A', 'B']);
+  });
+
+  it('stacks panels in one well-formed document, each clipped to its own plot', () => {
+    const svg = renderChartStack([
+      { series: [{ label: 'R', ...ramp(5, (i) => i) }], options: { ...baseOptions, title: 'R', height: 300 } },
+      { series: [{ label: 'T', ...ramp(5, (i) => 5 - i) }], options: { ...baseOptions, title: 'T', height: 300 } },
+    ]);
+    const root = parseXml(svg);
+    expect(root.attrs.get('height')).toBe('600');
+    const panels = root.children.filter((c) => c.name === 'svg');
+    expect(panels.map((p) => p.attrs.get('y') ?? '0')).toEqual(['0', '300']);
+    const clips = findAll(root, (n) => n.name === 'clipPath').map((n) => n.attrs.get('id'));
+    expect(new Set(clips).size).toBe(2);
+    expect(() => renderChartStack([])).toThrow(/at least one panel/);
   });
 });

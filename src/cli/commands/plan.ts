@@ -2,13 +2,17 @@
  * `fringe plan RECIPE`: what every signal should do, layer by layer, and how precisely each
  * layer can be cut — as a table, JSON, and/or an SVG plot of the whole run's monitor signal.
  */
+import { dirname, relative, resolve } from 'node:path';
+import { Document } from 'yaml';
 import { parseCommandArgs } from '../parse-command-args.ts';
+import { readYamlFile } from '../../config/read-config.ts';
+import { proposeStrategy, type Proposal } from '../../model/plan/propose.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
-import { planRun, type RunPlan } from '../../model/plan/plan.ts';
+import { planRun, type LayerPlan, type RunPlan } from '../../model/plan/plan.ts';
 import { CUT_MODE_SHORT } from '../../pipeline/cut-words.ts';
-import { renderLineChart, type ChartMarker, type ChartPoint } from '../../report/index.ts';
-import { CliError, numberOption, outputFileOption, writeOutputFile } from '../cli-error.ts';
+import { renderLineChart, type ChartBand, type ChartLegendEntry, type ChartMarker, type ChartPoint } from '../../report/index.ts';
+import { CliError, numberOption, outputFileOption, plotFileOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 
 export const planUsage = `Usage: fringe plan RECIPE [options]
@@ -22,6 +26,9 @@ the expected precision of the cut, warnings, a suggested monitor wavelength, and
   --sample-rate HZ      optical readings per second (default: the recipe's, else 10)
   --whole-run           also suggest one wavelength plan for the run with few changes
   --no-suggest          skip the wavelength search
+  --propose FILE.yaml   search, layer by layer, the cut (crystal, level or turn) and the monitor
+                        wavelength that lower the run's expected error (the stack figures, Σ %²),
+                        write the recipe with them to FILE.yaml and print what changed and why
   --materials FILE      material library (default: the shipped config/materials.yaml)
 `;
 
@@ -37,6 +44,7 @@ export function runPlan(argv: string[], io: CommandIo): number {
       'sample-rate': { type: 'string' },
       'whole-run': { type: 'boolean' },
       'no-suggest': { type: 'boolean' },
+      propose: { type: 'string' },
       materials: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
     },
@@ -55,59 +63,109 @@ export function runPlan(argv: string[], io: CommandIo): number {
   if (sampleRateHz !== undefined && !(sampleRateHz > 0 && sampleRateHz <= 1e5)) {
     throw new CliError(`--sample-rate must be above 0 and at most 100000 Hz, got ${sampleRateHz}`);
   }
+  if (values.propose !== undefined && !/\.ya?ml$/i.test(values.propose)) {
+    throw new CliError(`--propose writes a recipe: name a file ending in .yaml, got "${values.propose}"`);
+  }
+  if (values.propose !== undefined && (values.json || values.plot !== undefined || noisePercent !== undefined || sampleRateHz !== undefined)) {
+    throw new CliError('--propose plans with the recipe\'s own monitor and prints its own report: drop --json, --plot, --noise and --sample-rate');
+  }
+  const proposeFile = values.propose === undefined ? undefined : outputFileOption('propose', values.propose);
   const recipe = loadRecipe(positionals[0] as string, loadMaterialLibrary(values.materials));
+  if (proposeFile !== undefined) {
+    const proposal = proposeStrategy(recipe);
+    writeOutputFile(proposeFile, proposedRecipeText(positionals[0] as string, proposeFile, proposal));
+    io.out(formatProposal(proposal, proposeFile));
+    return 0;
+  }
   const plan = planRun(recipe, {
     ...(noisePercent !== undefined ? { noise: noisePercent / 100 } : {}),
     ...(sampleRateHz !== undefined ? { sampleRateHz } : {}),
     suggest: values['no-suggest'] ? 'none' : values['whole-run'] ? 'whole-run' : 'per-layer',
   });
   if (values.plot !== undefined) {
-    writeOutputFile(outputFileOption('plot', values.plot), plotRun(plan));
+    writeOutputFile(plotFileOption(values.plot), plotRun(plan));
     io.err(`wrote ${values.plot}`);
   }
   io.out(values.json ? JSON.stringify(plan) : formatPlan(plan));
   return 0;
 }
 
+/** Fixed decimals without a minus on a value that rounds to zero ("-0.000" reads as a sign that is not there). */
+function fixed(x: number, decimals: number): string {
+  const text = x.toFixed(decimals);
+  return /^-0\.?0*$/.test(text) ? text.slice(1) : text;
+}
+
+/** The table's columns: header, width, and the cell of a layer (right-aligned unless `left`). */
+const COLUMNS: { head: string; width: number; left?: boolean; cell: (l: LayerPlan) => string }[] = [
+  { head: '#', width: 2, cell: (l) => String(l.number) },
+  { head: 'material', width: 8, left: true, cell: (l) => l.material },
+  { head: 'target nm', width: 9, cell: (l) => fixed(l.targetNm, 2) },
+  { head: 'cut', width: 11, left: true, cell: (l) => CUT_MODE_SHORT[l.cut] },
+  { head: 'λ nm', width: 5, cell: (l) => String(l.wavelengthNm) },
+  { head: 'chip', width: 7, left: true, cell: (l) => l.chip },
+  { head: 'cut %', width: 6, cell: (l) => fixed(l.cutSignal * 100, 2) },
+  { head: 'trig %', width: 6, cell: (l) => fixed(l.triggerSignal * 100, 2) },
+  { head: 'TPs', width: 3, cell: (l) => String(l.turningPointsBeforeCut) },
+  { head: 'swing %', width: 7, cell: (l) => fixed(l.swing * 100, 2) },
+  { head: '±nm fit', width: 7, cell: (l) => fixed(l.precisionNm, 3) },
+  { head: '±nm stack', width: 9, cell: (l) => fixed(l.stackPrecisionNm, 3) },
+  { head: '±nm rule', width: 8, cell: (l) => fixed(l.plainRulePrecisionNm, 3) },
+  { head: 'best λ (±%)', width: 12, cell: (l) => (l.suggestion ? `${l.suggestion.wavelengthNm} (${fixed(l.suggestion.precisionPercent, 2)})` : '—') },
+  { head: 'time', width: 7, cell: (l) => formatDuration(l.durationS) },
+];
+
+const row = (cells: string[]): string =>
+  cells
+    .map((c, i) => {
+      const col = COLUMNS[i] as (typeof COLUMNS)[number];
+      return col.left ? c.padEnd(col.width) : c.padStart(col.width);
+    })
+    .join(' ')
+    .trimEnd();
+
+/** What the less obvious columns mean, printed under the table. */
+const COLUMN_NOTES = [
+  'cut %, trig %: the monitor signal at the target, and when the cut command goes out (the shutter delay before it).',
+  'TPs: turning points (extrema of the signal) the layer passes before its cut.',
+  '±nm fit: the model fit\'s bound on the cut from the layer\'s own readings (noise alone).',
+  '±nm stack: the same with the layer\'s index and the layers below it on the chip uncertain: what the cut can',
+  '  really promise, and what the imprecise-cut warning is judged on.',
+  '±nm rule: the plain crossing or turning-point rule.',
+  'best λ (±%): the monitor wavelength where the fit would cut this layer most precisely (noise alone, % of',
+  '  the thickness); a turning-point layer keeps its own. --json gives every figure, with slopes and the crystal\'s.',
+];
+
 function formatPlan(plan: RunPlan): string {
-  const pct = (x: number): string => (x * 100).toFixed(2);
   const rows = [
-    `${plan.recipe}: layers ${plan.fromLayer}–${plan.fromLayer + plan.layers.length - 1}, ${formatDuration(plan.durationS)} planned; noise ${(plan.noise * 100).toFixed(3)} % at ${plan.sampleRateHz} Hz`,
+    `${plan.recipe}: layers ${plan.fromLayer}–${plan.fromLayer + plan.layers.length - 1}, ${formatDuration(plan.durationS)} planned; noise ${fixed(plan.noise * 100, 3)} % at ${plan.sampleRateHz} Hz`,
     '',
-    ' #  material  target nm  cut          λ nm   chip     start %   cut %  trigger %  TPs  swing %  slope %/nm  ±nm fit  ±nm stack  ±nm rule  best λ (±%)    crystal Hz   time',
+    row(COLUMNS.map((c) => c.head)),
+    ...plan.layers.map((l) => row(COLUMNS.map((c) => c.cell(l)))),
+    '',
+    ...COLUMN_NOTES,
   ];
-  for (const l of plan.layers) {
-    const suggestion = l.suggestion ? `${l.suggestion.wavelengthNm} (${l.suggestion.precisionPercent.toFixed(2)})` : '—';
-    rows.push(
-      [
-        String(l.number).padStart(2),
-        l.material.padEnd(9),
-        l.targetNm.toFixed(2).padStart(9),
-        CUT_MODE_SHORT[l.cut].padEnd(11),
-        String(l.wavelengthNm).padStart(6),
-        l.chip.padEnd(7),
-        pct(l.startSignal).padStart(8),
-        pct(l.cutSignal).padStart(7),
-        pct(l.triggerSignal).padStart(10),
-        String(l.turningPointsBeforeCut).padStart(4),
-        pct(l.swing).padStart(8),
-        (l.slopePerNm * 100).toFixed(3).padStart(11),
-        l.precisionNm.toFixed(3).padStart(8),
-        l.stackPrecisionNm.toFixed(3).padStart(10),
-        l.plainRulePrecisionNm.toFixed(3).padStart(9),
-        suggestion.padStart(13),
-        l.crystal.cutFrequencyHz.toFixed(1).padStart(13),
-        formatDuration(l.durationS).padStart(6),
-      ].join(' '),
-    );
-  }
-  const warnings = plan.layers.flatMap((l) => l.warnings.map((w) => `  layer ${l.number}: ${w.message} [${w.code}]`));
+  const warnings = plan.layers.flatMap((l) => l.warnings.flatMap((w) => wrap(`layer ${l.number}: ${w.message} [${w.code}]`, 120, '  ', '    ')));
   if (warnings.length > 0) rows.push('', 'Warnings:', ...warnings);
   if (plan.wholeRun) {
     rows.push('', `Whole-run wavelength plan (${plan.wholeRun.changes} changes): ${plan.layers.filter((l) => l.wholeRunWavelengthNm !== undefined).map((l) => `${l.number}:${l.wholeRunWavelengthNm}`).join(' ')}`);
   }
-  rows.push('', '±nm fit: the bound of the model fit over the layer’s readings; ±nm rule: the plain crossing or turning-point rule.');
   return rows.join('\n');
+}
+
+/** Greedy word wrap to `width` columns, the first line and the continuations indented. */
+function wrap(text: string, width: number, firstIndent: string, indent: string): string[] {
+  const lines: string[] = [];
+  let line = firstIndent;
+  for (const word of text.split(' ')) {
+    if (line.trim() === '') line += word;
+    else if (line.length + 1 + word.length > width) {
+      lines.push(line);
+      line = indent + word;
+    } else line += ` ${word}`;
+  }
+  lines.push(line);
+  return lines;
 }
 
 function formatDuration(seconds: number): string {
@@ -118,16 +176,36 @@ function formatDuration(seconds: number): string {
   return h > 0 ? `${h}:${String(m).padStart(2, '0')}:${String(r).padStart(2, '0')}` : `${m}:${String(r).padStart(2, '0')}`;
 }
 
-/** The run's predicted signal layer after layer, against the cumulative deposited thickness on the chips. */
+/**
+ * The run's predicted signal layer after layer, against the cumulative deposited thickness on
+ * the chips: cuts as markers, turning points as ticks, each chip a shaded band (alternately) with
+ * its label, and a triangle where the monitor's wavelength changes.
+ */
 function plotRun(plan: RunPlan): string {
   const x: number[] = [];
   const y: number[] = [];
   const markers: ChartMarker[] = [];
   const points: ChartPoint[] = [];
+  const bands: ChartBand[] = [];
   let offset = 0;
+  let previous: LayerPlan | undefined;
+  let chipStart = 0;
+  let chipIndex = 0;
+  const closeChip = (at: number, label: string): void => {
+    // Every other chip shaded, so that neighbours are told apart; each labelled.
+    bands.push({ from: chipStart, to: at, label, shaded: chipIndex % 2 === 0 });
+  };
   for (const l of plan.layers) {
     // A new chip starts bare: break the line there.
-    if (l.layerOnChip === 1 && x.length > 0) {
+    if (l.layerOnChip === 1 && previous) {
+      x.push(offset);
+      y.push(Number.NaN);
+      closeChip(offset, previous.chip);
+      chipStart = offset;
+      chipIndex++;
+    }
+    // Another wavelength is another signal: break the line there too.
+    if (previous && previous.wavelengthNm !== l.wavelengthNm && l.layerOnChip !== 1) {
       x.push(offset);
       y.push(Number.NaN);
     }
@@ -136,20 +214,68 @@ function plotRun(plan: RunPlan): string {
       x.push(offset + k * l.curve.stepNm);
       y.push(l.curve.signal[k] as number);
     }
+    if (previous && previous.wavelengthNm !== l.wavelengthNm) {
+      points.push({ x: offset, y: l.curve.signal[0] as number, shape: 'triangle', label: `${l.wavelengthNm} nm` });
+    }
     for (const tp of l.turningPoints) {
       if (tp.thicknessNm <= l.chipTargetNm + 1e-9) points.push({ x: offset + tp.thicknessNm, y: tp.signal, shape: 'tick' });
     }
     offset += l.chipTargetNm;
     markers.push({ x: offset, ...(plan.layers.length <= 30 ? { label: `${l.number}` } : {}) });
+    previous = l;
   }
+  if (previous) closeChip(offset, previous.chip);
+  const signals = new Set(plan.layers.map((l) => (l.signal === 'transmission' ? 'T' : 'R')));
+  const wavelengths = new Set(plan.layers.map((l) => l.wavelengthNm));
+  const quantity = [...signals].join(' or ');
+  const yLabel = wavelengths.size === 1 ? `${quantity} at ${[...wavelengths][0]} nm (%)` : `${quantity} at each layer's monitor wavelength (%)`;
+  const legend: ChartLegendEntry[] = [
+    { label: 'cut (layer number)', kind: 'marker' },
+    { label: 'turning point', kind: 'point', shape: 'tick' },
+    ...(points.some((p) => p.shape === 'triangle') ? [{ label: 'monitor wavelength changes', kind: 'point' as const, shape: 'triangle' as const }] : []),
+    ...(bands.length > 1 ? [{ label: 'witness chip (a fresh one starts bare)', kind: 'band' as const }] : []),
+  ];
   return renderLineChart([{ label: 'predicted monitor signal', x, y }], {
     title: `${plan.recipe}: predicted monitor signal, cuts marked`,
     xLabel: 'Deposited thickness on the witness chips (nm)',
-    yLabel: 'Signal (%)',
+    yLabel,
     yPercent: true,
     width: 1100,
     height: 520,
     markers,
     points,
+    legend,
+    // One chip needs no band: the whole plot is it.
+    ...(bands.length > 1 ? { bands } : {}),
   });
+}
+
+/** The recipe file as written, with the proposal's layer settings over it (single-layer keys win over ranges). */
+function proposedRecipeText(recipeFile: string, outFile: string, proposal: Proposal): string {
+  const raw = readYamlFile(recipeFile) as { design: unknown; layers?: Record<string, Record<string, unknown>> };
+  const layers: Record<string, Record<string, unknown>> = { ...raw.layers };
+  for (const c of proposal.changes) {
+    layers[String(c.layer)] = { ...layers[String(c.layer)], cut: c.to.cut, wavelengthNm: c.to.wavelengthNm };
+  }
+  // A design named by path is found from the new file's folder.
+  const design = typeof raw.design === 'string' ? relative(dirname(resolve(outFile)), resolve(dirname(recipeFile), raw.design)) : raw.design;
+  const doc = new Document({ ...raw, design, layers });
+  doc.commentBefore = ` Proposed by fringe plan --propose from ${recipeFile}: ${proposal.changes.length} layers changed;\n run cost (Σ stack figure², %²) ${proposal.costBefore.toFixed(3)} → ${proposal.costAfter.toFixed(3)}.`;
+  return String(doc);
+}
+
+function formatProposal(p: Proposal, file: string): string {
+  const rows = [
+    `${p.plan.recipe}: ${p.changes.length} of ${p.plan.layers.length} layers changed; wrote ${file}`,
+    `run cost (the layers' stack figures squared and summed, %²): ${p.costBefore.toFixed(3)} → ${p.costAfter.toFixed(3)}`,
+  ];
+  if (p.changes.length > 0) rows.push('');
+  for (const c of p.changes) {
+    rows.push(
+      `  layer ${c.layer}: ${CUT_MODE_SHORT[c.from.cut]} at ${c.from.wavelengthNm} nm → ${CUT_MODE_SHORT[c.to.cut]}${c.to.cut === 'crystal' ? '' : ` at ${c.to.wavelengthNm} nm`}: ` +
+        `its stack figure ${fixed(c.beforePercent, 3)} % → ${fixed(c.afterPercent, 3)} %, the run's cost ${fixed(c.costBefore, 3)} → ${fixed(c.costAfter, 3)}`,
+    );
+  }
+  rows.push('', 'The figures are the plan\'s own error model; check the proposal with fringe study before relying on it.');
+  return rows.join('\n');
 }

@@ -9,6 +9,7 @@ import { indexAt, type Dispersion } from '../optics/dispersion.ts';
 import type { MaterialLibrary } from '../optics/material.ts';
 import type { StackSpec } from '../optics/optical-model.ts';
 import { expandShorthand } from './shorthand.ts';
+import { ToleranceSchema, type Tolerance } from './tolerances.ts';
 
 const positive = z.number().finite().positive();
 
@@ -63,6 +64,8 @@ export const DesignSchema = z
         symbols: z.record(z.string().regex(/^[A-Za-z]$/, 'a symbol is one letter'), MediumRefSchema),
       })
       .optional(),
+    /** What the customer's specification asks of the spectrum (the study's yield counts runs meeting every one). */
+    tolerances: z.array(ToleranceSchema).default([]),
   })
   .refine((d) => d.layers === undefined || d.shorthand === undefined, {
     message: 'give the layers either as `layers` or as `shorthand`, not both (neither: the bare substrate)',
@@ -91,6 +94,7 @@ export interface ResolvedDesign {
   substrateName: string;
   referenceWavelengthNm: number | undefined;
   band: { fromNm: number; toNm: number } | undefined;
+  tolerances: readonly Tolerance[];
 }
 
 export type ResolveResult =
@@ -220,6 +224,20 @@ export function resolveDesign(
     });
     stackLayers.push({ dispersion: m.dispersion, thicknessNm });
   }
+  // A tolerance must lie where every medium of the part has data, or it could not be judged.
+  design.tolerances.forEach((t, i) => {
+    const refs: MediumRef[] = [design.incident, design.substrate.material, ...(design.exit === undefined ? [] : [design.exit]), ...specs.map((s) => s.ref)];
+    for (const ref of new Set(refs.filter((r): r is string => typeof r === 'string'))) {
+      const range = library.materials[ref]?.validRangeNm;
+      if (range && (t.fromNm < range[0] || t.toNm > range[1])) {
+        violations.push({
+          at: `tolerances[${i}]`,
+          message: `${t.fromNm}–${t.toNm} nm reaches outside the data of ${ref} (${range[0]}–${range[1]} nm), so the tolerance could not be judged there`,
+        });
+        break;
+      }
+    }
+  });
   if (violations.length > 0 || !incident || !substrate || !exit) {
     // A shorthand repeats its layers: report each distinct problem once.
     const seen = new Set<string>();
@@ -243,6 +261,7 @@ export function resolveDesign(
       substrateName: substrate.name,
       referenceWavelengthNm: ref,
       band: design.band,
+      tolerances: design.tolerances,
     },
   };
 }

@@ -18,7 +18,7 @@ import {
 } from './precision.ts';
 import type { CutMode, LayerRecipe, ResolvedRecipe } from './recipe.ts';
 import { DEFAULT_INDEX_SIGMA, INDEX_RUN_SIGMA, layerPrecision, NEAREST, type BelowLayer } from './stack-precision.ts';
-import { searchWavelengths, wholeRunWavelengths, type LayerSearch } from './wavelength-search.ts';
+import { searchWavelengths, wholeRunWavelengths, type LayerSearch, type WavelengthSearch } from './wavelength-search.ts';
 
 export interface PlanOptions {
   /** rms noise of one optical reading, fraction of full scale (default: the recipe's). */
@@ -154,8 +154,6 @@ export function planRun(recipe: ResolvedRecipe, options: PlanOptions = {}): RunP
           sampleRateHz,
           priors,
         });
-  const wholeRun =
-    search && suggest === 'whole-run' ? wholeRunWavelengths(search, optical.map((l) => l.number), options.changePenalty ?? 0.05) : undefined;
 
   const crystalBelow: CrystalLayer[] = [];
   for (let i = 0; i < fromLayer - 1; i++) crystalBelow.push(crystalLayer(recipe.layers[i] as LayerRecipe, partNm[i] as number));
@@ -196,12 +194,22 @@ export function planRun(recipe: ResolvedRecipe, options: PlanOptions = {}): RunP
           lifeUsed: crystalLifeUsed(f0, fCut, recipe.crystal.minUsableFrequencyHz),
         },
         search: search?.byLayer.get(layer.number),
-        wholeRunWavelengthNm: wholeRun?.byLayer.get(layer.number),
       }),
     );
     fStart = fCut;
   }
-  if (options.stackPrecision ?? true) addStackPrecision(recipe, layers, monitors, partNm, indexFactors, fromLayer, { noise, sampleRateHz, priors });
+  // The whole-run plan keeps a turning-point layer at its wavelength, as the per-layer suggestion does.
+  const wholeRun =
+    search && suggest === 'whole-run'
+      ? wholeRunWavelengths(turnKeeping(search, layers), optical.map((l) => l.number), options.changePenalty ?? 0.05)
+      : undefined;
+  for (const l of layers) {
+    const w = wholeRun?.byLayer.get(l.number);
+    if (w !== undefined && (l.cut === 'level' || l.cut === 'turning-point')) l.wholeRunWavelengthNm = w;
+  }
+  const belowNm = new Map<number, number>();
+  if (options.stackPrecision ?? true) addStackPrecision(recipe, layers, monitors, partNm, indexFactors, fromLayer, { noise, sampleRateHz, priors }, belowNm);
+  for (const l of layers) warnIfImprecise(recipe, l, belowNm.get(l.number) ?? 0);
   return {
     recipe: recipe.name,
     fromLayer,
@@ -271,6 +279,8 @@ function addStackPrecision(
   indexFactors: readonly number[],
   fromLayer: number,
   ctx: { noise: number; sampleRateHz: number; priors: FitPriors },
+  /** Filled with what the layers below bring to each layer's figure, nm on the parts. */
+  belowNmOut: Map<number, number>,
 ): void {
   const sigmaChipNm = new Map<number, number>();
   const indexSigma = new Map<string, number>();
@@ -300,7 +310,10 @@ function addStackPrecision(
       };
       const p = layerPrecision(monitors[n] as ChipMonitor, index, below, plan.chipTargetNm, layer.rateNmPerS * layer.chipRatio, ctx.sampleRateHz, ctx.noise, ctx.priors);
       indexSigma.set(layer.materialName, p.indexSigma);
-      if (Number.isFinite(p.cutNm) && Number.isFinite(p.belowNm)) total = Math.max(plan.precisionNm, Math.hypot(p.cutNm, p.belowNm) / layer.chipRatio);
+      if (Number.isFinite(p.cutNm) && Number.isFinite(p.belowNm)) {
+        total = Math.max(plan.precisionNm, Math.hypot(p.cutNm, p.belowNm) / layer.chipRatio);
+        belowNmOut.set(plan.number, p.belowNm / layer.chipRatio);
+      }
     }
     plan.stackPrecisionNm = total;
     plan.stackPrecisionPercent = (100 * total) / layer.targetNm;
@@ -323,7 +336,6 @@ interface DescribeContext {
   scratch: Float64Array;
   crystal: LayerPlan['crystal'];
   search: LayerSearch | undefined;
-  wholeRunWavelengthNm: number | undefined;
 }
 
 function describeLayer(
@@ -384,38 +396,47 @@ function describeLayer(
     warnings.push({ code, message });
   };
   const [mLo, mHi] = recipe.monitor.rangeNm;
-  if (layer.wavelengthNm < mLo || layer.wavelengthNm > mHi) {
-    warn('wavelength-outside-monitor', `${layer.wavelengthNm} nm is outside the monitor's range ${mLo}–${mHi} nm`);
-  }
   const optical = cut === 'level' || cut === 'turning-point';
+  // A turning-point layer keeps its wavelength: cut on the turn, it corrects the errors of the
+  // layers below at the wavelength the design is monitored for (self-compensation), which the
+  // search's noise-only figure does not see; elsewhere its target would not even be a turn.
+  const best =
+    !ctx.search || !optical
+      ? undefined
+      : cut === 'turning-point'
+        ? { wavelengthNm: layer.wavelengthNm, bestPercent: (100 * precisionNm) / layer.targetNm }
+        : { wavelengthNm: ctx.search.wavelengthNm, bestPercent: ctx.search.bestPercent };
+  // What a warning can offer: another wavelength the search found (named only when it is another one).
+  const elsewhere = best && best.wavelengthNm !== layer.wavelengthNm ? `monitor at ${best.wavelengthNm} nm (the search's best)` : 'monitor at another wavelength';
+  if (layer.wavelengthNm < mLo || layer.wavelengthNm > mHi) {
+    warn('wavelength-outside-monitor', `${layer.wavelengthNm} nm is outside the monitor's range ${mLo}–${mHi} nm: choose a wavelength within it, or cut the layer on the crystal`);
+  }
   if (optical) {
     const quarterWave = layer.wavelengthNm / (4 * nearestIndex(monitor));
     const closest = turningPoints.reduce((best, tp) => Math.min(best, Math.abs(tp.thicknessNm - target)), Number.POSITIVE_INFINITY);
     if (cut === 'level' && closest < 0.1 * quarterWave) {
-      warn('trigger-near-turning-point', `the trigger level lies ${closest.toFixed(2)} nm from a turning point; the signal is nearly flat there`);
+      warn(
+        'trigger-near-turning-point',
+        `the level cut lies ${closest.toFixed(2)} nm from a turning point, where the signal is nearly flat and a level crossing is slow to show, so noise moves the cut; this concerns the plain rule (the model fit uses the whole curve); for the plain rule, ${elsewhere} or cut on the turning point`,
+      );
     }
     if (cut === 'turning-point' && !nearTarget) {
       const next = turningPoints.find((tp) => tp.thicknessNm > 0.5 * target);
       warn(
         'no-turning-point-at-target',
         next
-          ? `the layer does not end on a turning point at ${layer.wavelengthNm} nm; a turning-point cut would stop at ${(next.thicknessNm / ratio).toFixed(2)} nm instead of ${layer.targetNm.toFixed(2)} nm`
-          : `the signal has no turning point near the target at ${layer.wavelengthNm} nm`,
+          ? `the layer does not end on a turning point at ${layer.wavelengthNm} nm; a turning-point cut would stop at ${(next.thicknessNm / ratio).toFixed(2)} nm instead of ${layer.targetNm.toFixed(2)} nm: cut on a level, or choose a wavelength where the layer ends on a turning point`
+          : `the signal has no turning point near the target at ${layer.wavelengthNm} nm: cut on a level, or choose a wavelength where the layer ends on a turning point`,
       );
     }
     if (swing < Math.max(0.01, 10 * ctx.noise) && turningPoints.length > 0) {
-      warn('small-swing', `the signal swings by ${(swing * 100).toFixed(2)} % only`);
+      warn('small-swing', `the signal swings by ${(swing * 100).toFixed(2)} % only: ${elsewhere}, start a fresh chip, or cut on the crystal`);
     }
     if (Math.abs((curve[cutIndex] as number) - startSignal) < 5 * ctx.noise && turningPointsBeforeCut === 0 && cut === 'level') {
-      warn('too-thin', `the signal changes by ${(Math.abs(s0 - startSignal) * 100).toFixed(3)} % over the layer: too little to cut on`);
+      warn('too-thin', `the signal changes by ${(Math.abs(s0 - startSignal) * 100).toFixed(3)} % over the layer: too little to cut on; cut it on the crystal, or ${elsewhere}`);
     }
   }
-  // Optical cuts should do better than 1 %; a crystal cut is bounded by its tooling factor.
-  const acceptable = optical ? 0.01 : Math.max(0.01, (1.5 * recipe.crystal.toolingSigmaPercent) / 100);
-  if (precisionNm > acceptable * layer.targetNm) {
-    warn('imprecise-cut', `the expected precision is ${((100 * precisionNm) / layer.targetNm).toFixed(2)} % of the thickness`);
-  }
-  if (ctx.crystal.lifeUsed >= 1) warn('crystal-spent', 'the crystal reaches the end of its usable life during this layer');
+  if (ctx.crystal.lifeUsed >= 1) warn('crystal-spent', 'the crystal reaches the end of its usable life during this layer: change the crystal before it');
 
   const plan: LayerPlan = {
     number: layer.number,
@@ -451,15 +472,64 @@ function describeLayer(
     crystal: ctx.crystal,
     warnings,
   };
-  if (ctx.search && optical) {
+  if (best) {
     plan.suggestion = {
-      wavelengthNm: ctx.search.wavelengthNm,
-      precisionPercent: ctx.search.bestPercent,
-      precisionNm: (ctx.search.bestPercent * layer.targetNm) / 100,
+      wavelengthNm: best.wavelengthNm,
+      precisionPercent: best.bestPercent,
+      precisionNm: (best.bestPercent * layer.targetNm) / 100,
     };
   }
-  if (ctx.wholeRunWavelengthNm !== undefined && optical) plan.wholeRunWavelengthNm = ctx.wholeRunWavelengthNm;
   return plan;
+}
+
+/**
+ * The search with every turning-point layer held at its own wavelength: its row keeps only that
+ * grid wavelength (the layer leaves the whole-run plan when the grid does not hold it).
+ */
+function turnKeeping(search: WavelengthSearch, layers: readonly LayerPlan[]): WavelengthSearch {
+  const byLayer = new Map(search.byLayer);
+  for (const l of layers) {
+    const row = byLayer.get(l.number);
+    if (!row || l.cut !== 'turning-point') continue;
+    const own = search.gridNm.findIndex((w) => Math.abs(w - l.wavelengthNm) < 1e-9);
+    if (own < 0 || !Number.isFinite(row.precisionPercent[own])) {
+      byLayer.delete(l.number);
+      continue;
+    }
+    byLayer.set(l.number, { ...row, precisionPercent: row.precisionPercent.map((p, w) => (w === own ? p : Number.POSITIVE_INFINITY)) });
+  }
+  return { gridNm: search.gridNm, byLayer };
+}
+
+/**
+ * The `imprecise-cut` warning, judged on the stack figure (the layers below uncertain): an
+ * optical cut should do better than 1 %, a crystal cut than 1.5× its tooling uncertainty. It
+ * says what would do better: a fresh chip when the layers below set the limit, the crystal when
+ * it would, another wavelength when the search found one.
+ */
+function warnIfImprecise(recipe: ResolvedRecipe, plan: LayerPlan, belowNm: number): void {
+  const layer = recipe.layers[plan.number - 1] as LayerRecipe;
+  const optical = plan.cut === 'level' || plan.cut === 'turning-point';
+  const acceptable = optical ? 0.01 : Math.max(0.01, (1.5 * recipe.crystal.toolingSigmaPercent) / 100);
+  if (!(plan.stackPrecisionNm > acceptable * plan.targetNm)) return;
+  const pct = (nm: number): string => `${((100 * nm) / plan.targetNm).toFixed(2)} %`;
+  const advice: string[] = [];
+  if (optical) {
+    if (belowNm > plan.precisionNm) advice.push(`start a fresh chip at this layer (the layers below bring ${pct(belowNm)})`);
+    const crystalNm = crystalPrecisionNm(recipe, layer, plan.crystal);
+    if (crystalNm < plan.stackPrecisionNm) advice.push(`cut it on the crystal (${pct(crystalNm)})`);
+    if (plan.suggestion && plan.suggestion.wavelengthNm !== plan.wavelengthNm && plan.suggestion.precisionNm < plan.precisionNm) {
+      advice.push(`monitor at ${plan.suggestion.wavelengthNm} nm (${plan.suggestion.precisionPercent.toFixed(2)} % from noise alone; plan it again there for the stack figure)`);
+    }
+    if (advice.length === 0) advice.push('no other cut the plan knows does better: a slower rate or a quieter monitor would');
+  } else {
+    advice.push(`calibrate the tooling factor (known to ${recipe.crystal.toolingSigmaPercent} %) or monitor the layer optically`);
+  }
+  const noise = plan.stackPrecisionNm > plan.precisionNm ? ` (${pct(plan.precisionNm)} from noise alone)` : '';
+  plan.warnings.push({
+    code: 'imprecise-cut',
+    message: `the expected precision with the layers below is ${pct(plan.stackPrecisionNm)} of the thickness${noise}: ${advice.join('; or ')}`,
+  });
 }
 
 /** The growing layer's real index at the monitor wavelength; it only sizes a warning threshold. */

@@ -260,14 +260,10 @@ export function resolveRecipe(recipe: Recipe, design: ResolvedDesign, library: M
     const bandwidthNm = s.bandwidthNm ?? LAYER_DEFAULTS.bandwidthNm;
     const [bandLo, bandHi] = [wavelengthNm - bandwidthNm, wavelengthNm + bandwidthNm];
     const onChip = chips[chip];
-    const seen: [string, readonly [number, number]][] = onChip ? [[onChip.substrateName, onChip.validRangeNm]] : [];
-    for (let j = (onChip?.fromLayer ?? 1) - 1; j <= i; j++) {
-      const name = (design.layers[j] as { materialName: string }).materialName;
-      seen.push([name, rangeOf(name, library)]);
-    }
-    const outside = seen.find(([, [lo, hi]]) => bandLo < lo || bandHi > hi);
+    const seen = design.layers.slice((onChip?.fromLayer ?? 1) - 1, i + 1).map((l) => ({ materialName: l.materialName, validRangeNm: rangeOf(l.materialName, library) }));
+    const outside = monitorBandProblem(wavelengthNm, bandwidthNm, onChip, seen);
     if (outside) {
-      const [name, [lo, hi]] = outside;
+      const { name, rangeNm: [lo, hi] } = outside;
       violations.push({
         at: `layers.${layer.number}.wavelengthNm`,
         message: `the monitor's band ${bandLo}–${bandHi} nm reaches outside the data of ${name} (${lo}–${hi} nm) on this layer's chip`,
@@ -313,6 +309,23 @@ export function resolveRecipe(recipe: Recipe, design: ResolvedDesign, library: M
       ...(recipe.compensation ? { compensation: recipe.compensation } : {}),
     },
   };
+}
+
+/**
+ * The first medium whose data the monitor's pass band (wavelength ± bandwidth) reaches outside
+ * of — the chip's substrate, then the layers on the chip up to the one monitored — or undefined
+ * when the band lies inside them all. The validator and the wavelength search share it, so that
+ * a suggested wavelength is always one a recipe may name.
+ */
+export function monitorBandProblem(
+  wavelengthNm: number,
+  bandwidthNm: number,
+  chip: Pick<ResolvedChip, 'substrateName' | 'validRangeNm'> | undefined,
+  layersOnChip: readonly Pick<LayerRecipe, 'materialName' | 'validRangeNm'>[],
+): { name: string; rangeNm: readonly [number, number] } | undefined {
+  const [bandLo, bandHi] = [wavelengthNm - bandwidthNm, wavelengthNm + bandwidthNm];
+  const media = [...(chip ? [{ name: chip.substrateName, rangeNm: chip.validRangeNm }] : []), ...layersOnChip.map((l) => ({ name: l.materialName, rangeNm: l.validRangeNm }))];
+  return media.find(({ rangeNm: [lo, hi] }) => bandLo < lo || bandHi > hi);
 }
 
 function lookup(ref: MediumRef, library: MaterialLibrary, design: ResolvedDesign): Dispersion | undefined {

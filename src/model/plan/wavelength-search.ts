@@ -4,10 +4,14 @@
  * across the layer, one wavelength, no pass-band averaging) so that hundreds of wavelengths
  * per layer stay cheap. The layers below are carried as one matrix per wavelength, extended
  * layer by layer.
+ *
+ * Only wavelengths a recipe may name are searched: the monitor's pass band (± its bandwidth)
+ * inside the data of the chip's substrate and of every layer on the chip up to this one, the
+ * condition `resolveRecipe` checks (`monitorBandProblem`).
  */
 import { buildOpticalModel, createOpticalResult, layersMatrix, resultFromMatrix, type OpticalModel } from '../optics/optical-model.ts';
 import { fitPrecisionBound, type FitPriors } from './precision.ts';
-import type { LayerRecipe, ResolvedRecipe } from './recipe.ts';
+import { monitorBandProblem, type LayerRecipe, type ResolvedRecipe } from './recipe.ts';
 
 export interface SearchSettings {
   stepNm: number;
@@ -103,18 +107,21 @@ export function searchWavelengths(
       const saved = thickness[k] as number;
       let best = Number.POSITIVE_INFINITY;
       let bestW = Number.NaN;
-      for (let w = 0; w < usable.length; w++) {
-        for (let i = 0; i <= SEARCH_INTERVALS; i++) {
-          thickness[k] = i * step;
-          let s = 0;
-          for (let p = 0; p < pols.length; p++) {
-            const pol = pols[p] as 's' | 'p';
-            layersMatrix(matrix, entry.model, w, pol, thickness, k, k + 1, entry.base[w * pols.length + p]);
-            resultFromMatrix(result, entry.model, w, pol, matrix);
-            s += layer.signal === 'transmission' ? result.T : result.R;
-          }
-          samples[i] = s / pols.length;
+      const signalAt = (w: number, d: number): number => {
+        thickness[k] = d;
+        let s = 0;
+        for (let p = 0; p < pols.length; p++) {
+          const pol = pols[p] as 's' | 'p';
+          layersMatrix(matrix, entry.model, w, pol, thickness, k, k + 1, entry.base[w * pols.length + p]);
+          resultFromMatrix(result, entry.model, w, pol, matrix);
+          s += layer.signal === 'transmission' ? result.T : result.R;
         }
+        return s / pols.length;
+      };
+      const onChip = chipLayers.slice(0, k + 1);
+      for (let w = 0; w < usable.length; w++) {
+        if (monitorBandProblem(usable[w] as number, layer.bandwidthNm, chip, onChip) !== undefined) continue;
+        for (let i = 0; i <= SEARCH_INTERVALS; i++) samples[i] = signalAt(w, i * step);
         const sigma = fitPrecisionBound(samples, SEARCH_INTERVALS + 1, step, chipRate, settings.sampleRateHz, settings.noise, settings.priors, scratch);
         const percent = (100 * sigma) / target;
         precision[first + w] = percent;

@@ -247,8 +247,9 @@ describe('the edge filter: levels on two chips', () => {
     // that the signal swings by under 1 %, which is flagged.
     expect(uniform[12]!.swing).toBeLessThan(0.01);
     expect(uniform[12]!.warnings.map((w) => w.code)).toContain('small-swing');
-    // The shipped recipe takes these layers off their troublesome levels.
-    expect(edgePlan.layers.flatMap((l) => l.warnings)).toEqual([]);
+    // The shipped recipe takes these layers off their troublesome levels; what remains is layer 8,
+    // whose figure with the layers below (1.15 %) is over 1 % though noise alone gives 0.31 %.
+    expect(edgePlan.layers.flatMap((l) => l.warnings.map((w) => `${l.number} ${w.code}`))).toEqual(['8 imprecise-cut']);
   });
 
   it('precisions are on the parts and the trigger precedes the cut by the shutter delay', () => {
@@ -337,8 +338,10 @@ describe('re-planning after a cut', () => {
       expect(again.fromLayer).toBe(k + 1);
       expect(again.layers).toHaveLength(recipe.layers.length - k);
       // Everything but the stack figure, which takes the finished layers as estimated and knows
-      // nothing of their indices (a re-plan in the run leaves it out altogether).
-      const withoutStack = (layers: RunPlan['layers']) => layers.map(({ stackPrecisionNm: _nm, stackPrecisionPercent: _pct, ...rest }) => rest);
+      // nothing of their indices (a re-plan in the run leaves it out altogether), and the
+      // imprecise-cut warning judged on it.
+      const withoutStack = (layers: RunPlan['layers']) =>
+        layers.map(({ stackPrecisionNm: _nm, stackPrecisionPercent: _pct, warnings, ...rest }) => ({ ...rest, warnings: warnings.filter((w) => w.code !== 'imprecise-cut') }));
       expectSame(withoutStack(full.layers.slice(k)), withoutStack(again.layers), 'layers');
       again.layers.forEach((l) => expect(l.stackPrecisionNm).toBeGreaterThanOrEqual(l.precisionNm));
     });
