@@ -5,7 +5,6 @@
 import { createVirtualChamber, trueOpticalErrorPercent, trueStackSpec, type SimProfile } from '../../sim/index.ts';
 import { spectrumDeviation } from '../model/design/spectrum-deviation.ts';
 import { checkTolerances } from '../model/design/tolerances.ts';
-import { indexAt } from '../model/optics/dispersion.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import { createController, type ControllerOptions } from '../pipeline/controller.ts';
 import { runStepped } from '../pipeline/run-stepped.ts';

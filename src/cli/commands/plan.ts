@@ -10,7 +10,7 @@ import { proposeStrategy, type Proposal } from '../../model/plan/propose.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import { planRun, type LayerPlan, type RunPlan } from '../../model/plan/plan.ts';
-import { CUT_MODE_SHORT } from '../../pipeline/cut-words.ts';
+import { CUT_MODE_SHORT, CUT_MODE_WORDS } from '../../pipeline/cut-words.ts';
 import { renderLineChart, type ChartBand, type ChartLegendEntry, type ChartMarker, type ChartPoint } from '../../report/index.ts';
 import { CliError, numberOption, outputFileOption, plotFileOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
@@ -111,7 +111,7 @@ const COLUMNS: { head: string; width: number; left?: boolean; cell: (l: LayerPla
   { head: '±nm fit', width: 7, cell: (l) => fixed(l.precisionNm, 3) },
   { head: '±nm stack', width: 9, cell: (l) => fixed(l.stackPrecisionNm, 3) },
   { head: '±nm rule', width: 8, cell: (l) => fixed(l.plainRulePrecisionNm, 3) },
-  { head: 'best λ (±%)', width: 12, cell: (l) => (l.suggestion ? `${l.suggestion.wavelengthNm} (${fixed(l.suggestion.precisionPercent, 2)})` : '—') },
+  { head: 'best λ (±%)', width: 11, cell: (l) => (l.suggestion ? `${l.suggestion.wavelengthNm} (${fixed(l.suggestion.precisionPercent, 2)})` : '—') },
   { head: 'time', width: 7, cell: (l) => formatDuration(l.durationS) },
 ];
 
@@ -272,7 +272,7 @@ function formatProposal(p: Proposal, file: string): string {
   if (p.changes.length > 0) rows.push('');
   for (const c of p.changes) {
     rows.push(
-      `  layer ${c.layer}: ${CUT_MODE_SHORT[c.from.cut]} at ${c.from.wavelengthNm} nm → ${CUT_MODE_SHORT[c.to.cut]}${c.to.cut === 'crystal' ? '' : ` at ${c.to.wavelengthNm} nm`}: ` +
+      `  layer ${c.layer}: ${CUT_MODE_WORDS[c.from.cut]} at ${c.from.wavelengthNm} nm → ${CUT_MODE_WORDS[c.to.cut]}${c.to.cut === 'crystal' ? '' : ` at ${c.to.wavelengthNm} nm`}: ` +
         `its stack figure ${fixed(c.beforePercent, 3)} % → ${fixed(c.afterPercent, 3)} %, the run's cost ${fixed(c.costBefore, 3)} → ${fixed(c.costAfter, 3)}`,
     );
   }

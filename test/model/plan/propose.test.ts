@@ -39,7 +39,7 @@ describe('fringe plan --propose', () => {
     const out = join(mkdtempSync(join(tmpdir(), 'fringe-propose-')), 'nested', 'proposed.yaml');
     const r = await runCli('plan', ar4File, '--propose', out);
     expect(r.code, r.err).toBe(0);
-    expect(r.out).toMatch(/layer 4: level at 760 nm → level at \d+ nm: its stack figure 0\.\d+ % → 0\.\d+ %/);
+    expect(r.out).toMatch(/layer 4: trigger level at 760 nm → trigger level at \d+ nm: its stack figure 0\.\d+ % → 0\.\d+ %/);
     const written = loadRecipe(out);
     expect(planCost(planRun(written, { suggest: 'none' }))).toBeCloseTo(proposal.costAfter, 9);
     const bad = await runCli('plan', ar4File, '--propose', join(tmpdir(), 'proposed.txt'));
