@@ -6,6 +6,7 @@ import { OpticalModelError } from '../model/optics/optical-model.ts';
 import { describeRefusedPath, FolderError } from '../files/writable-folder.ts';
 import { CliError } from './cli-error.ts';
 import { processIo, type CommandIo } from './command-io.ts';
+import { calibrateUsage, runCalibrate } from './commands/calibrate.ts';
 import { planUsage, runPlan } from './commands/plan.ts';
 import { demoUsage, runDemo } from './commands/demo.ts';
 import { exportUsage, runExport } from './commands/export.ts';
@@ -26,6 +27,7 @@ const commands: Record<string, { run: (argv: string[], io: CommandIo) => number 
   study: { run: runStudyCommand, usage: studyUsage },
   demo: { run: runDemo, usage: demoUsage },
   tooling: { run: runTooling, usage: toolingUsage },
+  calibrate: { run: runCalibrate, usage: calibrateUsage },
 };
 
 const usage = `fringe: live monitoring and layer cutting for optical coating runs.
@@ -42,6 +44,7 @@ Commands:
   study RECIPE        many seeded simulated runs per cut strategy: errors against the plan's precision
   demo                a simulated run with the live dashboard on http://127.0.0.1:7300
   tooling             a corrected tooling factor from a calibration run
+  calibrate RUN       the chamber's chip ratios, tooling factors and film indices from finished runs
 
 fringe is process control, not a safety system: interlocks, manual shutter controls and the
 equipment maker's instructions stay in charge.
