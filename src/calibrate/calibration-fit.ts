@@ -11,7 +11,8 @@
  * (the sources not yet hot).
  *
  * Data and model (each datum weighted by its noise, estimated from the data themselves):
- * - optical readings of layer k, bin means on the layer's growth clock u (run-data.ts):
+ * - optical readings of layer k, bin means on the layer's growth clock u (run-data.ts), each
+ *   modelled as the mean over its bin:
  *   y = (g₀ + g₁t)·S_k(ρ_m·p_k·u) + o₀ + o₁t, S_k the chip monitor of layer k over the chip's
  *   earlier layers at ρ·p and f (chipMonitorFor: the plan's own optics);
  * - the crystal's frequency in each pause: F_j = f(stack of p_i/τ_i, i ≤ j) + C (+ H before the
@@ -112,6 +113,14 @@ export const CALIBRATION_PRIORS = {
  * common practice, no source).
  */
 export const CRYSTAL_LEVEL_FLOOR_HZ = 0.2;
+
+/**
+ * Added in quadrature to each optical bin's noise, fraction of full scale: what the model of a
+ * bin misses however many readings it averages — the crystal clock's heat transient at each
+ * opening, the clock's residual bend (run-data.ts). Without it the Monte Carlo of the index
+ * factors on the mirror gave errors 1.5× their sigmas; with it, honest (DEVELOPERS.md).
+ */
+export const OPTICAL_MODEL_FLOOR = 1.5e-4;
 
 /** |correlation| above which two parameters are reported as not separated by the data. */
 export const UNSEPARATED_CORRELATION = 0.9;
@@ -243,7 +252,7 @@ export function calibrate(runs: readonly RunData[], spectra: readonly SpectrumDa
         if ((layout.partAt[j] as number) >= 0) deps.push(layout.partAt[j] as number);
       }
       const rows = layer.values.length;
-      const sqrtW = Float64Array.from(layer.counts, (c) => Math.sqrt(c) / run.opticalNoise);
+      const sqrtW = Float64Array.from(layer.counts, (c) => 1 / Math.hypot(run.opticalNoise / Math.sqrt(c), OPTICAL_MODEL_FLOOR));
       let key: number[] = [];
       const signal = new Float64Array(rows);
       const nonlinear = deps.slice(4);
@@ -269,7 +278,15 @@ export function calibrate(runs: readonly RunData[], spectra: readonly SpectrumDa
               const m = materialOf(lr);
               const monitor = chipMonitorFor(recipe, layer.index, scaled, { indexFactors, growingIndexFactor: t[fAt(m)] as number });
               const chipNm = (partNm[layer.index] as number) * Math.exp(t[rhoAt(m)] as number) * (rhoRecipe[m] as number);
-              for (let i = 0; i < rows; i++) signal[i] = monitor.signalAt(chipNm * (layer.clocks[i] as number));
+              // A bin's mean signal by the two-point Gauss rule over its clocks (nodes at the mean ± the
+              // spread: exact to cubic terms for evenly spread readings). The signal at the mean clock
+              // alone is low at every maximum and high at every minimum by S''·var/2, which shrank
+              // the swings and biased the index factors.
+              for (let i = 0; i < rows; i++) {
+                const u = layer.clocks[i] as number;
+                const spread = layer.clockSpreads[i] as number;
+                signal[i] = spread > 0 ? 0.5 * (monitor.signalAt(chipNm * (u + spread)) + monitor.signalAt(chipNm * (u - spread))) : monitor.signalAt(chipNm * u);
+              }
             }
             const g0 = t[g] as number;
             const g1 = t[g + 1] as number;

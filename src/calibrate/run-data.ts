@@ -5,7 +5,9 @@
  * in the pause after each layer.
  *
  * A layer's growth clock u (0 at the opening, 1 at the close) is the crystal's: the fraction of
- * the layer's frequency change reached at the reading's time. The crystal follows the real rate,
+ * the layer's mass reached at the reading's time, read as 1/f (mass is linear in 1/f for a
+ * matched film, the Z-match's first term; in f itself it bends by Δf/f, a few 1e-4 over a layer,
+ * which bent the monitor curves and biased the index factors by as much). The crystal follows the real rate,
  * its fluctuations and its ramp, so the optical readings are placed along the layer's thickness
  * without a rate model; a layer without crystal readings falls back to the run time.
  */
@@ -21,9 +23,10 @@ export interface LayerReadings {
   readonly index: number;
   readonly openS: number;
   readonly closeS: number;
-  /** Bin means: run time (s), growth clock u (0..1), signal, readings averaged. */
+  /** Bin means: run time (s), growth clock u (0..1) and its spread (sd) within the bin, signal, readings averaged. */
   readonly timesS: Float64Array;
   readonly clocks: Float64Array;
+  readonly clockSpreads: Float64Array;
   readonly values: Float64Array;
   readonly counts: Float64Array;
   /** Whether u came from the crystal (else from the run time). */
@@ -169,7 +172,7 @@ export function collectRunData(label: string, recipe: ResolvedRecipe, records: I
     const clockAt = (t: number): number => {
       if (t >= v.closeS) return 1;
       if (t <= v.openS) return 0;
-      const u = crystalClock ? (before - interpolate(crystalT, crystalV, t)) / (before - after) : (t - v.openS) / (v.closeS - v.openS);
+      const u = crystalClock ? (1 / interpolate(crystalT, crystalV, t) - 1 / before) / (1 / after - 1 / before) : (t - v.openS) / (v.closeS - v.openS);
       return Math.min(1, Math.max(0, u));
     };
     const growing: number[] = [];
@@ -177,6 +180,7 @@ export function collectRunData(label: string, recipe: ResolvedRecipe, records: I
     for (let j = lowerBound(opticalT, v.openS); j < opticalT.length && (opticalT[j] as number) < v.endS; j++) ((opticalT[j] as number) < v.closeS ? growing : paused).push(j);
     const timesS: number[] = [];
     const clocks: number[] = [];
+    const spreads: number[] = [];
     const values: number[] = [];
     const counts: number[] = [];
     for (const [group, bins] of [[growing, GROWTH_BINS], [paused, PAUSE_BINS]] as const) {
@@ -186,15 +190,20 @@ export function collectRunData(label: string, recipe: ResolvedRecipe, records: I
         const to = Math.floor(((b + 1) * group.length) / count);
         let t = 0;
         let u = 0;
+        let uu = 0;
         let y = 0;
         for (let k = from; k < to; k++) {
           const j = group[k] as number;
+          const c = clockAt(opticalT[j] as number);
           t += opticalT[j] as number;
-          u += clockAt(opticalT[j] as number);
+          u += c;
+          uu += c * c;
           y += opticalV[j] as number;
         }
-        timesS.push(t / (to - from));
-        clocks.push(u / (to - from));
+        const n = to - from;
+        timesS.push(t / n);
+        clocks.push(u / n);
+        spreads.push(Math.sqrt(Math.max(0, uu / n - (u / n) ** 2)));
         values.push(y / (to - from));
         counts.push(to - from);
       }
@@ -205,6 +214,7 @@ export function collectRunData(label: string, recipe: ResolvedRecipe, records: I
       closeS: v.closeS,
       timesS: Float64Array.from(timesS),
       clocks: Float64Array.from(clocks),
+      clockSpreads: Float64Array.from(spreads),
       values: Float64Array.from(values),
       counts: Float64Array.from(counts),
       crystalClock,
