@@ -25,7 +25,7 @@
  * Weak priors keep every direction bounded (f ± 5 %, ρ and τ ± 10 % of the recipe's, p ± 20 % of
  * the target, gains ± 5 %): they are counted in the covariance, so a direction the data do not
  * fix shows the prior's width, never a false precision. Levenberg–Marquardt (Marquardt, J. SIAM
- * 11, 431 (1963); from memory) on central differences, with the dense Cholesky of dense.ts; the
+ * 11, 431 (1963); from memory) on forward differences, with the dense Cholesky of dense.ts; the
  * covariance is the inverse of the undamped normal matrix, scaled by the reduced χ² when that
  * exceeds 1 (Birge's ratio: the model missed something, so the sigmas widen).
  */
@@ -173,7 +173,7 @@ export function calibrate(runs: readonly RunData[], spectra: readonly SpectrumDa
   });
   const priorMean = new Float64Array(P);
   const priorSigma = new Float64Array(P);
-  const step = new Float64Array(P).fill(1e-5);
+  const step = new Float64Array(P).fill(1e-6);
   for (let m = 0; m < M; m++) {
     priorMean[fAt(m)] = 1;
     priorSigma[fAt(m)] = CALIBRATION_PRIORS.indexFactor;
@@ -415,26 +415,21 @@ export function calibrate(runs: readonly RunData[], spectra: readonly SpectrumDa
   const maxIterations = options.maxIterations ?? 30;
   const columns: Float64Array[] = Array.from({ length: P }, () => new Float64Array(N));
   const scratch = new Float64Array(N);
-  const below = new Float64Array(N);
 
   const buildNormal = (): Float64Array => {
-    // Whitened Jacobian columns by central differences, block by block: the valley of the
-    // thickness scale (p up, ρ down, τ up together) is the difference of large columns, which
-    // forward differences' O(h) error spoiled (LM crept along it for a dozen iterations).
+    // Whitened Jacobian columns by forward differences, block by block (the blocks a parameter
+    // does not touch keep a zero column).
     for (let p = 0; p < P; p++) {
       const col = columns[p] as Float64Array;
       col.fill(0);
       const h = step[p] as number;
       const saved = theta[p] as number;
+      theta[p] = saved + h;
       for (const b of dependents[p] as Set<number>) {
         const block = blocks[b] as Block;
         const up = scratch.subarray(block.offset, block.offset + block.rows);
-        const down = below.subarray(block.offset, block.offset + block.rows);
-        theta[p] = saved + h;
         block.predict(theta, up);
-        theta[p] = saved - h;
-        block.predict(theta, down);
-        for (let i = 0; i < block.rows; i++) col[block.offset + i] = (((up[i] as number) - (down[i] as number)) / (2 * h)) * (block.sqrtW[i] as number);
+        for (let i = 0; i < block.rows; i++) col[block.offset + i] = (((up[i] as number) - (predicted[block.offset + i] as number)) / h) * (block.sqrtW[i] as number);
       }
       theta[p] = saved;
     }
