@@ -1,8 +1,9 @@
 // The loop closes: a run on a chamber with hidden errors (the uncalibrated profile), calibrated
 // from its journal and one measured spectrum (simulated noise 0.2 %T) through the command line,
 // then the written recipe run on the same chamber: the rms error on the parts in n·d falls to
-// within 1.5× of what the same chamber gives once calibrated (its errors zeroed).
-import { mkdtempSync, readdirSync } from 'node:fs';
+// within 1.5× of what the same chamber gives once calibrated (its errors zeroed), and the edge
+// filter's worst spectral deviation from the design is at least halved.
+import { mkdtempSync, readdirSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -12,7 +13,6 @@ import { simulateRun } from '../../src/cli/commands/simulate.ts';
 import { loadRecipe } from '../../src/config/load-recipe.ts';
 import type { ResolvedRecipe } from '../../src/model/plan/recipe.ts';
 import { runCli } from '../support/run-cli.ts';
-import { writeFileSync } from 'node:fs';
 import { stringify } from 'yaml';
 
 const RECIPE = fileURLToPath(new URL('../../config/recipes/edge-longpass-visible.yaml', import.meta.url));
@@ -75,6 +75,8 @@ describe('closing the loop across runs', () => {
       );
       expect(figures.after).toBeLessThan(figures.before);
       expect(figures.after).toBeLessThanOrEqual(1.5 * figures.calibrated);
+      // The edge filter's worst spectral deviation at least halved.
+      expect(figures.worstTAfter).toBeLessThanOrEqual(0.5 * figures.worstTBefore);
     },
     600_000,
   );
