@@ -61,7 +61,12 @@ interface Interval {
   endS: number;
 }
 
-/** Reads what the calibration needs from a journal's records; refuses (throws a plain Error sentence) a run with no finished layer. */
+/** A run the calibration cannot use, in one sentence. */
+export class CalibrationDataError extends Error {
+  override name = 'CalibrationDataError';
+}
+
+/** Reads what the calibration needs from a journal's records; refuses a run with no deposited layer (CalibrationDataError). */
 export function collectRunData(label: string, recipe: ResolvedRecipe, records: Iterable<JournalRecord>): RunData {
   const K = recipe.layers.length;
   const opticalT: number[] = [];
@@ -140,7 +145,7 @@ export function collectRunData(label: string, recipe: ResolvedRecipe, records: I
   }
   const warnings: string[] = [];
   const finished = intervals.filter((v) => v !== null).length;
-  if (finished === 0) throw new Error(`${label}: the journal records no layer that was deposited`);
+  if (finished === 0) throw new CalibrationDataError(`${label}: the journal records no layer that was deposited, so there is nothing to calibrate from`);
   if (finished < K) warnings.push(`${label}: ${K - finished} of ${K} layers were never opened; the calibration uses the ${finished} that were`);
 
   // Crystal levels in the pauses.

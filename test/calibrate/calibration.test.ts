@@ -105,6 +105,14 @@ describe('calibrating simulated runs with known hidden errors', () => {
       }
       expect(two.layers.filter((l) => l.run === 1)).toHaveLength(4);
 
+      // A run whose crystal was lost: its layers go on the run time's clock, said in a warning,
+      // and the tooling factors rest on their priors.
+      const noCrystal = collectRunData('no crystal', recipe, a.records.filter((r) => !(r.k === 'r' && r.c === 'x')));
+      expect(noCrystal.warnings.join('\n')).toMatch(/placed on the run time instead/);
+      const lost = calibrate([noCrystal], [{ run: 0, spectrum: a.measured }]);
+      expect(lost.warnings.join('\n')).toMatch(/the crystal was not read in at least two pauses/);
+      expect(lost.materials.TiO2?.toolingFactor.sigma).toBeGreaterThan(0.05);
+
       const blind = calibrate([runA], []);
       const tio2 = blind.materials.TiO2;
       if (!tio2) throw new Error('no TiO2');

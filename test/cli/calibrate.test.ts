@@ -1,6 +1,6 @@
 // fringe calibrate and simulate --measured-out on the command line: the files they write and
 // read, the JSON's keys, and every refusal as one sentence.
-import { mkdtempSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
+import { copyFileSync, mkdirSync, mkdtempSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -79,6 +79,12 @@ describe('fringe calibrate', () => {
       [[run, '--out', join(dir, 'x.yaml')], /--out needs --recipe FILE/],
       [[run, '--quantity', 'A'], /--quantity must be T or R/],
     ];
+    // A run that never deposited a layer: its header and its recipe, nothing else.
+    const empty = join(dir, 'empty-run');
+    mkdirSync(empty);
+    writeFileSync(join(empty, 'journal.ndjson'), `${readFileSync(join(run, 'journal.ndjson'), 'utf8').split('\n')[0] ?? ''}\n`);
+    copyFileSync(join(run, 'recipe.json'), join(empty, 'recipe.json'));
+    cases.push([[empty], /records no layer that was deposited/]);
     const bad = join(dir, 'bad.csv');
     writeFileSync(bad, 'nm,T\n500,90\nEnd of data\n');
     cases.push([[run, '--measured', bad], /bad\.csv line 3: expected a wavelength in nm and a T value/]);

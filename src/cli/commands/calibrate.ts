@@ -7,7 +7,7 @@ import { readFileSync, renameSync, writeFileSync } from 'node:fs';
 import { dirname, join, relative, resolve } from 'node:path';
 import { parseArgs } from 'node:util';
 import { parseDocument } from 'yaml';
-import { calibrate, collectRunData, MeasuredSpectrumError, readMeasuredSpectrum, type CalibrationResult, type RunData, type SpectrumData } from '../../calibrate/index.ts';
+import { calibrate, CalibrationDataError, collectRunData, MeasuredSpectrumError, readMeasuredSpectrum, type CalibrationResult, type RunData, type SpectrumData } from '../../calibrate/index.ts';
 import { readYamlFile } from '../../config/read-config.ts';
 import { scaledDispersion } from '../../model/optics/dispersion.ts';
 import { buildOpticalModel, spectrum, type StackSpec } from '../../model/optics/optical-model.ts';
@@ -86,7 +86,7 @@ export function runCalibrate(argv: string[], io: CommandIo): number {
     try {
       data = collectRunData(run.journal.header.runId, recipe, run.journal.records);
     } catch (error) {
-      if (error instanceof Error && !(error instanceof TypeError) && !(error instanceof RangeError)) throw new CliError(error.message, 1);
+      if (error instanceof CalibrationDataError) throw new CliError(error.message, 1);
       throw error;
     }
     warnOfDamage(run, io);
