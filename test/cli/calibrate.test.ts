@@ -5,6 +5,7 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { beforeAll, describe, expect, it } from 'vitest';
+import { loadSimProfile } from '../../sim/index.ts';
 import { parseMeasuredSpectrum } from '../../src/calibrate/index.ts';
 import { loadRecipe } from '../../src/config/load-recipe.ts';
 import { runCli } from '../support/run-cli.ts';
@@ -64,6 +65,22 @@ describe('fringe calibrate', () => {
     },
     120_000,
   );
+
+  it('--profile-out writes a simulator profile that loads and holds the calibrated errors against the recipe', async () => {
+    const file = join(dir, 'chamber.yaml');
+    const r = await runCli('calibrate', run, '--measured', measured, '--json', '--profile-out', file);
+    expect(r.code).toBe(0);
+    const json = JSON.parse(r.out) as { materials: Record<string, Record<string, { value: number }>> };
+    const profile = loadSimProfile(file);
+    const before = loadRecipe(RECIPE); // chip ratio and tooling 1 for both materials
+    const tio2 = before.layers.find((l) => l.materialName === 'TiO2');
+    expect(profile.sources.TiO2?.chipRatioErrorPercent).toBeCloseTo(100 * ((json.materials.TiO2?.chipRatio?.value ?? 0) / (tio2?.chipRatio ?? 1) - 1), 4);
+    expect(profile.sources.SiO2?.toolingErrorPercent).toBeCloseTo(100 * ((json.materials.SiO2?.toolingFactor?.value ?? 0) - 1), 4);
+    expect(profile.materials.TiO2?.indexOffsetPercent).toBeCloseTo(100 * ((json.materials.TiO2?.indexFactor?.value ?? 0) - 1), 4);
+    // The monitor's noise as the run showed it: the uncalibrated profile's 0.1 % within a tenth.
+    expect(profile.optical.noisePercent).toBeGreaterThan(0.09);
+    expect(profile.optical.noisePercent).toBeLessThan(0.11);
+  }, 120_000);
 
   it('prints a table for people', async () => {
     const r = await runCli('calibrate', run, '--measured', measured);

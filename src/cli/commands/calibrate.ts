@@ -6,7 +6,8 @@
 import { readFileSync, renameSync, writeFileSync } from 'node:fs';
 import { dirname, join, relative, resolve } from 'node:path';
 import { parseArgs } from 'node:util';
-import { parseDocument } from 'yaml';
+import { Document, parseDocument } from 'yaml';
+import { SimProfileSchema } from '../../../sim/index.ts';
 import { calibrate, CalibrationDataError, collectRunData, MeasuredSpectrumError, readMeasuredSpectrum, type CalibrationResult, type RunData, type SpectrumData } from '../../calibrate/index.ts';
 import { readYamlFile } from '../../config/read-config.ts';
 import { scaledDispersion } from '../../model/optics/dispersion.ts';
@@ -34,6 +35,9 @@ physics. Several runs are pooled: the factors are shared, the layers are each ru
                         ratios and tooling factors (the design untouched)
   --recipe FILE         the recipe file the run was made with (for --out)
   --plot FILE.svg       the measured spectra over the design's and the calibrated model's
+  --profile-out FILE    write a simulator profile of this chamber as calibrated (chip ratio,
+                        tooling and index errors against the first run's recipe, the monitor's
+                        and the crystal's noise), for fringe simulate --profile
 
 The calibration is kept beside each run as calibration.json.
 `;
@@ -50,6 +54,7 @@ export function runCalibrate(argv: string[], io: CommandIo): number {
       scale: { type: 'string' },
       json: { type: 'boolean' },
       out: { type: 'string' },
+      'profile-out': { type: 'string' },
       recipe: { type: 'string' },
       plot: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
@@ -76,6 +81,7 @@ export function runCalibrate(argv: string[], io: CommandIo): number {
     outputFileOption('out', values.out);
   }
   if (values.plot !== undefined) outputFileOption('plot', values.plot);
+  if (values['profile-out'] !== undefined) outputFileOption('profile-out', values['profile-out']);
 
   const runs: RunData[] = [];
   const dirs: string[] = [];
@@ -111,6 +117,7 @@ export function runCalibrate(argv: string[], io: CommandIo): number {
   for (const dir of new Set(dirs)) writeAtomically(join(dir, 'calibration.json'), `${JSON.stringify(record, null, 2)}\n`);
   if (values.out !== undefined) writeOutputFile(values.out, correctedRecipe(values.recipe as string, values.out, result, runs, spectra));
   if (values.plot !== undefined) writeOutputFile(values.plot, plotOf(result, runs, spectra));
+  if (values['profile-out'] !== undefined) writeOutputFile(values['profile-out'], profileOf(result, runs));
   io.out(values.json ? JSON.stringify(record) : formatTable(result, runs, spectra));
   return 0;
 }
@@ -235,3 +242,37 @@ function plotOf(result: CalibrationResult, runs: readonly RunData[], spectra: re
   return renderLineChart(series, { title: `Calibration: ${runs.map((r) => r.label).join(', ')}`, xLabel: 'Wavelength (nm)', yLabel: spectra[0]?.spectrum.quantity ?? 'T', yPercent: true });
 }
 
+
+/**
+ * A simulator profile of the chamber as calibrated: per material the chip-ratio, tooling and
+ * index errors against the first run's recipe (so that `fringe simulate` of that recipe builds
+ * the chamber found) and the noise of the monitor and the crystal as the runs showed them. The
+ * rest (rates, ramps, fluctuation, drifts, shutter delays) is the typical profile's: not yet
+ * estimated from the journal, and the file says so.
+ */
+function profileOf(result: CalibrationResult, runs: readonly RunData[]): string {
+  const sources: Record<string, unknown> = { default: {} };
+  const materials: Record<string, unknown> = { default: { indexScatterPercent: 0 } };
+  for (const [name, m] of Object.entries(result.materials)) {
+    sources[name] = {
+      chipRatioErrorPercent: round(100 * (m.chipRatio.value / m.recipeChipRatio - 1)),
+      toolingErrorPercent: round(100 * (m.toolingFactor.value / m.recipeToolingFactor - 1)),
+    };
+    materials[name] = { indexOffsetPercent: round(100 * (m.indexFactor.value - 1)), indexScatterPercent: 0 };
+  }
+  const mean = (f: (r: RunData) => number): number => runs.reduce((s, r) => s + f(r), 0) / runs.length;
+  const profile = {
+    formatVersion: 1,
+    name: `calibrated from ${runs.map((r) => r.label).join(', ')}`,
+    description: 'chip ratios, tooling factors, film indices and instrument noise from fringe calibrate; every other knob is the typical profile\'s, not estimated',
+    sources,
+    materials,
+    optical: { noisePercent: round(100 * mean((r) => r.opticalNoise)) },
+    crystal: { noiseHz: round(mean((r) => r.crystalNoiseHz)) },
+  };
+  // Checked against the schema before it is written: a file fringe writes must load.
+  SimProfileSchema.parse(profile);
+  const doc = new Document(profile);
+  doc.commentBefore = ` Simulator profile written by fringe calibrate from ${runs.map((r) => `run ${r.label}`).join(', ')}:\n errors are against the recipe of the first run.`;
+  return doc.toString();
+}
