@@ -16,6 +16,7 @@ export {
   SourceOverrideSchema,
   SourceSettingsSchema,
   sourceSettingsFor,
+  SpectrophotometerSettingsSchema,
 } from './profile.ts';
 export type {
   CrystalSettings,
@@ -25,6 +26,7 @@ export type {
   SimProfile,
   SourceOverride,
   SourceSettings,
+  SpectrophotometerSettings,
 } from './profile.ts';
 export { scaledDispersion } from '../src/model/optics/dispersion.ts';
 export { fluctuationGridS, SourceRate } from './source-rate.ts';
@@ -50,5 +52,7 @@ export {
 } from './line-format.ts';
 export { createPtyPair, serveOnPty, serveOnStream, serveOnTcp } from './serve.ts';
 export type { PtyPair, ServedChamber, ServeOptions, TcpServedChamber, TcpServeOptions } from './serve.ts';
+export { measureParts, MEASUREMENT_STEP_NM } from './spectrophotometer.ts';
+export type { PartMeasurement } from './spectrophotometer.ts';
 export { createChamberSource } from './chamber-source.ts';
 export type { ChamberSourceOptions } from './chamber-source.ts';

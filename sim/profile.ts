@@ -167,6 +167,13 @@ export const CrystalSettingsSchema = z.strictObject({
 });
 export type CrystalSettings = z.infer<typeof CrystalSettingsSchema>;
 
+/** The spectrophotometer that measures the finished parts (`fringe simulate --measured-out`). */
+export const SpectrophotometerSettingsSchema = z.strictObject({
+  /** rms of the white noise of one measured point, percent (of T or R, 0–100 %). Default 0.2. */
+  noisePercent: nonNegative.max(20).default(0.2),
+});
+export type SpectrophotometerSettings = z.infer<typeof SpectrophotometerSettingsSchema>;
+
 export const SimProfileSchema = z.strictObject({
   formatVersion: z.literal(1),
   name: z.string().min(1),
@@ -177,6 +184,7 @@ export const SimProfileSchema = z.strictObject({
   materials: z.object({ default: MaterialSettingsSchema.prefault({}) }).catchall(MaterialOverrideSchema).prefault({}),
   optical: OpticalSettingsSchema.prefault({}),
   crystal: CrystalSettingsSchema.prefault({}),
+  spectrophotometer: SpectrophotometerSettingsSchema.prefault({}),
 });
 export type SimProfile = z.infer<typeof SimProfileSchema>;
 

@@ -7,6 +7,7 @@ import { describeRefusedPath, FolderError } from '../files/writable-folder.ts';
 import { CliError } from './cli-error.ts';
 import { processIo, type CommandIo } from './command-io.ts';
 import { materialsUsage, runMaterials } from './commands/materials.ts';
+import { calibrateUsage, runCalibrate } from './commands/calibrate.ts';
 import { planUsage, runPlan } from './commands/plan.ts';
 import { demoUsage, runDemo } from './commands/demo.ts';
 import { exportUsage, runExport } from './commands/export.ts';
@@ -30,6 +31,7 @@ const commands: Record<string, { run: (argv: string[], io: CommandIo) => number 
   demo: { run: runDemo, usage: demoUsage },
   tooling: { run: runTooling, usage: toolingUsage },
   materials: { run: runMaterials, usage: materialsUsage },
+  calibrate: { run: runCalibrate, usage: calibrateUsage },
 };
 
 const usage = `fringe: live monitoring and layer cutting for optical coating runs.
@@ -48,6 +50,7 @@ Commands:
   demo                a simulated run with the live dashboard on http://127.0.0.1:7300
   tooling             a corrected tooling factor from a calibration run
   materials [NAME]    the material library: range, dispersion, sources; --plot of n and k
+  calibrate RUN       the chamber's chip ratios, tooling factors and film indices from finished runs
 
 fringe is process control, not a safety system: interlocks, manual shutter controls and the
 equipment maker's instructions stay in charge.

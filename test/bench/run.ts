@@ -6,13 +6,14 @@
 import { writeFileSync } from 'node:fs';
 import { fileURLToPath } from 'node:url';
 import type { Benchmark, BenchResult } from './harness.ts';
+import { calibrateBenchmarks } from './calibrate.bench.ts';
 import { opticsBenchmarks } from './optics.bench.ts';
 import { planBenchmarks } from './plan.bench.ts';
 import { pipelineBenchmarks } from './pipeline.bench.ts';
 import { serverBenchmarks } from './server.bench.ts';
 import { simBenchmarks } from './sim.bench.ts';
 
-const all: Benchmark[] = [...opticsBenchmarks, ...planBenchmarks, ...simBenchmarks, ...pipelineBenchmarks, ...serverBenchmarks];
+const all: Benchmark[] = [...opticsBenchmarks, ...planBenchmarks, ...simBenchmarks, ...pipelineBenchmarks, ...serverBenchmarks, ...calibrateBenchmarks];
 
 const groups = process.argv.slice(2);
 const selected = groups.length === 0 ? all : all.filter((b) => groups.some((g) => b.name === g || b.name.startsWith(`${g}.`)));

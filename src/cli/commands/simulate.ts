@@ -7,7 +7,8 @@ import { randomUUID } from 'node:crypto';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { parseCommandArgs } from '../parse-command-args.ts';
-import { createPtyPair, createVirtualChamber, loadSimProfile, serveOnPty, serveOnTcp, trueOpticalErrorPercent, trueStackSpec, type ChamberTruth } from '../../../sim/index.ts';
+import { createPtyPair, createVirtualChamber, loadSimProfile, measureParts, serveOnPty, serveOnTcp, trueOpticalErrorPercent, trueStackSpec, type ChamberTruth } from '../../../sim/index.ts';
+import { formatMeasuredSpectrum } from '../../calibrate/measured-spectrum.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import { createJournalWriter, type JournalWriter } from '../../journal/journal-writer.ts';
@@ -17,7 +18,7 @@ import { createController } from '../../pipeline/controller.ts';
 import { CUT_REASON_WORDS, wordFor } from '../../pipeline/cut-words.ts';
 import type { CutReason, RunEvent } from '../../pipeline/events.ts';
 import { createSteppedRun, runPaced } from '../../pipeline/run-stepped.ts';
-import { CliError, estimatorOption, numberOption, outputFileOption, outputFolderOption } from '../cli-error.ts';
+import { CliError, estimatorOption, numberOption, outputFileOption, outputFolderOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 import { createProgressBar, type ProgressSink } from '../progress-bar.ts';
 
@@ -36,6 +37,10 @@ layer's true thickness and error and the true stack's spectrum against the desig
   --estimator fit|plain cut optical layers on the model fit (default) or the plain rules
   --json                print one object with a "layers" array and a "spectrum" block
   --materials FILE      material library (default: the shipped config/materials.yaml)
+  --measured-out FILE   also write the finished part's spectrum as a spectrophotometer reports it
+                        (the true stack over the design's band, 1 nm steps, the profile's
+                        spectrophotometer noise), as CSV for fringe calibrate --measured
+  --quantity T|R        what --measured-out measures (default T)
 
   --serve               instead, serve the virtual instruments in fringe's line format, for
                         \`fringe run\` (or anything else) to read, until Ctrl-C:
@@ -87,6 +92,8 @@ export async function runSimulate(argv: string[], io: CommandIo): Promise<number
       estimator: { type: 'string' },
       pty: { type: 'string' },
       tcp: { type: 'string' },
+      'measured-out': { type: 'string' },
+      quantity: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
     },
   });
@@ -106,9 +113,25 @@ export async function runSimulate(argv: string[], io: CommandIo): Promise<number
   const profileFile = values.profile ?? DEFAULT_PROFILE;
   const profile = loadSimProfile(profileFile);
   if (values.journal !== undefined && !values.serve) outputFolderOption('journal', values.journal);
+  const quantity = values.quantity ?? 'T';
+  if (quantity !== 'T' && quantity !== 'R') throw new CliError(`--quantity must be T or R, got "${quantity}"`);
+  if (values['measured-out'] !== undefined) {
+    if (values.serve) throw new CliError('--measured-out goes with a whole simulated run, not with --serve');
+    if (!recipe.design.band) throw new CliError('--measured-out needs the design band (band: {fromNm, toNm} in the design) to measure over');
+    outputFileOption('measured-out', values['measured-out']);
+  }
   if (values.serve) return serve(recipe, profile, seed, Number.isFinite(speed) ? speed : 1, values, io);
   if (values.pty !== undefined || values.tcp !== undefined) throw new CliError('--pty and --tcp go with --serve');
-  const report = await simulateRun(recipe, { profile, profileName: profileFile, seed, speed, journalDir: values.journal, estimator });
+  const measuredOut = values['measured-out'];
+  const report = await simulateRun(recipe, {
+    profile,
+    profileName: profileFile,
+    seed,
+    speed,
+    journalDir: values.journal,
+    estimator,
+    ...(measuredOut !== undefined ? { measured: { file: measuredOut, quantity } } : {}),
+  });
   io.out(values.json ? JSON.stringify(report) : formatReport(report));
   return report.outcome === 'complete' ? 0 : 1;
 }
@@ -160,6 +183,8 @@ export interface SimulateOptions {
   progress?: ProgressSink | false;
   /** How optical layers are cut (default fit). */
   estimator?: 'plain' | 'fit';
+  /** Where to write the finished part's measured spectrum (CSV), and which quantity. */
+  measured?: { file: string; quantity: 'T' | 'R' };
 }
 
 /** One whole simulated run; pure apart from the optional journal and progress output. */
@@ -198,7 +223,15 @@ export async function simulateRun(recipe: ResolvedRecipe, options: SimulateOptio
     onChunk: (r) => bar?.update(r.nowS / Math.max(1, total), `layer ${Math.min(r.state.index + 1, recipe.layers.length)}/${recipe.layers.length}, ${formatClock(r.nowS)} of ~${formatClock(total)} run time`),
   });
   bar?.end();
-  const report = buildReport(recipe, chamber.truth(), events, { ...options, estimator }, run.nowS, run.state.targetsNm);
+  const truth = chamber.truth();
+  const report = buildReport(recipe, truth, events, { ...options, estimator }, run.nowS, run.state.targetsNm);
+  if (options.measured) {
+    const measured = measureParts(recipe, truth, options.profile, options.seed, options.measured.quantity);
+    if (measured) {
+      const note = `${recipe.name}: the finished part measured (simulated, seed ${options.seed}, ${options.profileName}; noise ${measured.noisePercent} %)`;
+      writeOutputFile(options.measured.file, formatMeasuredSpectrum(measured.quantity, measured.wavelengthsNm, measured.values, note));
+    }
+  }
   if (journal) {
     try {
       journal.writeFile('summary.json', `${JSON.stringify(report, null, 2)}\n`);
