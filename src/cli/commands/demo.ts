@@ -14,6 +14,7 @@ import { buildServer } from '../../server/build-server.ts';
 import { startSimulatedRun } from '../../server/simulated-run.ts';
 import { allowHostOption, CliError, estimatorOption, numberOption, outputFolderOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
+import { PLANT_OPTIONS, plantPlan, plantUsage, startPlant, stopPlant } from '../plant-options.ts';
 import { DEFAULT_PROFILE } from './simulate.ts';
 
 export const DEFAULT_DEMO_RECIPE = fileURLToPath(new URL('../../../config/recipes/edge-longpass-visible.yaml', import.meta.url));
@@ -38,7 +39,7 @@ journalled) and the dashboard stops.
                         bound address and the address it was reached at; any other Host gets 421
   --runs DIR            runs folder: where this run is kept and past runs are listed (default runs)
   --materials FILE      material library (default: the shipped config/materials.yaml)
-
+${plantUsage}
 A command token is made at start and printed once: enter it on the dashboard to use the controls.
 `;
 
@@ -65,6 +66,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
       'allow-host': { type: 'string', multiple: true },
       runs: { type: 'string' },
       materials: { type: 'string' },
+      ...PLANT_OPTIONS,
       help: { type: 'boolean', short: 'h' },
     },
   });
@@ -86,6 +88,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   const profileFile = values.profile ?? DEFAULT_PROFILE;
   const profile = loadSimProfile(profileFile);
   const runsDir = outputFolderOption('runs', values.runs ?? 'runs');
+  const plant = plantPlan(values, 'demo');
 
   const token = generateToken();
   const exposed = !isLoopback(host);
@@ -115,6 +118,8 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   }
   io.out(`run kept in ${simulated.dir ?? runsDir}`);
   io.out("fringe is process control, not a safety system: interlocks, manual shutter controls and the equipment maker's instructions stay in charge.");
+  const publisher = plant ? startPlant(plant, simulated.hub, simulated.note, io) : undefined;
+  publisher?.setDashboard(url);
   hooks.onListening?.({ url, token, viewerToken });
 
   // A run that ends by itself leaves the dashboard up to look at; Ctrl-C is said below.
@@ -142,6 +147,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   const stillRunning = simulated.run.running;
   stop.abort();
   const summary = await simulated.done.catch(() => undefined);
+  await stopPlant(publisher, io);
   await app.close();
   io.out(
     stillRunning && summary
