@@ -5,10 +5,10 @@
  * decision and costs the reading that carries a cut nothing but that append.
  *
  * Contract:
- * - `events` and `layers` (QoS 1) wait in one queue of at most `queueLimit` messages (those
- *   handed to the client and not yet acknowledged included) while the broker is away; when it is
- *   full the oldest waiting message is dropped and counted. They are handed to the client in the
- *   order they were made, so a subscriber sees them in order.
+ * - `events`, `layers` and `summary` (QoS 1) wait in one queue of at most `queueLimit` messages
+ *   while the broker is away; when it is full the oldest is dropped and counted. They are handed
+ *   to the client in the order they were made, at most 64 unacknowledged at a time (those the
+ *   client keeps and sends again after a reconnect), so a subscriber sees them in order.
  * - `state` (QoS 1, retained) is not queued: only the newest is kept and sent once the broker
  *   is back. It is sent when the hub's status changes and every `statePeriodMs` (time to cut).
  * - `readings` (QoS 0) are sent only while connected, at most `readingsPerS` per channel per
@@ -111,9 +111,8 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
   let lastError = '';
   let alertCount = 0;
   const lastReadingS = { optical: Number.NEGATIVE_INFINITY, crystal: Number.NEGATIVE_INFINITY };
-  const readingGapS = settings.readingsPerS > 0 ? 1 / settings.readingsPerS : Number.POSITIVE_INFINITY;
+  const readingGapS = 1 / settings.readingsPerS;
   let drained: (() => void) | null = null;
-  const inFlightLimit = Math.min(IN_FLIGHT, settings.queueLimit);
 
   const client: MqttClient = mqttConnect(settings.url, {
     clientId: `fringe-${chamber}-${Math.random().toString(16).slice(2, 10)}`,
@@ -173,7 +172,7 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
 
   function enqueue(t: PlantTopic, payload: unknown): void {
     queue.push({ topic: t, payload });
-    if (queue.length - queueHead + inFlight > settings.queueLimit && queueHead < queue.length) {
+    if (queue.length - queueHead > settings.queueLimit) {
       queueHead++;
       dropped++;
       droppedThisEpisode++;
@@ -188,8 +187,11 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
     flushScheduled = false;
     const messages = incoming;
     incoming = [];
+    // What waited goes first, so that the queue has room for what is new.
+    sendQueued();
     const connected = client.connected && !closing;
     for (const m of messages) take(m, connected);
+    sendQueued();
     if (!client.connected) return;
     if (stateDue && !stateInFlight) {
       stateDue = false;
@@ -199,7 +201,12 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
         schedule();
       });
     }
-    while (inFlight < inFlightLimit && queueHead < queue.length) {
+    if (inFlight === 0 && queueHead === queue.length && !stateInFlight) drained?.();
+  }
+
+  function sendQueued(): void {
+    if (!client.connected) return;
+    while (inFlight < IN_FLIGHT && queueHead < queue.length) {
       const m = queue[queueHead] as Outgoing;
       queue[queueHead++] = undefined as unknown as Outgoing;
       inFlight++;
@@ -213,7 +220,6 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
       queue.length = 0;
       queueHead = 0;
     }
-    if (inFlight === 0 && queueHead === queue.length && !stateInFlight) drained?.();
   }
 
   function take(message: HubMessage, connected: boolean): void {
@@ -237,14 +243,14 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
         break;
       case 'optical': {
         const [timeS, signal, chipNm] = message.point;
-        if (!connected || timeS - lastReadingS.optical < readingGapS) break;
+        if (!connected || settings.readingsPerS === 0 || timeS - lastReadingS.optical < readingGapS) break;
         lastReadingS.optical = timeS;
         publishReading({ ...base, runId, channel: 'optical', layer: message.layer, timeS, signal, chipNm });
         break;
       }
       case 'crystal': {
         const [timeS, rateNmPerS] = message.point;
-        if (!connected || timeS - lastReadingS.crystal < readingGapS) break;
+        if (!connected || settings.readingsPerS === 0 || timeS - lastReadingS.crystal < readingGapS) break;
         lastReadingS.crystal = timeS;
         publishReading({ ...base, runId, channel: 'crystal', timeS, rateNmPerS, partNm: message.partNm, frequencyHz: message.frequencyHz });
         break;

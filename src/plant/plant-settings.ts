@@ -23,7 +23,7 @@ export const PlantSettingsSchema = z.strictObject({
   chamber: TopicLevel.optional(),
   /** Decimated readings per second per channel, QoS 0 (default 1; 0 publishes none; at most the dashboard's 30). */
   readingsPerS: z.number().min(0).max(30).default(1),
-  /** QoS 1 messages held while the broker is away, oldest dropped first (default 10000). */
+  /** QoS 1 messages held while the broker is away (beside the 64 sent and awaiting its acknowledgement), oldest dropped first (default 10000). */
   queueLimit: z.number().int().min(1).max(1_000_000).default(10_000),
   /** A YAML file with `username` and `password` (or the environment's FRINGE_MQTT_USERNAME / FRINGE_MQTT_PASSWORD). */
   credentialsFile: z.string().min(1).optional(),
