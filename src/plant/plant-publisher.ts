@@ -119,6 +119,8 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
     clean: true,
     connectTimeout: 5000,
     reconnectPeriod: 1000,
+    // A broker that refuses us (credentials being put right, say) is asked again, as one that is down.
+    reconnectOnConnackError: true,
     // QoS 0 readings are sent only while connected; the client must not hoard them either.
     queueQoSZero: false,
     will: { topic: topic('state'), payload: Buffer.from(JSON.stringify({ ...offline, at: null })), qos: 1, retain: true },
