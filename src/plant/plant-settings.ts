@@ -11,7 +11,8 @@ const TopicLevel = z.string().regex(/^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$/, 'letter
 /** `mqtt://host[:port]` or `mqtts://host[:port]`, without a user or password in it. */
 export const BrokerUrlSchema = z.string().superRefine((text, ctx) => {
   const problem = brokerUrlProblem(text);
-  if (problem !== null) ctx.addIssue({ code: 'custom', input: text, message: problem });
+  // The address is not repeated in the message: it may hold a password.
+  if (problem !== null) ctx.addIssue({ code: 'custom', input: undefined, message: problem });
 });
 
 export const PlantSettingsSchema = z.strictObject({
@@ -34,7 +35,8 @@ export type PlantSettings = z.output<typeof PlantSettingsSchema>;
 
 export const BrokerCredentialsSchema = z.strictObject({
   username: z.string().min(1),
-  password: z.string().min(1),
+  // A password of digits is a number to YAML; as it is not echoed in a message, any other type is refused silently.
+  password: z.union([z.string().min(1), z.number()]).transform(String),
 });
 export type BrokerCredentials = z.output<typeof BrokerCredentialsSchema>;
 
@@ -44,7 +46,8 @@ export function brokerUrlProblem(text: string): string | null {
   try {
     url = new URL(text);
   } catch {
-    return `"${text}" is not an address; expected mqtt://HOST[:PORT] or mqtts://HOST[:PORT]`;
+    // Not quoted: it may hold a password.
+    return 'the broker address could not be read; expected mqtt://HOST[:PORT] or mqtts://HOST[:PORT]';
   }
   if (url.protocol !== 'mqtt:' && url.protocol !== 'mqtts:') return `the broker's address must start with mqtt:// or mqtts://, not ${url.protocol}//`;
   if (url.username !== '' || url.password !== '') return 'the broker address must not carry a user name or password: put them in a credentials file or FRINGE_MQTT_USERNAME and FRINGE_MQTT_PASSWORD';

@@ -43,7 +43,7 @@ export interface SimulatedRun {
   /** Resolves with the summary when the run has ended (finished, aborted, stopped). */
   readonly done: Promise<RunSummary>;
   /** An event from beside the run (an alert about the plant's broker, say): journalled while the run lasts, and shown. */
-  note(event: RunEvent): void;
+  readonly note: (event: RunEvent) => void;
 }
 
 export function newRunId(now: Date = new Date()): string {

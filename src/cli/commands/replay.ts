@@ -57,13 +57,13 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
     return 0;
   }
   const allowedHosts = allowHostOption(values['allow-host']);
+  if (!values.serve && values.mqtt !== undefined) throw new CliError('--mqtt publishes a replay watched with --serve; add --serve');
   if (positionals.length !== 1) throw new CliError('replay needs exactly one RUN (a run folder or a journal file)');
   const recorded = readRecordedRun(positionals[0] as string);
   const { dir, journalFile, journal } = recorded;
   const recipe: ResolvedRecipe = values.recipe
     ? loadRecipe(values.recipe, loadMaterialLibrary(values.materials))
     : readRecordedRecipe(dir, 'give one with --recipe');
-  if (!values.serve && values.mqtt !== undefined) throw new CliError('--mqtt publishes a replay watched with --serve; add --serve');
   if (values.serve) {
     if (values.recipe || values.estimator) throw new CliError('--serve replays the run as it was recorded; drop --recipe and --estimator');
     const plant = plantPlan(values, 'replay');
