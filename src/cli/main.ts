@@ -9,6 +9,7 @@ import { processIo, type CommandIo } from './command-io.ts';
 import { planUsage, runPlan } from './commands/plan.ts';
 import { demoUsage, runDemo } from './commands/demo.ts';
 import { exportUsage, runExport } from './commands/export.ts';
+import { floorUsage, runFloor } from './commands/floor.ts';
 import { replayUsage, runReplay } from './commands/replay.ts';
 import { runLive, runUsage } from './commands/run.ts';
 import { runSimulate, simulateUsage } from './commands/simulate.ts';
@@ -26,6 +27,7 @@ const commands: Record<string, { run: (argv: string[], io: CommandIo) => number 
   study: { run: runStudyCommand, usage: studyUsage },
   demo: { run: runDemo, usage: demoUsage },
   tooling: { run: runTooling, usage: toolingUsage },
+  floor: { run: runFloor, usage: floorUsage },
 };
 
 const usage = `fringe: live monitoring and layer cutting for optical coating runs.
@@ -42,6 +44,7 @@ Commands:
   study RECIPE        many seeded simulated runs per cut strategy: errors against the plan's precision
   demo                a simulated run with the live dashboard on http://127.0.0.1:7300
   tooling             a corrected tooling factor from a calibration run
+  floor --mqtt URL    every chamber's run on one read-only page, from the plant's broker
 
 fringe is process control, not a safety system: interlocks, manual shutter controls and the
 equipment maker's instructions stay in charge.

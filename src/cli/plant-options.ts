@@ -17,6 +17,7 @@ import type { CommandIo } from './command-io.ts';
 export const PLANT_OPTIONS = {
   mqtt: { type: 'string' },
   'mqtt-chamber': { type: 'string' },
+  'mqtt-prefix': { type: 'string' },
   'mqtt-credentials': { type: 'string' },
   'mqtt-ca': { type: 'string' },
 } as const;
@@ -24,6 +25,7 @@ export const PLANT_OPTIONS = {
 export const plantUsage = `  --mqtt URL            publish the run to the plant's broker (mqtt://HOST[:PORT] or mqtts://…);
                         the broker is optional and never cuts: a broker away only raises an info alert
   --mqtt-chamber NAME   the chamber's name in the topics (default: the chamber file's name)
+  --mqtt-prefix P       the topics' first levels (default fringe)
   --mqtt-credentials FILE  YAML with username and password (else FRINGE_MQTT_USERNAME and
                         FRINGE_MQTT_PASSWORD; never on the command line)
   --mqtt-ca FILE        the certificate authority (PEM) of an mqtts broker
@@ -32,6 +34,7 @@ export const plantUsage = `  --mqtt URL            publish the run to the plant'
 interface PlantValues {
   mqtt?: string | undefined;
   'mqtt-chamber'?: string | undefined;
+  'mqtt-prefix'?: string | undefined;
   'mqtt-credentials'?: string | undefined;
   'mqtt-ca'?: string | undefined;
 }
@@ -51,7 +54,7 @@ export interface PlantPlan {
 export function plantPlan(values: PlantValues, defaultChamber: string, section?: { settings: PlantSettings | undefined; file: string }): PlantPlan | undefined {
   const fromFile = section?.settings;
   if (values.mqtt === undefined && fromFile === undefined) {
-    for (const name of ['mqtt-chamber', 'mqtt-credentials', 'mqtt-ca'] as const) if (values[name] !== undefined) throw new CliError(`--${name} needs --mqtt URL (or a plant: section in the chamber file)`);
+    for (const name of ['mqtt-chamber', 'mqtt-prefix', 'mqtt-credentials', 'mqtt-ca'] as const) if (values[name] !== undefined) throw new CliError(`--${name} needs --mqtt URL (or a plant: section in the chamber file)`);
     return undefined;
   }
   if (values.mqtt !== undefined) {
@@ -67,6 +70,7 @@ export function plantPlan(values: PlantValues, defaultChamber: string, section?:
     ...(fromFile?.caFile !== undefined ? { caFile: near(fromFile.caFile) } : {}),
     ...(values.mqtt !== undefined ? { url: values.mqtt } : {}),
     ...(chamberName !== undefined ? { chamber: chamberName } : {}),
+    ...(values['mqtt-prefix'] !== undefined ? { prefix: values['mqtt-prefix'] } : {}),
     ...(values['mqtt-credentials'] !== undefined ? { credentialsFile: values['mqtt-credentials'] } : {}),
     ...(values['mqtt-ca'] !== undefined ? { caFile: values['mqtt-ca'] } : {}),
   }, 'the --mqtt options');
