@@ -9,10 +9,11 @@ import type { Benchmark, BenchResult } from './harness.ts';
 import { opticsBenchmarks } from './optics.bench.ts';
 import { planBenchmarks } from './plan.bench.ts';
 import { pipelineBenchmarks } from './pipeline.bench.ts';
+import { plantBenchmarks } from './plant.bench.ts';
 import { serverBenchmarks } from './server.bench.ts';
 import { simBenchmarks } from './sim.bench.ts';
 
-const all: Benchmark[] = [...opticsBenchmarks, ...planBenchmarks, ...simBenchmarks, ...pipelineBenchmarks, ...serverBenchmarks];
+const all: Benchmark[] = [...opticsBenchmarks, ...planBenchmarks, ...simBenchmarks, ...pipelineBenchmarks, ...serverBenchmarks, ...plantBenchmarks];
 
 const groups = process.argv.slice(2);
 const selected = groups.length === 0 ? all : all.filter((b) => groups.some((g) => b.name === g || b.name.startsWith(`${g}.`)));

@@ -3,9 +3,11 @@
 // mid-run (nothing of QoS 1 lost within the queue's bound, the oldest dropped beyond it, with
 // a count), a broker that refuses us, and the cut times of every run identical to a run with no
 // broker at all. Without mosquitto the suite is skipped, except in CI (CI=true), where it fails.
+import { spawn } from 'node:child_process';
 import { mkdtempSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
+import { fileURLToPath } from 'node:url';
 import { connect, type IClientOptions, type MqttClient } from 'mqtt';
 import { afterAll, afterEach, describe, expect, it } from 'vitest';
 import type { RunEvent } from '../../src/pipeline/events.ts';
@@ -257,6 +259,26 @@ if (!haveMosquitto && inCi) {
       publishers.push(accepted.publisher);
       await until(() => ofTopic(sub.messages, 'state').length > 0, 'the state from a publisher with credentials');
       expect(accepted.raised).toEqual([]);
+    });
+
+    it('fringe demo --mqtt publishes its dashboard; killed, its last will marks the chamber offline', async () => {
+      const b = await broker();
+      const sub = await subscriber(b.url);
+      clients.push(sub.client);
+      const fringe = fileURLToPath(new URL('../../src/cli/fringe.js', import.meta.url));
+      const child = spawn(process.execPath, [fringe, 'demo', '--port', '0', '--speed', '5', '--runs', mkdtempSync(join(tmpdir(), 'fringe-demo-')), '--mqtt', b.url, '--mqtt-chamber', 'demo-1'], { stdio: 'ignore' });
+      try {
+        const states = () => sub.messages.filter((x) => x.topic === 'fringe/demo-1/state').map((x) => x.payload as unknown as PlantState);
+        await until(() => states().some((s) => s.online && s.status?.phase === 'depositing' && s.dashboard !== null), 'the demo to publish its state');
+        const dashboard = states().find((s) => s.dashboard !== null)?.dashboard as string;
+        expect(dashboard).toMatch(/^http:\/\/127\.0\.0\.1:\d+\/$/);
+        expect(await (await fetch(dashboard)).text()).toContain('<title>fringe · run</title>');
+        child.kill('SIGKILL');
+        await until(() => states().at(-1)?.online === false, 'the last will');
+        expect(states().at(-1)).toMatchObject({ v: 1, chamber: 'demo-1', online: false, at: null, source: 'simulated' });
+      } finally {
+        child.kill('SIGKILL');
+      }
     });
 
     it('raises one alert when nothing listens at the address, and the run cuts as without a broker', async () => {
