@@ -4,18 +4,21 @@
 // a count), a broker that refuses us, and the cut times of every run identical to a run with no
 // broker at all. Without mosquitto the suite is skipped, except in CI (CI=true), where it fails.
 import { spawn } from 'node:child_process';
-import { mkdtempSync, writeFileSync } from 'node:fs';
+import { mkdtempSync, readdirSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { connect, type IClientOptions, type MqttClient } from 'mqtt';
 import { afterAll, afterEach, describe, expect, it } from 'vitest';
 import type { RunEvent } from '../../src/pipeline/events.ts';
+import { serveOnTcp } from '../../sim/index.ts';
+import { runLive } from '../../src/cli/commands/run.ts';
+import { readJournal } from '../../src/journal/journal-reader.ts';
 import { plantPlan } from '../../src/cli/plant-options.ts';
 import { PUBLISHED_EVENTS, type PlantEvent, type PlantLayer, type PlantState, type PlantSummary } from '../../src/plant/plant-messages.ts';
 import { createPlantPublisher, type PlantPublisher } from '../../src/plant/plant-publisher.ts';
 import { PlantSettingsSchema } from '../../src/plant/plant-settings.ts';
-import { ar4, manualRun, type ManualRun } from '../server/support.ts';
+import { ar4, manualRun, typical, type ManualRun } from '../server/support.ts';
 import { freePort, haveMosquitto, inCi, MOSQUITTO, startTestBroker, until, type TestBroker } from '../support/broker.ts';
 
 type AlertEvent = Extract<RunEvent, { type: 'alert' }>;
@@ -280,6 +283,54 @@ if (!haveMosquitto && inCi) {
         child.kill('SIGKILL');
       }
     });
+
+    it('fringe run publishes a live run to the broker its chamber file names, as its journal records it', async () => {
+      const b = await broker();
+      const sub = await subscriber(b.url);
+      clients.push(sub.client);
+      const dir = mkdtempSync(join(tmpdir(), 'fringe-live-plant-'));
+      // At 20× real time: gentle on a loaded machine (the run takes about 30 s).
+      const served = await serveOnTcp({ recipe: ar4, profile: typical, seed: 4, speed: 20, port: 0 });
+      const chamber = join(dir, 'chamber.yaml');
+      writeFileSync(
+        chamber,
+        `formatVersion: 1
+name: Box coater 2
+instruments:
+  - id: monitor
+    transport: { kind: tcp, host: 127.0.0.1, port: ${served.port} }
+    channels: [optical, crystal]
+shutters:
+  transport: monitor
+  ack: { timeoutMs: 1000 }
+plant:
+  url: ${b.url}
+  readingsPerS: 0
+`,
+      );
+      const recipeFile = fileURLToPath(new URL('../../config/recipes/ar4-visible.yaml', import.meta.url));
+      let code: number;
+      let err = '';
+      try {
+        code = await runLive(['--chamber', chamber, '--clock', 'instrument', '--runs', join(dir, 'runs'), recipeFile], { out: () => undefined, err: (t) => (err += `${t}\n`) });
+      } finally {
+        await served.close();
+      }
+      expect(code, err).toBe(0);
+      expect(err).toContain(`publishing to ${b.url} as fringe/Box-coater-2/`);
+      expect(err).not.toMatch(/did not receive/);
+      const runDir = join(dir, 'runs', readdirSync(join(dir, 'runs'))[0] as string);
+      const journalled = readJournal(join(runDir, 'journal.ndjson')).records.flatMap((r): RunEvent[] => (r.k === 'e' && PUBLISHED_EVENTS.has(r.event.type) ? [r.event] : []));
+      const topic = (t: string) => sub.messages.filter((x) => x.topic === `fringe/Box-coater-2/${t}`);
+      await until(() => topic('summary').length === 1 && topic('events').length === journalled.length, 'the live run on the broker');
+      const events = topic('events').map((x) => x.payload as unknown as PlantEvent);
+      expect(events.map((e) => e.seq)).toEqual(journalled.map((_, i) => i + 1));
+      expect(events.map((e) => e.event)).toEqual(JSON.parse(JSON.stringify(journalled)));
+      expect(events.filter((e) => e.event.type === 'cut')).toHaveLength(4);
+      const states = topic('state').map((x) => x.payload as unknown as PlantState);
+      expect(states.some((s) => s.online && s.source === 'live' && s.dashboard === null)).toBe(true);
+      expect(states.at(-1)).toMatchObject({ online: false, runId: runDir.split(/[\\/]/).pop() });
+    }, 180_000);
 
     it('raises one alert when nothing listens at the address, and the run cuts as without a broker', async () => {
       const port = await freePort();
