@@ -96,7 +96,7 @@ export async function startTestBroker(options: TestBrokerOptions = {}): Promise<
  * Waits until `check()` holds, looking again every 20 ms: the tests wait on what the broker
  * and the clients do, with a bound generous enough for a loaded machine.
  */
-export async function until(check: () => boolean, what: string, timeoutMs = 30_000): Promise<void> {
+export async function until(check: () => boolean, what: string, timeoutMs = 60_000): Promise<void> {
   const end = Date.now() + timeoutMs;
   while (!check()) {
     if (Date.now() > end) throw new Error(`waited ${timeoutMs / 1000} s for ${what}`);
