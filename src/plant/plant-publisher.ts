@@ -107,7 +107,7 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
   let stateInFlight = false;
   let dashboard: string | null = null;
   let closing = false;
-  let away: { since: number } | null = null;
+  let away = false;
   let lastError = '';
   let alertCount = 0;
   const lastReadingS = { optical: Number.NEGATIVE_INFINITY, crystal: Number.NEGATIVE_INFINITY };
@@ -123,7 +123,7 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
     reconnectOnConnackError: true,
     // QoS 0 readings are sent only while connected; the client must not hoard them either.
     queueQoSZero: false,
-    will: { topic: topic('state'), payload: Buffer.from(JSON.stringify({ ...offline, at: null })), qos: 1, retain: true },
+    will: { topic: topic('state'), payload: Buffer.from(JSON.stringify(offline)), qos: 1, retain: true },
     ...(options.credentials ? { username: options.credentials.username, password: options.credentials.password } : {}),
     ...(options.ca !== undefined ? { ca: options.ca } : {}),
     ...options.client,
@@ -133,9 +133,10 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
     if (away) {
       const lost = droppedThisEpisode;
       droppedThisEpisode = 0;
-      away = null;
+      away = false;
       raise('broker-restored', lost === 0 ? 'nothing was dropped' : `${lost} messages were dropped while it was away (the queue holds ${settings.queueLimit})`);
     }
+    lastError = '';
     stateDue = true;
     schedule();
   });
@@ -145,7 +146,7 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
   client.on('close', () => {
     stateInFlight = false;
     if (closing || away) return;
-    away = { since: Date.now() };
+    away = true;
     raise('broker-unreachable', `${settings.url}${lastError ? `: ${lastError}` : ''}`);
   });
 
