@@ -6,6 +6,7 @@
 import { z } from 'zod';
 import { loadConfigFile } from '../src/config/read-config.ts';
 import type { ChannelKind } from '../src/pipeline/types.ts';
+import { PlantSettingsSchema } from '../src/plant/plant-settings.ts';
 import { ChannelKindSchema, FRINGE_DIALECT, LineDecoderOptionsSchema } from './line-decoder.ts';
 import { LineFramerOptionsSchema } from './line-framer.ts';
 import { createLineLink, LineLinkSettingsSchema, RetryOptionsSchema, type LineLink } from './line-link.ts';
@@ -47,6 +48,8 @@ export const ChamberSchema = z
     instruments: z.array(InstrumentSchema).min(1),
     /** Absent: fringe only watches, and cuts are the operator's. */
     shutters: ChamberShuttersSchema.optional(),
+    /** The plant's message broker the runs are published to (optional; never in the cutting path). */
+    plant: PlantSettingsSchema.optional(),
   })
   .superRefine((chamber, ctx) => {
     const ids = new Map<string, number>();

@@ -11,6 +11,7 @@ import { calibrateUsage, runCalibrate } from './commands/calibrate.ts';
 import { planUsage, runPlan } from './commands/plan.ts';
 import { demoUsage, runDemo } from './commands/demo.ts';
 import { exportUsage, runExport } from './commands/export.ts';
+import { floorUsage, runFloor } from './commands/floor.ts';
 import { replayUsage, runReplay } from './commands/replay.ts';
 import { reportUsage, runReport } from './commands/report.ts';
 import { runLive, runUsage } from './commands/run.ts';
@@ -32,6 +33,7 @@ const commands: Record<string, { run: (argv: string[], io: CommandIo) => number 
   tooling: { run: runTooling, usage: toolingUsage },
   materials: { run: runMaterials, usage: materialsUsage },
   calibrate: { run: runCalibrate, usage: calibrateUsage },
+  floor: { run: runFloor, usage: floorUsage },
 };
 
 const usage = `fringe: live monitoring and layer cutting for optical coating runs.
@@ -51,6 +53,7 @@ Commands:
   tooling             a corrected tooling factor from a calibration run
   materials [NAME]    the material library: range, dispersion, sources; --plot of n and k
   calibrate RUN       the chamber's chip ratios, tooling factors and film indices from finished runs
+  floor --mqtt URL    every chamber's run on one read-only page, from the plant's broker
 
 fringe is process control, not a safety system: interlocks, manual shutter controls and the
 equipment maker's instructions stay in charge.

@@ -56,7 +56,8 @@ function listNames(names: readonly string[], shown = 8): string {
 }
 
 function describeIssue(issue: z.core.$ZodIssue): string {
-  const found = 'input' in issue ? describeValue(issue.input) : undefined;
+  // A check that leaves its input out (a value that may hold a password) is not quoted.
+  const found = 'input' in issue && issue.input !== undefined ? describeValue(issue.input) : undefined;
   switch (issue.code) {
     case 'invalid_type':
       return `expected ${issue.expected}, found ${found ?? 'nothing'}`;

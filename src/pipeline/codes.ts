@@ -31,7 +31,9 @@ export type AlertCode =
   | 'source-lost'
   | 'source-restored'
   | 'journal-write-failed'
-  | 'journal-recovered';
+  | 'journal-recovered'
+  | 'broker-unreachable'
+  | 'broker-restored';
 
 export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: string }>> = {
   'fault-not-a-number': { severity: 'warning', sentence: 'A reading was not a number and was not used.' },
@@ -81,4 +83,6 @@ export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: 
     sentence: 'The journal cannot be written (disk full or failing): the run goes on, its lines are held in memory and retried; free space now.',
   },
   'journal-recovered': { severity: 'info', sentence: 'The journal is being written again; what was held back is on disk.' },
+  'broker-unreachable': { severity: 'info', sentence: 'The plant’s message broker cannot be reached: the run goes on, its messages wait in a bounded queue.' },
+  'broker-restored': { severity: 'info', sentence: 'The plant’s message broker is reachable again: the messages held back are being sent.' },
 };

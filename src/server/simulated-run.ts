@@ -8,6 +8,7 @@ import { createVirtualChamber, type SimProfile } from '../../sim/index.ts';
 import { createJournalWriter, type JournalWriter } from '../journal/journal-writer.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import { createController, type ControllerOptions } from '../pipeline/controller.ts';
+import type { RunEvent } from '../pipeline/events.ts';
 import { createSteppedRun, runPaced, type SteppedRun } from '../pipeline/run-stepped.ts';
 import { createRunHub, type RunHub, type RunHubOptions } from './run-hub.ts';
 import { buildRunSummary, type RunSummary } from './run-summary.ts';
@@ -43,6 +44,8 @@ export interface SimulatedRun {
   readonly dir: string | null;
   /** Resolves with the summary when the run has ended (finished, aborted, stopped). */
   readonly done: Promise<RunSummary>;
+  /** An event from beside the run (an alert about the plant's broker, say): journalled while the run lasts, and shown. */
+  readonly note: (event: RunEvent) => void;
 }
 
 export function newRunId(now: Date = new Date()): string {
@@ -119,5 +122,9 @@ export function startSimulatedRun(options: SimulatedRunOptions): SimulatedRun {
     journal?.close();
     throw error;
   });
-  return { runId, hub, run, dir: journal?.dir ?? null, done };
+  const note = (event: RunEvent): void => {
+    journal?.event(event);
+    hub.feed.event(event);
+  };
+  return { runId, hub, run, dir: journal?.dir ?? null, done, note };
 }

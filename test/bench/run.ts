@@ -10,10 +10,11 @@ import { calibrateBenchmarks } from './calibrate.bench.ts';
 import { opticsBenchmarks } from './optics.bench.ts';
 import { planBenchmarks } from './plan.bench.ts';
 import { pipelineBenchmarks } from './pipeline.bench.ts';
+import { plantBenchmarks } from './plant.bench.ts';
 import { serverBenchmarks } from './server.bench.ts';
 import { simBenchmarks } from './sim.bench.ts';
 
-const all: Benchmark[] = [...opticsBenchmarks, ...planBenchmarks, ...simBenchmarks, ...pipelineBenchmarks, ...serverBenchmarks, ...calibrateBenchmarks];
+const all: Benchmark[] = [...opticsBenchmarks, ...planBenchmarks, ...simBenchmarks, ...pipelineBenchmarks, ...serverBenchmarks, ...calibrateBenchmarks, ...plantBenchmarks];
 
 const groups = process.argv.slice(2);
 const selected = groups.length === 0 ? all : all.filter((b) => groups.some((g) => b.name === g || b.name.startsWith(`${g}.`)));

@@ -15,6 +15,7 @@ import { startSimulatedRun } from '../../server/simulated-run.ts';
 import { allowHostOption, CliError, estimatorOption, numberOption, outputFolderOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 import { DEMO_RUNS_KEPT, pruneDemoRuns } from '../demo-runs.ts';
+import { PLANT_OPTIONS, plantPlan, plantUsage, startPlant, stopPlant } from '../plant-options.ts';
 import { DEFAULT_PROFILE } from './simulate.ts';
 
 export const DEFAULT_DEMO_RECIPE = fileURLToPath(new URL('../../../config/recipes/edge-longpass-visible.yaml', import.meta.url));
@@ -42,7 +43,7 @@ journalled) and the dashboard stops.
   --runs DIR            runs folder: where this run is kept and past runs are listed (default runs)
   --keep-demo-runs N    demo runs kept in the runs folder, this one included (default ${DEMO_RUNS_KEPT})
   --materials FILE      material library (default: the shipped config/materials.yaml)
-
+${plantUsage}
 A command token is made at start and printed once: enter it on the dashboard to use the controls.
 `;
 
@@ -70,6 +71,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
       runs: { type: 'string' },
       'keep-demo-runs': { type: 'string' },
       materials: { type: 'string' },
+      ...PLANT_OPTIONS,
       help: { type: 'boolean', short: 'h' },
     },
   });
@@ -95,6 +97,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   const runsDir = outputFolderOption('runs', values.runs ?? 'runs');
   // Room for this run among the demo's last few.
   const pruned = pruneDemoRuns(runsDir, keep - 1);
+  const plant = plantPlan(values, 'demo');
 
   const token = generateToken();
   const exposed = !isLoopback(host);
@@ -125,6 +128,8 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   io.out(`run kept in ${simulated.dir ?? runsDir}`);
   if (pruned.length > 0) io.out(`removed ${pruned.length} older demo run${pruned.length === 1 ? '' : 's'} from ${runsDir} (the demo keeps its last ${keep}; other runs are never removed)`);
   io.out("fringe is process control, not a safety system: interlocks, manual shutter controls and the equipment maker's instructions stay in charge.");
+  const publisher = plant ? startPlant(plant, simulated.hub, simulated.note, io) : undefined;
+  publisher?.setDashboard(url);
   hooks.onListening?.({ url, token, viewerToken });
 
   // A run that ends by itself leaves the dashboard up to look at; Ctrl-C is said below.
@@ -152,6 +157,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
   const stillRunning = simulated.run.running;
   stop.abort();
   const summary = await simulated.done.catch(() => undefined);
+  await stopPlant(publisher, io);
   await app.close();
   io.out(
     stillRunning && summary

@@ -17,6 +17,7 @@ import { allowHostOption, CliError, estimatorOption } from '../cli-error.ts';
 import { readRecordedRecipe, readRecordedRun, warnOfDamage } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
 import type { CommandIo } from '../command-io.ts';
+import { PLANT_OPTIONS, plantPlan, plantUsage, startPlant, stopPlant } from '../plant-options.ts';
 
 export const replayUsage = `Usage: fringe replay RUN [options]
 
@@ -30,6 +31,7 @@ every cut with the recorded one. With the recipe as run, every decision must com
                         --host, --allow-host NAME as in fringe demo --help)
   --json                print the comparison as one object with a "layers" array
   --materials FILE      material library for --recipe (default: the shipped one)
+${plantUsage}                        (with --serve only)
 `;
 
 export async function runReplay(argv: string[], io: CommandIo): Promise<number> {
@@ -47,6 +49,7 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
       host: { type: 'string' },
       'allow-host': { type: 'string', multiple: true },
       materials: { type: 'string' },
+      ...PLANT_OPTIONS,
       help: { type: 'boolean', short: 'h' },
     },
   });
@@ -55,6 +58,7 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
     return 0;
   }
   const allowedHosts = allowHostOption(values['allow-host']);
+  if (!values.serve && values.mqtt !== undefined) throw new CliError('--mqtt publishes a replay watched with --serve; add --serve');
   if (positionals.length !== 1) throw new CliError('replay needs exactly one RUN (a run folder or a journal file)');
   const recorded = readRecordedRun(positionals[0] as string);
   const { dir, journalFile, journal } = recorded;
@@ -63,16 +67,20 @@ export async function runReplay(argv: string[], io: CommandIo): Promise<number> 
     : readRecordedRecipe(dir, 'give one with --recipe');
   if (values.serve) {
     if (values.recipe || values.estimator) throw new CliError('--serve replays the run as it was recorded; drop --recipe and --estimator');
+    const plant = plantPlan(values, 'replay');
     const folder = { id: basename(dir), dir, journalFile, summaryFile: join(dir, 'summary.json'), recipeFile: join(dir, 'recipe.json') };
     const speed = values.speed === undefined || values.speed === 'max' ? 60 : Number(values.speed);
     if (!(speed > 0 && Number.isFinite(speed))) throw new CliError(`--speed must be a positive number with --serve, got "${values.speed}"`);
     const replay = startJournalReplay(folder, speed);
     const dashboard = await serveDashboard(replay.hub, join(dir, '..'), values, allowedHosts, io);
+    const publisher = plant ? startPlant(plant, replay.hub, replay.hub.feed.event, io) : undefined;
+    publisher?.setDashboard(dashboard.url);
     io.out(`replaying ${folder.id} at ${speed}× on ${dashboard.url}; Ctrl-C ends`);
     await new Promise<void>((resolve) => {
       process.once('SIGINT', resolve);
       process.once('SIGTERM', resolve);
     });
+    await stopPlant(publisher, io);
     await dashboard.close();
     return 0;
   }

@@ -23,6 +23,7 @@ import { createRunHub, type RunHub } from '../../server/run-hub.ts';
 import { allowHostOption, CliError, estimatorOption, outputFolderOption } from '../cli-error.ts';
 import { readRecordedRecipe, readRecordedRun, warnOfDamage } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
+import { PLANT_OPTIONS, plantPlan, plantUsage, startPlant, stopPlant } from '../plant-options.ts';
 import { driveRun } from '../drive-run.ts';
 import type { CommandIo } from '../command-io.ts';
 
@@ -44,7 +45,7 @@ and interlocks stay in charge.
   --serve               serve the live dashboard on 127.0.0.1 (--port N, default 7300; --host wider warns;
                         --allow-host NAME for another name it answers to, as in fringe demo --help)
   --materials FILE      material library (default: the shipped config/materials.yaml)
-`;
+${plantUsage}`;
 
 /** What a test may put in place of the real thing. */
 export interface RunLiveDeps {
@@ -68,6 +69,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
       host: { type: 'string' },
       'allow-host': { type: 'string', multiple: true },
       materials: { type: 'string' },
+      ...PLANT_OPTIONS,
       help: { type: 'boolean', short: 'h' },
     },
   });
@@ -116,6 +118,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
     runDir = join(outputFolderOption('runs', values.runs ?? 'runs'), runId);
   }
   const chamber = loadChamber(chamberFile);
+  const plant = plantPlan(values, chamber.name, { settings: chamber.plant, file: chamberFile });
   const drivers = openChamber(chamber);
   if (!drivers.shutter) {
     await drivers.close();
@@ -165,7 +168,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
 
   // The dashboard sees the live run through a hub; its commands step the controller at once.
   let lastState: ControllerState = resumeFrom ?? controller.initial();
-  const hub = values.serve ? createRunHub({ recipe, source: 'live', runId: runDir.split(/[\\/]/).pop() ?? null }) : undefined;
+  const hub = values.serve || plant ? createRunHub({ recipe, source: 'live', runId: runDir.split(/[\\/]/).pop() ?? null }) : undefined;
   journalAlerts.attach(journal, () => (Number.isFinite(lastState.nowS) ? lastState.nowS : 0), hub);
   hub?.attach({
     get state() {
@@ -181,7 +184,9 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
       if (input.kind === 'operator') commands.next(input.alertId === undefined ? { action: input.action } : { action: input.action, alertId: input.alertId });
     },
   });
-  const dashboard = hub ? await serveDashboard(hub, join(runDir, '..'), values, allowedHosts, io) : undefined;
+  const dashboard = hub && values.serve ? await serveDashboard(hub, join(runDir, '..'), values, allowedHosts, io) : undefined;
+  const publisher = hub && plant ? startPlant(plant, hub, (alert) => { journal.event(alert); hub.feed.event(alert); }, io) : undefined;
+  publisher?.setDashboard(dashboard?.url ?? null);
 
   // Start only when every instrument has been speaking for a second: a shutter command sent
   // before its port is open is refused, a run must not begin blind, and lines the port held
@@ -214,6 +219,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
   const lost = journal.close();
   if (lost.pendingBytes > 0 || lost.droppedReadings > 0) io.err(`the journal is incomplete: ${describeLoss(lost)}`);
   await drivers.close();
+  await stopPlant(publisher, io);
   await dashboard?.close();
   io.err(`journal: ${runDir}`);
   return result.outcome === 'complete' ? 0 : 1;
