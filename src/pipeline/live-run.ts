@@ -82,7 +82,7 @@ export function createLiveRun(options: LiveRunOptions): LiveRun {
   const decisions = (options.resumeFrom ? inputs.pipe(startWith<PipelineInput>({ kind: 'resumed', timeS: resumedAt })) : inputs).pipe(
     // The same run time between ticks at any pace, but never within the gaps of an instrument's
     // usual delivery (a chamber writing its lines every few tens of ms).
-    withTicks(() => Math.max(MIN_TICK_MS, tickMs / pace), tickTime, options.scheduler ?? asyncScheduler),
+    withTicks(() => Math.max(MIN_TICK_MS, tickMs / pace), tickTime, options.scheduler ?? asyncScheduler, options.scheduler ? undefined : setImmediate),
     decide(options.controller, options.resumeFrom),
     tap((decision) => {
       for (const event of decision.events) if (event.type === 'shutter') options.shutter.send(event.command);

@@ -1,7 +1,8 @@
 // The pipeline's operators on virtual time: no values, one, many, a source error, a never-ending
 // source, early unsubscribe, and a throwing callback.
+import { createServer, connect, type AddressInfo, type Socket } from 'node:net';
 import { fileURLToPath } from 'node:url';
-import { concatWith, from, NEVER, of, Subject, throwError, VirtualTimeScheduler, type Observable } from 'rxjs';
+import { asyncScheduler, concatWith, from, NEVER, of, Subject, throwError, VirtualTimeScheduler, type Observable } from 'rxjs';
 import { TestScheduler } from 'rxjs/testing';
 import { describe, expect, it } from 'vitest';
 import { loadRecipe } from '../../../src/config/load-recipe.ts';
@@ -122,3 +123,39 @@ describe('withTicks (virtual time)', () => {
     }
   });
 });
+
+describe('withTicks (the real event loop)', () => {
+  it('lets a due tick wait for a line that came in while the host stalled, and drops it', async () => {
+    // Node runs due timers before it reads sockets: after a stall, a tick would come before the
+    // reading already waiting (and move the run clock past it). The order is the loop's phases',
+    // not a race: the line is in the socket before the stall ends, the timer is due by then.
+    const server = createServer();
+    await new Promise<void>((done) => server.listen(0, '127.0.0.1', done));
+    const { port } = server.address() as AddressInfo;
+    const accepted = new Promise<Socket>((done) => server.once('connection', done));
+    const writer = connect(port, '127.0.0.1');
+    await new Promise<void>((done) => writer.once('connect', done));
+    const reader = await accepted;
+    try {
+      for (const yieldToInput of [setImmediate, undefined]) {
+        const lines = new Subject<PipelineInput>();
+        const onData = (): void => lines.next(reading(1));
+        reader.on('data', onData);
+        const seen: string[] = [];
+        const sub = lines.pipe(withTicks(20, () => 2, asyncScheduler, yieldToInput)).subscribe((input) => seen.push(input.kind));
+        writer.write('x');
+        const until = Date.now() + 80;
+        while (Date.now() < until); // the host stalls past the tick's period
+        await new Promise((done) => setTimeout(done, 5));
+        sub.unsubscribe();
+        reader.off('data', onData);
+        expect(seen[0], String(yieldToInput?.name)).toBe(yieldToInput ? 'reading' : 'tick');
+      }
+    } finally {
+      writer.destroy();
+      reader.destroy();
+      server.close();
+    }
+  });
+});
+
