@@ -112,21 +112,34 @@ export function intoLayer(view: RunView, layer: number): number {
 
 export interface FaultRun {
   dir: string;
-  server: TcpServedChamber;
+  /** The chamber served in this process (none when `upstreamPort` names another). */
+  server: TcpServedChamber | undefined;
   relay: FaultRelay;
   run: Fringe;
   runsDir: string;
   close(): Promise<void>;
 }
 
-/** The chamber served on TCP, the relay before it, fringe run through the relay (instrument clock). */
-export async function startFaultRun(options: { seed: number; profile?: SimProfile; speed?: number; runsDir?: string; upstreamPort?: number; transform?: ViewTransform }): Promise<FaultRun & { view: RunView }> {
+/**
+ * The chamber served on TCP (or the one at `upstreamPort`), the relay before it, and fringe run
+ * through the relay on the instrument clock (or on `transport`, a chamber file's transport, when
+ * something else connects to the relay).
+ */
+export async function startFaultRun(options: {
+  seed: number;
+  profile?: SimProfile;
+  runsDir?: string;
+  upstreamPort?: number;
+  transform?: ViewTransform;
+  transport?: (relayPort: number) => string;
+}): Promise<FaultRun & { view: RunView }> {
   const dir = mkdtempSync(join(tmpdir(), 'fringe-fault-'));
-  const server = await serveOnTcp({ recipe, profile: options.profile ?? typicalProfile, seed: options.seed, speed: options.speed ?? SPEED, port: 0 });
-  const relay = await startFaultRelay({ upstream: { port: options.upstreamPort ?? server.port } });
+  const server = options.upstreamPort === undefined ? await serveOnTcp({ recipe, profile: options.profile ?? typicalProfile, seed: options.seed, speed: SPEED, port: 0 }) : undefined;
+  const relay = await startFaultRelay({ upstream: { port: options.upstreamPort ?? (server as TcpServedChamber).port } });
   const view = watchRun(relay, options.transform);
   const runsDir = options.runsDir ?? join(dir, 'runs');
-  const run = fringe(['run', '--chamber', chamberFile(dir, `{ kind: tcp, host: 127.0.0.1, port: ${relay.port} }`), '--clock', 'instrument', '--runs', runsDir, recipeFile]);
+  const transport = options.transport?.(relay.port) ?? `{ kind: tcp, host: 127.0.0.1, port: ${relay.port} }`;
+  const run = fringe(['run', '--chamber', chamberFile(dir, transport), '--clock', 'instrument', '--runs', runsDir, recipeFile]);
   return {
     dir,
     server,
@@ -137,7 +150,7 @@ export async function startFaultRun(options: { seed: number; profile?: SimProfil
     close: async () => {
       if (run.child.exitCode === null) run.child.kill('SIGKILL');
       await relay.close();
-      await server.close();
+      await server?.close();
     },
   };
 }
