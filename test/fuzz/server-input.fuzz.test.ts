@@ -1,8 +1,11 @@
 // What a client can send the server: random bodies of every content type to the command routes
 // (with the token, so the body is read), and random frames to the live feed (text, binary, over
 // the 1 KiB limit, and bytes that are no WebSocket frame at all). Never a server error, every
-// refusal one JSON sentence, and the feed keeps feeding its viewers throughout.
+// refusal one JSON sentence, and the feed keeps feeding its viewers throughout; and random run ids
+// and query strings to the viewing routes, none of which reaches past the runs folder.
+import { mkdirSync, writeFileSync } from 'node:fs';
 import type { AddressInfo } from 'node:net';
+import { join } from 'node:path';
 import fc from 'fast-check';
 import type { FastifyInstance } from 'fastify';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
@@ -179,5 +182,61 @@ describe('the live feed, random frames', () => {
     watcher.terminate();
     client.terminate();
     expect((await app.inject({ method: 'GET', url: '/api/health' })).statusCode).toBe(200);
+  }, FUZZ_TIMEOUT_MS);
+});
+
+describe('the viewing routes, random run ids and query strings', () => {
+  let m: ManualRun;
+  let app: FastifyInstance;
+  const RUN = 'run-1';
+  beforeAll(() => {
+    m = manualRun(ar4);
+    const runsDir = tempDir('fuzz-view');
+    mkdirSync(join(runsDir, RUN));
+    writeFileSync(join(runsDir, RUN, 'journal.ndjson'), `${JSON.stringify({ journal: 'fringe', version: 1, runId: RUN, startedAt: '2026-01-01T00:00:00Z', recipe: 'r', meta: {} })}\n`);
+    // A secret beside the runs folder that no id may reach.
+    writeFileSync(join(runsDir, '..', 'secret.txt'), 'SECRET-BESIDE-THE-RUNS');
+    app = buildServer({ hub: m.hub, runsDir }, { token: TOKEN, host: '127.0.0.1' });
+  });
+  afterAll(() => app.close());
+
+  const piece = fc.oneof(
+    fc.constantFrom(RUN, '..', '.', '%2e%2e', '%252e%252e', '..%2f', '%2f', '%5c', '..\\', '%00', '%', '%zz', '~', 'secret.txt', '%2e%2e%2fsecret.txt', 'journal.ndjson', '\u00e9', '%C3%A9', '%FF'),
+    fc.string({ maxLength: 20 }).map(encodeURIComponent),
+    fc.string({ maxLength: 20 }).filter((s) => !/[?#]/.test(s)),
+  );
+  const id = fc
+    .array(fc.tuple(fc.constantFrom('', '/', '%2F'), piece), { minLength: 1, maxLength: 4 })
+    .map((parts) => parts.map(([separator, text], i) => (i === 0 ? text : separator + text)).join(''));
+  const query = fc.oneof(
+    fc.constant(''),
+    fc.constantFrom('?viewer=x', '?viewer=', '?viewer', '?viewer=a&viewer=b', '?other=1', '?%zz=1', `?viewer=${'v'.repeat(300)}`, '?speed=-1', '?speed=Infinity'),
+    fc.string({ maxLength: 40 }).map((s) => `?${s}`),
+  );
+  const target = fc.oneof(
+    fc.tuple(id, query).map(([i, q]) => `/api/runs/${i}${q}`),
+    fc.tuple(id, query).map(([i, q]) => `/api/runs/${i}/journal${q}`),
+    query.map((q) => `/api/run${q}`),
+    query.map((q) => `/api/runs${q}`),
+    query.map((q) => `/api/run/snapshot${q}`),
+  );
+
+  it('never answers with a server error, refuses in one JSON sentence, and serves only the run there is', async () => {
+    await fuzzAsync(
+      'REST viewing routes',
+      fc.asyncProperty(target, async (url) => {
+        let response;
+        try {
+          response = await app.inject({ method: 'GET', url });
+        } catch (error) {
+          // A target light-my-request cannot even form is no request the server saw.
+          if (error instanceof TypeError || error instanceof URIError) return;
+          throw error;
+        }
+        expectOneSentence(response.statusCode, response.headers['content-type'] as string | undefined, response.body);
+        expect(response.body).not.toContain('SECRET-BESIDE-THE-RUNS');
+        if (response.statusCode === 200 && url.startsWith('/api/runs/')) expect(response.body).toContain(RUN);
+      }),
+    );
   }, FUZZ_TIMEOUT_MS);
 });

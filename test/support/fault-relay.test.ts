@@ -165,6 +165,19 @@ describe('startFaultRelay', () => {
     expect(relay.lines('toUpstream').at(-1)?.connection).toBe(2);
   });
 
+  it("dropConnection('reset') resets the client's connection (ECONNRESET), where the default closes it cleanly", async () => {
+    const { relay, client } = await setUp();
+    relay.dropConnection('reset');
+    await until(() => client.closed, 'the client closed');
+    expect((client.error)?.code).toBe('ECONNRESET');
+    const again = connectClient(relay.port);
+    cleanups.push(() => void again.socket.destroy());
+    await relay.waitFor(() => relay.openConnections === 1, 'the second connection');
+    relay.dropConnection();
+    await until(() => again.closed, 'the second client closed');
+    expect(again.error).toBeUndefined();
+  });
+
   it("refuseConnections(true) accepts and closes new clients; the current one and the upstream stay; false lets them in again", async () => {
     const { upstream, relay, client } = await setUp();
     await relay.refuseConnections(true);

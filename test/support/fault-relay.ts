@@ -72,8 +72,11 @@ export interface FaultRelay {
   readonly openConnections: number;
   /** Clients turned away while refusing. */
   readonly refused: number;
-  /** Destroys both sides of every current connection now; the next client is relayed afresh. */
-  dropConnection(): void;
+  /**
+   * Destroys both sides of every current connection now; the next client is relayed afresh.
+   * `'close'` (the default) ends them with a FIN, `'reset'` with a TCP reset (RST).
+   */
+  dropConnection(how?: 'close' | 'reset'): void;
   /**
    * Link down (`true`) or up again (`false`), for new clients only (pair with
    * {@link dropConnection} to cut the current one too). `'close'` (the default) accepts each
@@ -199,7 +202,12 @@ export async function startFaultRelay(options: FaultRelayOptions): Promise<Fault
     });
   };
 
-  const drop = (pair: Pair): void => {
+  const drop = (pair: Pair, how: 'close' | 'reset' = 'close'): void => {
+    if (how === 'reset') {
+      pair.client.resetAndDestroy();
+      pair.upstream.resetAndDestroy();
+      return;
+    }
     pair.client.destroy();
     pair.upstream.destroy();
   };
@@ -289,8 +297,8 @@ export async function startFaultRelay(options: FaultRelayOptions): Promise<Fault
     get refused() {
       return refused;
     },
-    dropConnection: () => {
-      for (const pair of [...pairs]) drop(pair);
+    dropConnection: (how = 'close') => {
+      for (const pair of [...pairs]) drop(pair, how);
     },
     refuseConnections: async (on, how = 'close') => {
       if (closed) return;
