@@ -10,8 +10,8 @@ import { scaledDispersion } from '../model/optics/dispersion.ts';
 import { DEFAULT_PRIORS } from '../model/plan/precision.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import type { ControllerContext } from './controller-options.ts';
-import type { ControllerState } from './controller-state.ts';
-import { CLOCK_START_SIGMA_NM, RATE_RUN_SIGMA } from './estimators/model-fit.ts';
+import { layerPlanOf, type ControllerState } from './controller-state.ts';
+import { CLOCK_START_SIGMA_NM, concludeFit, fitClockAt, RATE_RUN_SIGMA } from './estimators/model-fit.ts';
 import type { RunEvent } from './events.ts';
 import type { RecipeLayer } from './rules/cut-rule.ts';
 
@@ -99,6 +99,53 @@ export function refitRecords(ctx: ControllerContext, s: ControllerState): Contro
   // The next refit starts where this one ended.
   const chipRecords = s.chipRecords.map((r, j) => ({ ...r, start: (result.layers[j] as RefitLayerResult).parameters }));
   return { ...s, achievedNm, indexFactors, chipRecords, materialRate: { ...s.materialRate, ...result.rate }, materialIndex: { ...s.materialIndex, ...result.index } };
+}
+
+/**
+ * A finished layer's fit entered into the chip model: a layer the fit cut (optical) takes the
+ * fit's thickness and index, and its material the fit's index (and, on the crystal's clock, its
+ * rate on that clock); a layer the fit watched (cut on the crystal or the clock) the optical
+ * thickness the signal showed. Without a usable fit the layer's index and optical thickness are
+ * unknown (NaN). Also the layer's binned readings for the chip refit, or null.
+ */
+export function enterLayerFit(ctx: ControllerContext, s: ControllerState, skipped: boolean): { state: ControllerState; record: RefitLayer | null } {
+  const layer = ctx.recipe.layers[s.index] as RecipeLayer;
+  const indexFactors = [...s.indexFactors];
+  indexFactors[s.index] = Number.NaN;
+  const opticalNm = [...s.opticalNm];
+  opticalNm[s.index] = Number.NaN;
+  let materialIndex = s.materialIndex;
+  let materialRate = s.materialRate;
+  let record: RefitLayer | null = null;
+  const planned = layerPlanOf(s).cut;
+  const fitCut = s.mode === 'level' || s.mode === 'turning-point';
+  const watched = s.mode === planned && (planned === 'crystal' || planned === 'time');
+  if (s.fit && !skipped && Number.isFinite(s.cutAtS) && (fitCut || watched)) {
+    const closeClock = fitClockAt(layer, s.fit, s, s.cutAtS + layer.shutterDelayS);
+    const conclusion = concludeFit(s.fit, s.index, closeClock, ctx.opts.chipRefit);
+    record = conclusion.record;
+    const final = conclusion.final;
+    const partNm = s.achievedNm[s.index] ?? 0;
+    if (final) {
+      if (fitCut && s.fit.clock === 'crystal' && final.rateSigma > 0) {
+        const plannedRate = layer.rateNmPerS * layer.chipRatio;
+        materialRate = { ...materialRate, [layer.materialName]: { factor: final.rateNmPerS / plannedRate, sigma: final.rateSigma / plannedRate } };
+      }
+      if (fitCut) {
+        // The fit's u is the optical thickness at the design index: physically u/κ at index κ·n.
+        const achievedNm = [...s.achievedNm];
+        achievedNm[s.index] = final.thicknessNm / final.indexFactor / layer.chipRatio;
+        indexFactors[s.index] = final.indexFactor;
+        // The fit's prior was the material's estimate so far: its posterior is the new estimate.
+        if (final.indexSigma > 0) materialIndex = { ...materialIndex, [layer.materialName]: { factor: final.indexFactor, sigma: final.indexSigma } };
+        s = { ...s, achievedNm };
+      } else if (partNm > 0) {
+        // Cut on the crystal and watched by the fit: the optical thickness the signal showed.
+        opticalNm[s.index] = final.thicknessNm / layer.chipRatio;
+      }
+    }
+  }
+  return { state: { ...s, indexFactors, opticalNm, materialIndex, materialRate }, record };
 }
 
 /**

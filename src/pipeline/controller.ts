@@ -27,7 +27,7 @@
 import { planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
 import type { CutMode, ResolvedRecipe } from '../model/plan/recipe.ts';
 import { alert as raiseAlert, fault as countFault, reportFaults } from './alerts.ts';
-import { compensateRest, refitRecords, REFIT_LAYERS, resolvedStack, withTargets } from './chip-model.ts';
+import { compensateRest, enterLayerFit, refitRecords, REFIT_LAYERS, resolvedStack, withTargets } from './chip-model.ts';
 import { ALERTS, type AlertCode } from './codes.ts';
 import { DEFAULT_CONTROLLER_OPTIONS, type ControllerContext, type ControllerOptions } from './controller-options.ts';
 import {
@@ -41,12 +41,13 @@ import {
   UNKNOWN_CRYSTAL,
   withReading,
   type ControllerState,
-  type OpticalTrack,
 } from './controller-state.ts';
 import { readCrystal } from './estimators/crystal.ts';
-import { concludeFit, fitClockAt, fitEstimateAt, modelFitRule, readFit, startFit } from './estimators/model-fit.ts';
-import { confirmStep, readTurns, startTurnDetector } from './estimators/turn-detector.ts';
+import { fitClockAt, fitEstimateAt, modelFitRule, startFit } from './estimators/model-fit.ts';
+import { confirmStep, startTurnDetector } from './estimators/turn-detector.ts';
 import type { RunEvent } from './events.ts';
+import { wantedMode } from './fallbacks.ts';
+import { readOptical } from './optical-channel.ts';
 import { crystalCalibratedRule } from './rules/crystal-calibrated.ts';
 import { crystalThicknessRule } from './rules/crystal-thickness.ts';
 import type { Cut, CutRule, LayerNow, RecipeLayer, ThicknessEstimate } from './rules/cut-rule.ts';
@@ -59,16 +60,6 @@ import type { FaultCode, LinkChange, OperatorCommand, PipelineInput, Reading, Sh
 
 export { DEFAULT_CONTROLLER_OPTIONS, type ControllerOptions } from './controller-options.ts';
 export { isGrowing, type ControllerState, type Phase } from './controller-state.ts';
-
-/**
- * An optical reading may not jump from the last one by more than twice the layer's whole planned
- * curve range (0–120 % of the target) and 20σ: no chip does that in one reading. Any reading
- * must lie within half the full scale beyond 0..1 (no transmittance or reflectance does).
- */
-const OPTICAL_JUMP_SIGMAS = 20;
-/** Nor by less than a tenth of full scale: a monitor that noisy would be of no use at all. */
-const OPTICAL_JUMP_FLOOR = 0.1;
-const OPTICAL_SIGNAL_ALLOWANCE = 0.5;
 
 export interface StepResult {
   readonly state: ControllerState;
@@ -84,8 +75,8 @@ export interface Controller {
   step(state: ControllerState, input: PipelineInput): StepResult;
   /**
    * The estimate of the layer in progress by the rule that cuts it now (the fit's where the fit
-   * cuts it, else the crystal's or the clock's with the plan's precision), at the state's
-   * present; null when no layer grows or the rule has none yet.
+   * cuts it, else the crystal's or the clock's with the plan's precision of the plain rule), at
+   * the state's present; null when no layer grows or the rule has none yet.
    */
   estimate(state: ControllerState): ThicknessEstimate | null;
 }
@@ -199,7 +190,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         if (timeS < s.nowS) return { state: fault(s, events, 'time-backwards', `${input.channel} at ${input.timeS} s`), events };
         if (!Number.isFinite(input.value)) return { state: fault(s, events, 'not-a-number', `${input.channel} ${input.value}`), events };
         const reading = timeS === input.timeS ? input : { ...input, timeS };
-        s = reading.channel === 'optical' ? onOptical(s, reading, events) : readCrystal(ctx, s, reading, events);
+        s = reading.channel === 'optical' ? readOptical(ctx, s, reading, events) : readCrystal(ctx, s, reading, events);
         break;
       }
     }
@@ -227,64 +218,6 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const jumpS = timeS - Math.max(s.nowS, first.presentS + (timeS - first.firstS));
     s = { ...s, clocks: { ...s.clocks, [r.channel]: { ...STEADY_CLOCK, offsetS: clock.offsetS + jumpS } } };
     return alert(s, events, 'clock-rebased', `${ALERTS['clock-rebased'].sentence} (${r.channel}, ${jumpS >= 0 ? '+' : ''}${jumpS.toFixed(1)} s)`);
-  }
-
-  /** An optical reading: judged plausible, then fed to the layer's estimators (the fit, the turn detector). */
-  function onOptical(s: ControllerState, r: Reading, events: RunEvent[]): ControllerState {
-    const o = s.optical;
-    const growing = isGrowing(s);
-    if (growing && o.distrusted) return withReading(s, r.timeS, s.lastOpticalS, s.lastCrystalS, o, s.turns, s.crystal, s.layerCrystalNm);
-    if (growing) {
-      // Plausibility: no chip moves its signal by twice its layer's whole curve in one reading.
-      // In a layer's first second, or the first after a gap, the last reading is no reference (a
-      // monitor changing wavelength, a signal moving through the gap): a reading there only has
-      // to be a signal at all. Five readings that agree take over from a wrong reference.
-      const limit = Math.max(OPTICAL_JUMP_SIGMAS * noise, o.jumpLimit, OPTICAL_JUMP_FLOOR);
-      const settled = r.timeS - o.since >= opts.recoverS;
-      const noSignal = Math.abs(r.value - 0.5) > 0.5 + OPTICAL_SIGNAL_ALLOWANCE;
-      if (noSignal || (settled && Math.abs(r.value - o.value) > limit)) {
-        s = opticalSuspect(s, events, r, limit, noSignal);
-        // Readings that agree among themselves are the signal's level (the reference was the wrong one).
-        if (s.optical.suspects < SUSPECT_READINGS || s.optical.distrusted) return s;
-      }
-    }
-    // Across a resume the fit's clock waits for the crystal's first reading: what grew meanwhile is in it.
-    if (s.fit && growing && !(s.fit.clock === 'crystal' && s.crystal.lastS <= s.resumedAtS)) {
-      readFit(s.fit, fitClockAt(layerRecipe(s), s.fit, s, r.timeS), r.value);
-    }
-    if (s.phase !== 'depositing') return withReading(s, r.timeS, r.timeS, s.lastCrystalS, s.optical, s.turns, s.crystal, s.layerCrystalNm);
-    // A gap resets the run of readings the monitor needs before it takes its layer back.
-    const lastS = Number.isNaN(s.lastOpticalS) ? s.openedAtS : Math.max(s.lastOpticalS, s.openedAtS);
-    const unbroken = !Number.isNaN(o.since) && r.timeS - lastS < opts.staleAfterS;
-    const optical: OpticalTrack = {
-      value: r.value,
-      since: unbroken ? o.since : r.timeS,
-      gapFromS: unbroken ? o.gapFromS : lastS,
-      jumpLimit: o.jumpLimit,
-      suspects: 0,
-      suspectValue: Number.NaN,
-      erratic: false,
-      distrusted: false,
-    };
-    const turns = readTurns(s.turns, layerPlan(s), r.timeS, r.value, opts.turnSmoothingS);
-    return withReading(s, r.timeS, r.timeS, s.lastCrystalS, optical, turns, s.crystal, s.layerCrystalNm);
-  }
-
-  /**
-   * An implausible optical reading: a fault, not used. The SUSPECT_READINGSth in a row is used if
-   * they all agree and are signals at all (the caller goes on with it); else the monitor is set
-   * aside for the layer.
-   */
-  function opticalSuspect(s: ControllerState, events: RunEvent[], r: Reading, limit: number, noSignal: boolean): ControllerState {
-    const o = s.optical;
-    const suspects = o.suspects + 1;
-    const erratic = noSignal || (o.suspects > 0 && (o.erratic || Math.abs(r.value - o.suspectValue) > limit));
-    if (suspects >= SUSPECT_READINGS && !erratic) return { ...s, optical: { ...o, suspects } };
-    s = fault({ ...s, nowS: r.timeS }, events, 'implausible-jump', `optical ${r.value} at ${r.timeS} s`);
-    if (s.phase !== 'depositing') return s;
-    if (suspects < SUSPECT_READINGS) return { ...s, optical: { ...o, suspects, suspectValue: r.value, erratic } };
-    s = { ...s, optical: { ...o, suspects: 0, suspectValue: Number.NaN, erratic: false, distrusted: true } };
-    return alert(s, events, 'optical-implausible', ALERTS['optical-implausible'].sentence);
   }
 
   /** Whether the crystal is silent for the layer in progress (or set aside for it). */
@@ -364,7 +297,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const crystalSilent = crystalSilentNow(s);
     if (isOptical(s.mode) && opticalSilent) s = alert(s, events, 'optical-lost', ALERTS['optical-lost'].sentence);
     if (crystalSilent && !s.crystalAlerted) s = alert({ ...s, crystalAlerted: true }, events, 'crystal-lost', ALERTS['crystal-lost'].sentence);
-    const wanted = wantedMode(s, plan, opticalSilent, crystalSilent);
+    const wanted = wantedMode(ctx, s, plan, opticalSilent, crystalSilent);
     if (wanted !== s.mode) s = changeMode(s, events, wanted, wanted === plan.cut ? 'mode-restored' : wanted === 'crystal' ? 'crystal-fallback' : 'time-fallback');
     const now = layerNow(s, crystalSilent);
 
@@ -395,39 +328,6 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     return verdict ? cut(s, events, verdict) : s;
   }
 
-  /**
-   * The mode the layer should be cut in now: its planned one while its monitor answers, else the
-   * crystal, else the clock. Leaving a mode takes silence (staleAfterS); coming back to one takes
-   * recoverS of unbroken readings, and for an optical layer without the fit (which runs on its
-   * own clock through a gap) a level layer whose gap hid at most one turning point, which the
-   * turn detector still counts when the signal shows up past it. A turning-point layer on the
-   * plain rule stays on the crystal: its detector, having lost the extremum's approach, cut a
-   * harsh-profile mirror layer 36 nm thin where the crystal had been within 2 nm.
-   */
-  function wantedMode(s: ControllerState, plan: LayerPlan, opticalSilent: boolean, crystalSilent: boolean): CutMode {
-    const planned = plan.cut;
-    if (planned === 'time') return s.mode;
-    const optical = planned === 'level' || planned === 'turning-point';
-    const opticalUsable = optical && !opticalSilent && (s.mode === planned || (s.nowS - s.optical.since >= opts.recoverS && (s.fit !== null || (planned === 'level' && gapHidesOneTurnAtMost(s, plan, crystalSilent)))));
-    if (opticalUsable) return planned;
-    const crystalUsable = !crystalSilent && (s.mode === 'crystal' || s.nowS - s.crystal.since >= opts.recoverS);
-    return crystalUsable ? 'crystal' : 'time';
-  }
-
-  /** Whether the optical gap before the present run of readings spans at most one of the layer's planned turning points. */
-  function gapHidesOneTurnAtMost(s: ControllerState, plan: LayerPlan, crystalSilent: boolean): boolean {
-    const layer = layerRecipe(s);
-    const elapsed = s.nowS - s.openedAtS;
-    const partNm = !crystalSilent && Number.isFinite(s.crystal.partNm) ? s.crystal.partNm : layer.rateNmPerS * elapsed;
-    const rate = !crystalSilent && Number.isFinite(s.crystal.rateNmPerS) ? s.crystal.rateNmPerS : layer.rateNmPerS;
-    const chip = (nm: number): number => nm * layer.chipRatio;
-    // The gap's span on the chip, widened by a tenth of the target for the rate's error.
-    const margin = 0.1 * plan.chipTargetNm;
-    const fromNm = chip(partNm - rate * (s.nowS - s.optical.gapFromS)) - margin;
-    const toNm = chip(partNm - rate * (s.nowS - s.optical.since)) + margin;
-    return plan.turningPoints.filter((tp) => tp.thicknessNm >= fromNm && tp.thicknessNm <= toNm).length <= 1;
-  }
-
   function cut(s: ControllerState, events: RunEvent[], c: Cut): ControllerState {
     const layer = layerRecipe(s);
     events.push({ type: 'cut', timeS: s.nowS, layer: layer.number, reason: c.reason, estimatedNm: c.estimatedNm, delayAllowanceNm: c.delayAllowanceNm, signal: s.optical.value });
@@ -437,41 +337,9 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
 
   function finishLayer(s: ControllerState, events: RunEvent[], skipped: boolean): ControllerState {
     const layer = layerRecipe(s);
-    const indexFactors = [...s.indexFactors];
-    indexFactors[s.index] = Number.NaN;
-    const opticalNm = [...s.opticalNm];
-    opticalNm[s.index] = Number.NaN;
-    let materialIndex = s.materialIndex;
-    let materialRate = s.materialRate;
-    let record = null;
-    const planned = layerPlan(s).cut;
-    const fitCut = isOptical(s.mode);
-    const watched = s.mode === planned && (planned === 'crystal' || planned === 'time');
-    if (s.fit && !skipped && Number.isFinite(s.cutAtS) && (fitCut || watched)) {
-      const closeClock = fitClockAt(layer, s.fit, s, s.cutAtS + layer.shutterDelayS);
-      const conclusion = concludeFit(s.fit, s.index, closeClock, opts.chipRefit);
-      record = conclusion.record;
-      const final = conclusion.final;
-      const partNm = s.achievedNm[s.index] ?? 0;
-      if (final) {
-        if (fitCut && s.fit.clock === 'crystal' && final.rateSigma > 0) {
-          const plannedRate = layer.rateNmPerS * layer.chipRatio;
-          materialRate = { ...materialRate, [layer.materialName]: { factor: final.rateNmPerS / plannedRate, sigma: final.rateSigma / plannedRate } };
-        }
-        if (fitCut) {
-          // The fit's u is the optical thickness at the design index: physically u/κ at index κ·n.
-          const achievedNm = [...s.achievedNm];
-          achievedNm[s.index] = final.thicknessNm / final.indexFactor / layer.chipRatio;
-          indexFactors[s.index] = final.indexFactor;
-          // The fit's prior was the material's estimate so far: its posterior is the new estimate.
-          if (final.indexSigma > 0) materialIndex = { ...materialIndex, [layer.materialName]: { factor: final.indexFactor, sigma: final.indexSigma } };
-          s = { ...s, achievedNm };
-        } else if (partNm > 0) {
-          // Cut on the crystal and watched by the fit: the optical thickness the signal showed.
-          opticalNm[s.index] = final.thicknessNm / layer.chipRatio;
-        }
-      }
-    }
+    const fitted = enterLayerFit(ctx, s, skipped);
+    const record = fitted.record;
+    s = fitted.state;
     // A crystal set aside or silent at the layer's end did not see all of it: its record is
     // unknown, and the crystal's next reading becomes its reference (estimators/crystal.ts).
     const followed = s.crystal.distrustLayer !== s.index && s.nowS - s.lastCrystalS < opts.staleAfterS;
@@ -481,7 +349,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     const unit = s.crystalUnit;
     const onUnitNm = Math.max(0, crystalNm - (unit.layer === s.index ? unit.carriedNm : 0));
     const crystalUnit = followed ? { ...unit, stack: [...unit.stack, { thicknessNm: onUnitNm, densityGPerCm3: layer.densityGPerCm3, zRatio: layer.zRatio }] } : UNKNOWN_CRYSTAL;
-    s = { ...s, indexFactors, opticalNm, materialIndex, materialRate, crystalBelow, crystalUnit };
+    s = { ...s, crystalBelow, crystalUnit };
     if (record) s = refitRecords(ctx, { ...s, chipRecords: [...s.chipRecords, record].slice(-REFIT_LAYERS) });
     const materialAfter = [...s.materialAfter];
     materialAfter[s.index] = { rate: s.materialRate, index: s.materialIndex };
