@@ -1,0 +1,87 @@
+/**
+ * The plain rules' estimator: a threshold turn detector on the optical signal, and the count of
+ * readings in a row beyond the layer's trigger level. The turning-point and trigger-level rules
+ * (src/pipeline/rules/) cut on what it has seen. Plain data, a new value per reading.
+ */
+import type { LayerPlan } from '../../model/plan/plan.ts';
+
+export interface TurnDetector {
+  /** Time of the last reading taken, s. */
+  readonly lastS: number;
+  /** The signal through the detector's exponential average. */
+  readonly smoothed: number;
+  /** Running extremum (of the smoothed signal) in the current trend. */
+  readonly extreme: number;
+  readonly trend: 1 | -1;
+  readonly turnsPassed: number;
+  /** Signal step that confirms a turn. */
+  readonly confirm: number;
+  /** Turns the detector must see before the cut (see {@link visibleTurns}). */
+  readonly turnsNeeded: number;
+  /** Consecutive readings beyond the trigger level. */
+  readonly beyond: number;
+}
+
+export interface TurnDetectorOptions {
+  /** A turn is confirmed by a tenth of the layer's planned swing, kept between confirmMinSigma·σ and confirmSigma·σ. */
+  readonly confirmSigma: number;
+  readonly confirmMinSigma: number;
+}
+
+/** A tenth of the planned swing, kept between confirmMinSigma·σ and confirmSigma·σ (σ the monitor's noise). */
+export function confirmStep(plan: LayerPlan | undefined, noise: number, options: TurnDetectorOptions): number {
+  return Math.min(options.confirmSigma * noise, Math.max(options.confirmMinSigma * noise, 0.1 * (plan?.swing ?? 0)));
+}
+
+/** The detector at a layer's start. The extremum starts at the first reading, not the plan's start: gain and offset drift. */
+export function startTurnDetector(plan: LayerPlan | undefined, confirm: number): TurnDetector {
+  const { trend, turnsNeeded } = visibleTurns(plan, confirm);
+  return { lastS: Number.NaN, smoothed: Number.NaN, extreme: Number.NaN, trend, turnsPassed: 0, confirm, turnsNeeded, beyond: 0 };
+}
+
+/** The detector after an optical reading of the layer, averaged with time constant `smoothingS`. */
+export function readTurns(d: TurnDetector, plan: LayerPlan, timeS: number, value: number, smoothingS: number): TurnDetector {
+  const confirm = d.confirm;
+  const smoothed = Number.isNaN(d.smoothed) ? value : d.smoothed + (1 - Math.exp(-(timeS - d.lastS) / smoothingS)) * (value - d.smoothed);
+  let { extreme, trend, turnsPassed } = d;
+  if (Number.isNaN(extreme) || (trend > 0 ? smoothed > extreme : smoothed < extreme)) extreme = smoothed;
+  else if (trend > 0 ? smoothed < extreme - confirm : smoothed > extreme + confirm) {
+    turnsPassed++;
+    trend = trend > 0 ? -1 : 1;
+    extreme = smoothed;
+  }
+  const rising = plan.direction === 'rising' || (plan.direction === 'turning' && trend > 0);
+  const isBeyond = rising ? value >= plan.triggerSignal : value <= plan.triggerSignal;
+  const beyond = turnsPassed >= d.turnsNeeded && isBeyond ? d.beyond + 1 : 0;
+  return { lastS: timeS, smoothed, extreme, trend, turnsPassed, confirm, turnsNeeded: d.turnsNeeded, beyond };
+}
+
+/**
+ * The turns a threshold detector can see before the cut: an extremum that moves the signal by
+ * less than twice the confirmation step from the previous one is invisible to it (a layer that
+ * starts just before a shallow turn, say), so it is not waited for. Also the way the signal
+ * first moves visibly.
+ */
+export function visibleTurns(plan: LayerPlan | undefined, confirm: number): { trend: 1 | -1; turnsNeeded: number } {
+  if (!plan) return { trend: 1, turnsNeeded: 0 };
+  // Turns before the cut; one at the target itself is the cut of a turning-point layer.
+  const before = plan.turningPoints.filter((tp) => tp.thicknessNm < plan.chipTargetNm * (1 - 1e-3));
+  const points = [...before.map((tp) => tp.signal), plan.cutSignal];
+  let previous = plan.startSignal;
+  let trend: 1 | -1 | 0 = 0;
+  let turnsNeeded = 0;
+  for (const signal of points) {
+    const move = signal - previous;
+    if (Math.abs(move) < 2 * confirm) continue;
+    const direction = move >= 0 ? 1 : -1;
+    if (trend === 0) trend = direction;
+    else if (direction !== trend) {
+      turnsNeeded++;
+      trend = direction;
+    }
+    previous = signal;
+  }
+  // The first visible move sets the initial trend; count turns from it.
+  const first = points.find((p) => Math.abs(p - plan.startSignal) >= 2 * confirm) ?? plan.cutSignal;
+  return { trend: first >= plan.startSignal ? 1 : -1, turnsNeeded };
+}
