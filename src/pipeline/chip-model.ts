@@ -13,6 +13,7 @@ import type { ControllerContext } from './controller-options.ts';
 import { layerPlanOf, type ControllerState } from './controller-state.ts';
 import { CLOCK_START_SIGMA_NM, concludeFit, fitClockAt, RATE_RUN_SIGMA } from './estimators/model-fit.ts';
 import type { RunEvent } from './events.ts';
+import { resolvedStack } from './resolved-stack.ts';
 import type { RecipeLayer } from './rules/cut-rule.ts';
 
 /**
@@ -21,49 +22,6 @@ import type { RecipeLayer } from './rules/cut-rule.ts';
  * itself and the few below it (common practice, no source: 8 keeps a refit within tens of ms).
  */
 export const REFIT_LAYERS = 8;
-
-/** A material's rate on the crystal's clock known this well (fraction, rms) stands for the thickness of each of its layers (resolvedStack). */
-const CALIBRATED_RATE_SIGMA = 0.005;
-
-/**
- * The finished layers as the chip model and the re-plan take them: physical part thickness and
- * index factor. A layer the fit cut: its own estimates (u/κ and κ). A layer cut on the crystal:
- * once the fits of its material have calibrated the material's rate on the crystal's clock (ρ,
- * to CALIBRATED_RATE_SIGMA), its crystal thickness made optical, u = ρ·crystal, at the
- * material's index — re-resolved as the calibration improves, so that a first layer cut blind
- * does not hold the chip model of the later ones hostage; before that, the optical thickness
- * the watching fit saw, else the crystal's at the material's index (1 before any estimate).
- * (Replacing a fitted layer's own estimate by ρ·crystal too was tried: ρ is known to a few
- * tenths of a per cent, a layer's own fit to a few hundredths, so it loses.)
- */
-export function resolvedStack(recipe: ResolvedRecipe, s: ControllerState): { partNm: number[]; indexFactors: number[] } {
-  const partNm: number[] = [];
-  const indexFactors: number[] = [];
-  s.achievedNm.forEach((achieved, i) => {
-    const layer = recipe.layers[i] as RecipeLayer;
-    const fitted = s.indexFactors[i] ?? Number.NaN;
-    const rate = s.materialRate[layer.materialName];
-    const crystalNm = (s.crystalBelow[i]?.thicknessNm ?? 0) * layer.toolingFactor;
-    const known = s.materialIndex[layer.materialName]?.factor;
-    if (!Number.isNaN(fitted)) {
-      partNm.push(achieved);
-      indexFactors.push(fitted);
-      return;
-    }
-    if (rate && rate.sigma < CALIBRATED_RATE_SIGMA * rate.factor && crystalNm > 0) {
-      const index = known ?? 1;
-      partNm.push((rate.factor * crystalNm) / index);
-      indexFactors.push(index);
-      return;
-    }
-    const watched = s.opticalNm[i] ?? Number.NaN;
-    // Before any fitted layer of the material, what the watching fit saw stands for its index too.
-    const index = known ?? (Number.isFinite(watched) && achieved > 0 ? Math.min(1.1, Math.max(0.9, watched / achieved)) : 1);
-    partNm.push((Number.isFinite(watched) ? watched : achieved * index) / index);
-    indexFactors.push(index);
-  });
-  return { partNm, indexFactors };
-}
 
 /**
  * Refits the current chip's recorded layers together (src/model/estimate/chip-refit.ts) and

@@ -27,7 +27,8 @@
 import { planRun, type LayerPlan, type RunPlan } from '../model/plan/plan.ts';
 import type { CutMode, ResolvedRecipe } from '../model/plan/recipe.ts';
 import { alert as raiseAlert, fault as countFault, reportFaults } from './alerts.ts';
-import { compensateRest, enterLayerFit, refitRecords, REFIT_LAYERS, resolvedStack, withTargets } from './chip-model.ts';
+import { compensateRest, enterLayerFit, refitRecords, REFIT_LAYERS, withTargets } from './chip-model.ts';
+import { resolvedStack } from './resolved-stack.ts';
 import { ALERTS, type AlertCode } from './codes.ts';
 import { DEFAULT_CONTROLLER_OPTIONS, type ControllerContext, type ControllerOptions } from './controller-options.ts';
 import {

@@ -1,19 +1,20 @@
 /**
- * The finished layers as the run knows them now: each layer's physical thickness on the parts
- * and its index over the design's. A layer the model fit cut keeps the fit's figures (revised by
- * every chip refit); a layer cut on the crystal takes its material's calibrated rate on the
- * crystal's clock once that is known (ρ·crystal is its optical thickness), before that the
- * optical thickness the watching fit saw, else the crystal's figure at the material's index.
- *
- * This is the rule the controller applies inside its reducer (its `resolvedStack`, whose
- * `layer-finished` events carry these figures); it is written here, pure and exported, so that
- * the dashboard and the run's records read the stack by the same rule. A test holds the two to
- * the same numbers at every layer's end.
+ * The finished layers as the run knows them now, as the chip model, the re-plan, the dashboard
+ * and the run's records take them: each layer's physical thickness on the parts and its index
+ * over the design's. A layer the fit cut: its own estimates (u/κ and κ), revised by every chip
+ * refit. A layer cut on the crystal: once the fits of its material have calibrated the
+ * material's rate on the crystal's clock (ρ, to CALIBRATED_RATE_SIGMA), its crystal thickness
+ * made optical, u = ρ·crystal, at the material's index (re-resolved as the calibration improves,
+ * so that a first layer cut blind does not hold the chip model of the later ones hostage);
+ * before that, the optical thickness the watching fit saw, else the crystal's at the material's
+ * index (1 before any estimate). (Replacing a fitted layer's own estimate by ρ·crystal too was
+ * tried: ρ is known to a few tenths of a per cent, a layer's own fit to a few hundredths, so it
+ * loses.)
  */
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import type { ControllerState } from './controller.ts';
 
-/** A material's rate on the crystal's clock known this well (fraction, rms) stands for the thickness of each of its layers (the controller's figure). */
+/** A material's rate on the crystal's clock known this well (fraction, rms) stands for the thickness of each of its layers . */
 export const CALIBRATED_RATE_SIGMA = 0.005;
 
 export interface ResolvedStack {
