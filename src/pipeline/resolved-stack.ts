@@ -52,5 +52,6 @@ export function resolvedStack(recipe: ResolvedRecipe, s: StackState): ResolvedSt
     partNm.push((Number.isFinite(watched) ? watched : achieved * index) / index);
     indexFactors.push(index);
   });
-  return { partNm, indexFactors };
+  // A layer a little below zero (a crystal read thinner than bare, a fit in noise about none) is no layer: the optics refuse a negative one.
+  return { partNm: partNm.map((nm) => Math.max(0, nm)), indexFactors };
 }

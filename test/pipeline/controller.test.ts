@@ -7,6 +7,7 @@ import { zMatchFrequencyHz } from '../../src/model/crystal/index.ts';
 import { planRun } from '../../src/model/plan/plan.ts';
 import { turningPointRulePrecision } from '../../src/model/plan/precision.ts';
 import { ALERTS } from '../../src/pipeline/codes.ts';
+import { resolvedStack } from '../../src/pipeline/resolved-stack.ts';
 import { createController, type ControllerState } from '../../src/pipeline/controller.ts';
 import type { RunEvent } from '../../src/pipeline/events.ts';
 import type { PipelineInput } from '../../src/pipeline/types.ts';
@@ -312,5 +313,23 @@ describe('compensation', () => {
     // The next layer is planned and cut on its new target.
     const started = ofType(run.events, 'layer-started').find((e) => e.layer === 3);
     expect(started?.targetNm).toBeCloseTo(after?.afterNm[0] ?? Number.NaN, 9);
+  });
+});
+
+describe('a layer ended below zero', () => {
+  it('is taken as no layer at all, so that no re-plan or fit is handed a negative thickness', () => {
+    // Seen once in a live run under heavy load: "layer 2 has thickness -0.33 nm" from the optics
+    // model stopped the controller. A thickness a little below zero is noise about none.
+    const state = {
+      achievedNm: [-0.33, 52, -0.02],
+      indexFactors: [Number.NaN, 1.01, 1],
+      materialRate: {},
+      materialIndex: {},
+      crystalBelow: [],
+      opticalNm: [Number.NaN, Number.NaN, Number.NaN],
+    };
+    const stack = resolvedStack(ar4, state);
+    expect(stack.partNm).toEqual([0, 52, 0]);
+    expect(() => planRun(ar4, { achievedNm: stack.partNm, achievedIndexFactors: stack.indexFactors, suggest: 'none', stackPrecision: false })).not.toThrow();
   });
 });
