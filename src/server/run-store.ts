@@ -33,6 +33,8 @@ export interface RunListing {
   rmsTrueErrorPercent: number | null;
   journalBytes: number;
   replayable: boolean;
+  /** The chamber's factors from `calibration.json` beside the run (`fringe calibrate`), one line; null without one. */
+  calibration: string | null;
 }
 
 export interface RunFolder {
@@ -93,6 +95,35 @@ export function readSummary(folder: RunFolder): Record<string, unknown> | null {
   }
 }
 
+/**
+ * The calibration beside a run in one line, per material its index factor, chip ratio and
+ * tooling factor with their sigmas ("SiO2: n ×1.0100 ± 0.0001, chip 1.0068 ± 0.0015, tooling
+ * 1.0538 ± 0.0015"); null without a readable calibration.json. Only numbers are taken from it.
+ */
+export function calibrationBrief(folder: RunFolder): string | null {
+  let value: unknown;
+  try {
+    value = JSON.parse(readFileSync(join(folder.dir, 'calibration.json'), 'utf8'));
+  } catch {
+    return null;
+  }
+  const materials = (value as { materials?: unknown } | null)?.materials;
+  if (materials === null || typeof materials !== 'object' || Array.isArray(materials)) return null;
+  const figure = (f: unknown): string | null => {
+    const { value: v, sigma } = (f ?? {}) as { value?: unknown; sigma?: unknown };
+    return typeof v === 'number' && Number.isFinite(v) ? `${v.toFixed(4)}${typeof sigma === 'number' && Number.isFinite(sigma) ? ` ± ${sigma.toFixed(4)}` : ''}` : null;
+  };
+  const parts = Object.entries(materials as Record<string, unknown>).slice(0, 20).map(([name, m]) => {
+    const { indexFactor, chipRatio, toolingFactor } = (m ?? {}) as Record<string, unknown>;
+    const each = [['n ×', indexFactor], ['chip ', chipRatio], ['tooling ', toolingFactor]]
+      .map(([label, f]) => [label, figure(f)])
+      .filter(([, text]) => text !== null)
+      .map(([label, text]) => `${label as string}${text as string}`);
+    return `${name.slice(0, 40)}: ${each.join(', ') || 'no figures'}`;
+  });
+  return parts.length > 0 ? parts.join('; ') : null;
+}
+
 /** Every run in `runsDir`, newest first. A missing folder is an empty list. */
 export function listRuns(runsDir: string): RunListing[] {
   let names: string[];
@@ -124,6 +155,7 @@ export function listRuns(runsDir: string): RunListing[] {
       rmsTrueErrorPercent: figures?.rmsTrueErrorPercent ?? null,
       journalBytes: statSync(folder.journalFile).size,
       replayable: existsSync(folder.recipeFile),
+      calibration: calibrationBrief(folder),
     });
   }
   return out.sort((a, b) => (b.startedAt ?? b.id).localeCompare(a.startedAt ?? a.id));

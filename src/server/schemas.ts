@@ -141,6 +141,7 @@ const listingSchema = {
     rmsTrueErrorPercent: nullableNumber,
     journalBytes: { type: 'integer' },
     replayable: { type: 'boolean' },
+    calibration: nullableString,
   },
   required: ['id', 'outcome', 'journalBytes', 'replayable'],
 } as const;

@@ -1,6 +1,6 @@
 // The HTTP API through app.inject(): health, the run on show, the runs folder, the command
 // routes and their token, the viewer token, and logs that never carry a token.
-import { mkdirSync, writeFileSync } from 'node:fs';
+import { mkdirSync, rmSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { Writable } from 'node:stream';
 import type { FastifyInstance } from 'fastify';
@@ -103,6 +103,25 @@ describe('the runs folder', () => {
     expect(runs[0]).toMatchObject({ recipe: ar4.name, source: 'simulator', outcome: 'complete', layers: 4, replayable: true });
     expect(runs[0]?.durationS).toBeGreaterThan(100);
     expect(runs[1]).toMatchObject({ outcome: 'in progress', layers: null, replayable: false });
+  });
+
+  it('shows a run’s calibration in one line, numbers only, and nothing from a damaged one', async () => {
+    const app = serve(manualRun(ar4), runsDir);
+    const figure = (value: unknown, sigma: unknown) => ({ value, sigma });
+    // As fringe calibrate writes it, with a hostile name and a non-number among the figures.
+    writeFileSync(
+      join(runsDir, recordedId, 'calibration.json'),
+      JSON.stringify({ materials: { SiO2: { indexFactor: figure(1.01004, 0.00005), chipRatio: figure(1.0068, 0.0015), toolingFactor: figure('<b>', 0.1) } }, layers: [] }),
+    );
+    writeFileSync(join(runsDir, 'unfinished', 'calibration.json'), '{"materials": [1, 2');
+    try {
+      const { runs } = (await app.inject({ method: 'GET', url: '/api/runs' })).json<{ runs: Record<string, unknown>[] }>();
+      expect(runs[0]?.calibration).toBe('SiO2: n ×1.0100 ± 0.0001, chip 1.0068 ± 0.0015');
+      expect(runs[1]?.calibration).toBeNull();
+    } finally {
+      rmSync(join(runsDir, recordedId, 'calibration.json'));
+      rmSync(join(runsDir, 'unfinished', 'calibration.json'));
+    }
   });
 
   it('gives one run’s summary and its journal as a download', async () => {

@@ -700,7 +700,7 @@ async function loadHistory() {
         const started = r.startedAt ? new Date(r.startedAt).toLocaleString() : r.id;
         const replay = r.replayable ? `<button type="button" data-replay="${escapeHtml(r.id)}">Replay</button>` : '<span title="no recipe.json beside the journal">no replay</span>';
         return (
-          `<tr><td data-label="Started">${escapeHtml(started)}</td><td data-label="Recipe">${escapeHtml(r.recipe ?? '–')}</td><td data-label="Source">${escapeHtml(r.source ?? '–')}</td><td data-label="Outcome">${escapeHtml(r.outcome)}</td>` +
+          `<tr><td data-label="Started">${escapeHtml(started)}</td><td data-label="Recipe">${escapeHtml(r.recipe ?? '–')}</td><td data-label="Source">${escapeHtml(r.source ?? '–')}</td><td data-label="Outcome">${escapeHtml(r.outcome)}${r.calibration ? `<div class="calibration" title="from fringe calibrate (calibration.json beside the run)">calibrated: ${escapeHtml(r.calibration)}</div>` : ''}</td>` +
           `<td class="num" data-label="Layers">${r.layers === null ? '–' : `${r.layers} of ${r.layersPlanned}`}</td><td class="num" data-label="Run time">${fmt.clock(r.durationS)}</td>` +
           `<td class="num" data-label="rms error" title="over the ${r.layersCutByRule ?? 0} layers a rule cut">${r.rmsErrorPercent === null ? '–' : `${r.rmsErrorPercent.toFixed(2)} %`}${r.rmsTrueErrorPercent === null ? '' : ` <span class="true-error">/ ${r.rmsTrueErrorPercent.toFixed(2)} %</span>`}${r.layersCutByRule === null ? '' : ` <span class="true-error">(${r.layersCutByRule})</span>`}</td>` +
           `<td data-label="Actions"><span class="actions"><button type="button" data-summary="${escapeHtml(r.id)}">Summary</button>${replay}` +
