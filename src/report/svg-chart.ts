@@ -511,7 +511,7 @@ function renderChartElement(seriesIn: readonly ChartSeries[], optionsIn: ChartOp
   const inY = (y: number): boolean => Number.isFinite(y) && y >= yr.lo && y <= yr.hi;
 
   // Ids unique within the document: a panel's own, under the chart's prefix when several charts share a page.
-  const clipId = options.idPrefix === undefined ? place.id : `${escapeXml(options.idPrefix)}-${place.id}`;
+  const clipId = options.idPrefix === undefined ? place.id : place.id.replace(/^fringe-plot/, escapeXml(options.idPrefix));
   const out: string[] = [];
   out.push(
     `<svg xmlns="http://www.w3.org/2000/svg" version="1.1"${place.y !== 0 ? ` y="${place.y}"` : ''} width="${width}" height="${height}" viewBox="0 0 ${width} ${height}" font-family="${escapeXml(FONT)}">`,
