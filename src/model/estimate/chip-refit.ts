@@ -155,7 +155,8 @@ export function refitChip(recipe: ResolvedRecipe, layers: readonly RefitLayer[],
     const indexFactors = [...options.fixedIndexFactors];
     layers.forEach((l, j) => {
       const kappa = theta[indexAt(materialIndex[j] as number)] as number;
-      partNm[l.index] = uAt(theta, j, l.closeClock) / kappa / (chipRatio[j] as number);
+      // A trial step may take a thin layer below zero; the optics refuse that, and a layer there is none.
+      partNm[l.index] = Math.max(0, uAt(theta, j, l.closeClock) / kappa / (chipRatio[j] as number));
       indexFactors[l.index] = kappa;
     });
     return { partNm, indexFactors };
