@@ -14,6 +14,7 @@ import { buildServer } from '../../server/build-server.ts';
 import { startSimulatedRun } from '../../server/simulated-run.ts';
 import { allowHostOption, CliError, estimatorOption, numberOption, outputFolderOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
+import { untilStopped } from '../until-stopped.ts';
 import { DEMO_RUNS_KEPT, pruneDemoRuns } from '../demo-runs.ts';
 import { PLANT_OPTIONS, plantPlan, plantUsage, startPlant, stopPlant } from '../plant-options.ts';
 import { DEFAULT_PROFILE } from './simulate.ts';
@@ -140,20 +141,7 @@ export async function runDemo(argv: string[], io: CommandIo, hooks: DemoHooks = 
     (error: unknown) => io.err(`fringe demo: the simulated run failed: ${(error as Error).message}`),
   );
 
-  await new Promise<void>((resolve) => {
-    const finish = (): void => {
-      process.off('SIGINT', finish);
-      process.off('SIGTERM', finish);
-      resolve();
-    };
-    if (hooks.signal) {
-      if (hooks.signal.aborted) finish();
-      else hooks.signal.addEventListener('abort', finish, { once: true });
-    } else {
-      process.once('SIGINT', finish);
-      process.once('SIGTERM', finish);
-    }
-  });
+  await untilStopped(hooks.signal);
   const stillRunning = simulated.run.running;
   stop.abort();
   const summary = await simulated.done.catch(() => undefined);

@@ -13,6 +13,7 @@ import { createFloorState, type FloorRun } from '../../plant/floor-state.ts';
 import { plantTopic } from '../../plant/plant-messages.ts';
 import { allowHostOption, CliError, numberOption } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
+import { untilStopped } from '../until-stopped.ts';
 import { PLANT_OPTIONS, plantPlan } from '../plant-options.ts';
 
 export const floorUsage = `Usage: fringe floor --mqtt URL [options]
@@ -138,20 +139,7 @@ export async function runFloor(argv: string[], io: CommandIo, hooks: FloorHooks 
   if (viewerToken) io.err(`fringe floor: warning: listening on ${host}, beyond this machine: viewing needs the viewer token in the address above`);
   hooks.onListening?.({ url });
 
-  await new Promise<void>((resolve) => {
-    const finish = (): void => {
-      process.off('SIGINT', finish);
-      process.off('SIGTERM', finish);
-      resolve();
-    };
-    if (hooks.signal) {
-      if (hooks.signal.aborted) finish();
-      else hooks.signal.addEventListener('abort', finish, { once: true });
-    } else {
-      process.once('SIGINT', finish);
-      process.once('SIGTERM', finish);
-    }
-  });
+  await untilStopped(hooks.signal);
   await client?.endAsync(true);
   await app.close();
   io.out('stopped: the floor page has stopped');
