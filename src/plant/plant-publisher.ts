@@ -286,6 +286,29 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
     };
   }
 
+  /**
+   * Ends with a DISCONNECT when nothing is unacknowledged, so that the broker discards the will:
+   * a forced end only drops the socket, and the broker would then publish the will (offline, no
+   * time, nothing dropped) over the final state it retains. Forced when the broker is away, holds
+   * messages unacknowledged after the drain, or does not close within `timeoutMs`.
+   */
+  async function endConnection(timeoutMs: number): Promise<void> {
+    if (!client.connected || inFlight > 0 || stateInFlight) {
+      await client.endAsync(true).catch(() => undefined);
+      return;
+    }
+    let timer: NodeJS.Timeout | undefined;
+    const ended = client.endAsync(false).catch(() => undefined);
+    const late = new Promise<'late'>((resolve) => {
+      timer = setTimeout(() => resolve('late'), timeoutMs);
+    });
+    if ((await Promise.race([ended, late])) === 'late') {
+      client.stream.destroy();
+      await ended;
+    }
+    clearTimeout(timer);
+  }
+
   function stats(): PlantStats {
     return { acknowledged, dropped, waiting: queue.length - queueHead + inFlight, readings: readingsSent, connected: client.connected };
   }
@@ -317,7 +340,7 @@ export function createPlantPublisher(options: PlantPublisherOptions): PlantPubli
       }
       closing = true;
       const final = stats();
-      await client.endAsync(true).catch(() => undefined);
+      await endConnection(timeoutMs);
       return { ...final, connected: false };
     },
   };

@@ -154,12 +154,20 @@ if (!haveMosquitto && inCi) {
       expect(stats).toMatchObject({ dropped: 0, waiting: 0 });
       expect(stats.acknowledged).toBe(expected.length + 4 + 1);
 
+      // The publisher said goodbye (a DISCONNECT), so the broker discarded the will: a dropped
+      // socket would have had the will (no time, nothing dropped) replace the final state.
+      const goodbye = (): string | undefined => b.log.find((line) => /Client fringe-c1-\S+ (disconnected|closed its connection)/.test(line));
+      await until(() => goodbye() !== undefined, 'the broker to see the publisher go');
+      expect(goodbye()).toMatch(/ disconnected\.$/);
       // A subscriber that comes later is handed the retained state and summary at once.
       const late = await subscriber(b.url);
       clients.push(late.client);
       await until(() => late.messages.length >= 2, 'the retained messages');
       expect(late.messages.every((x) => x.retain)).toBe(true);
       expect(late.messages.map((x) => x.topic).sort()).toEqual(['fringe/c1/state', 'fringe/c1/summary']);
+      const retained = ofTopic(late.messages, 'state')[0]?.payload as unknown as PlantState;
+      expect(retained).toMatchObject({ online: false, runId: states.at(-1)?.runId });
+      expect(retained.at).not.toBeNull();
       expect(cutsOf(m.events)).toEqual(cutsWithoutBroker());
     });
 
