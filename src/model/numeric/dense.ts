@@ -60,3 +60,51 @@ function factor(A: Float64Array, n: number, lambda: number): Float64Array {
   }
   return L;
 }
+
+/**
+ * Destination-first Cholesky for the per-reading filters (nothing allocated): L ← the lower
+ * factor of the symmetric positive-definite n×n A (row-major, lower triangle read). False when a
+ * pivot is not positive (A not definite), L then undefined.
+ */
+export function choleskyInto(L: Float64Array, A: Float64Array, n: number): boolean {
+  for (let i = 0; i < n; i++) {
+    for (let j = 0; j <= i; j++) {
+      let sum = A[i * n + j] as number;
+      for (let k = 0; k < j; k++) sum -= (L[i * n + k] as number) * (L[j * n + k] as number);
+      if (i === j) {
+        if (!(sum > 0)) return false;
+        L[i * n + i] = Math.sqrt(sum);
+      } else {
+        L[i * n + j] = sum / (L[j * n + j] as number);
+      }
+    }
+    for (let j = i + 1; j < n; j++) L[i * n + j] = 0;
+  }
+  return true;
+}
+
+/** x ← A⁻¹ b with L from {@link choleskyInto}; x may be b. */
+export function choleskySolveInto(x: Float64Array, L: Float64Array, b: Float64Array, n: number): Float64Array {
+  for (let i = 0; i < n; i++) {
+    let sum = b[i] as number;
+    for (let k = 0; k < i; k++) sum -= (L[i * n + k] as number) * (x[k] as number);
+    x[i] = sum / (L[i * n + i] as number);
+  }
+  for (let i = n - 1; i >= 0; i--) {
+    let sum = x[i] as number;
+    for (let k = i + 1; k < n; k++) sum -= (L[k * n + i] as number) * (x[k] as number);
+    x[i] = sum / (L[i * n + i] as number);
+  }
+  return x;
+}
+
+/** inv ← A⁻¹ (full, symmetric) with L from {@link choleskyInto}; `column` is n doubles of scratch. */
+export function choleskyInverseInto(inv: Float64Array, L: Float64Array, n: number, column: Float64Array): Float64Array {
+  for (let j = 0; j < n; j++) {
+    column.fill(0, 0, n);
+    column[j] = 1;
+    choleskySolveInto(column, L, column, n);
+    for (let i = 0; i < n; i++) inv[i * n + j] = column[i] as number;
+  }
+  return inv;
+}
