@@ -33,6 +33,8 @@ export interface BroadbandChipSpec {
   readonly growing: Dispersion;
   readonly angleDeg: number;
   readonly signal: 'transmission' | 'reflection';
+  /** The light's polarisation off normal incidence: `mean` (unpolarised, the default), or `s` or `p` behind a polariser. */
+  readonly polarisation?: 's' | 'p' | 'mean';
   /**
    * Wavelengths where every medium's data are valid, nm (default: the whole grid). Grid points
    * outside it have no model: the spectrum there is NaN and they must stay out of a fit's window.
@@ -81,8 +83,9 @@ export function buildBroadbandChip(spec: BroadbandChipSpec, wavelengthsNm: Array
   );
   const nW = modelled.length;
   const top = layers.length - 1;
-  // At normal incidence s and p coincide; otherwise the monitor's light is unpolarised.
-  const pols: readonly ('s' | 'p')[] = spec.angleDeg === 0 ? ['s'] : ['s', 'p'];
+  // At normal incidence s and p coincide.
+  const polarisation = spec.angleDeg === 0 ? 's' : (spec.polarisation ?? 'mean');
+  const pols: readonly ('s' | 'p')[] = polarisation === 'mean' ? ['s', 'p'] : [polarisation];
   const nP = pols.length;
   const below = new Float64Array(nW * nP * 8);
   const view = new Float64Array(8);
@@ -155,7 +158,7 @@ export function buildBroadbandChip(spec: BroadbandChipSpec, wavelengthsNm: Array
     for (let p = 0; p < nP; p++) {
       let etaRe = qRe;
       let etaIm = qIm;
-      if (p === 1) {
+      if (pols[p] === 'p') {
         const q2 = qRe * qRe + qIm * qIm;
         etaRe = (n2Re * qRe + n2Im * qIm) / q2;
         etaIm = (n2Im * qRe - n2Re * qIm) / q2;
