@@ -6,6 +6,7 @@
 import { writeFileSync } from 'node:fs';
 import { fileURLToPath } from 'node:url';
 import type { Benchmark, BenchResult } from './harness.ts';
+import { broadbandBenchmarks } from './broadband.bench.ts';
 import { calibrateBenchmarks } from './calibrate.bench.ts';
 import { opticsBenchmarks } from './optics.bench.ts';
 import { planBenchmarks } from './plan.bench.ts';
@@ -14,7 +15,7 @@ import { plantBenchmarks } from './plant.bench.ts';
 import { serverBenchmarks } from './server.bench.ts';
 import { simBenchmarks } from './sim.bench.ts';
 
-const all: Benchmark[] = [...opticsBenchmarks, ...planBenchmarks, ...simBenchmarks, ...pipelineBenchmarks, ...serverBenchmarks, ...calibrateBenchmarks, ...plantBenchmarks];
+const all: Benchmark[] = [...opticsBenchmarks, ...planBenchmarks, ...simBenchmarks, ...pipelineBenchmarks, ...broadbandBenchmarks, ...serverBenchmarks, ...calibrateBenchmarks, ...plantBenchmarks];
 
 const groups = process.argv.slice(2);
 const selected = groups.length === 0 ? all : all.filter((b) => groups.some((g) => b.name === g || b.name.startsWith(`${g}.`)));
