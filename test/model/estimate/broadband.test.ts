@@ -327,4 +327,161 @@ describe('the broadband fit', () => {
     console.log(`thin layer: ${runs} runs, rms n·d error ${(100 * rms(errors)).toFixed(3)} %, plan's bound ${((100 * thinPlan.boundNm) / target).toFixed(3)} %, level rule at the best wavelength ${((100 * bestLevelNm) / target).toFixed(2)} %`);
     expect(rms(errors)).toBeLessThan(0.003);
   }, 120_000);
+
+});
+
+describe('the merit: how far a spectrum departs from the model', () => {
+  const chip = buildBroadbandChip(FEW_LAYER, GRID);
+  const rate = 0.5;
+  const options: BroadbandFitOptions = { chip, noise: NOISE, targetNm: 60, rateNmPerS: rate, ...PRIORS };
+
+  /** Feeds `count` spectra of `truthChip` (with noise `noise`) to a fit of `options`, returns every merit. */
+  function merits(truthChip: BroadbandChip, noise: number, count: number, seed: number): { reduced: number[]; departs: number; alerts: number[]; sigma: number } {
+    const fit = createBroadbandFit(options);
+    const random = createRandomStream(seed, 'broadband-merit');
+    const clean = new Float64Array(GRID.length);
+    const y = new Float64Array(GRID.length);
+    const reduced: number[] = [];
+    const alerts: number[] = [];
+    let departs = 0;
+    for (let j = 1; j <= count; j++) {
+      truthChip.spectrum(clean, (rate * j) / RATE_HZ, 1);
+      for (let w = 0; w < GRID.length; w++) y[w] = (clean[w] as number) + noise * random.gaussian();
+      const m = fit.read(y, j / RATE_HZ);
+      if (!m) throw new Error('a spectrum was refused');
+      reduced.push(m.reducedChiSquare);
+      if (m.departs) departs++;
+      if (m.alertDue) alerts.push(j);
+    }
+    return { reduced, departs, alerts, sigma: fit.estimate(count / RATE_HZ).sigmaNm };
+  }
+
+  it('the threshold is the Wilson–Hilferty quantile: 247 degrees of freedom at 5σ ≈ 1.517', () => {
+    // derived: ((1 − 2/(9·247)) + 5·√(2/(9·247)))³ = 1.5172
+    expect(departureThreshold(247, 5)).toBeCloseTo(1.5172, 4);
+    // At z = 0 it is the median of χ²/ν, just under 1 (Wilson and Hilferty 1931).
+    expect(departureThreshold(247, 0)).toBeGreaterThan(0.99);
+    expect(departureThreshold(247, 0)).toBeLessThan(1);
+  });
+
+  it('honest spectra: the reduced χ² averages 1 and 500 spectra raise no departure', () => {
+    const { reduced, departs, alerts } = merits(chip, NOISE, 500, 1);
+    const mean = reduced.reduce((a, b) => a + b, 0) / reduced.length;
+    // The mean of 500 values of χ²/ν, sd √(2/247)/√500 ≈ 0.004 (derived): within ±0.03.
+    expect(Math.abs(mean - 1)).toBeLessThan(0.03);
+    expect(departs).toBe(0);
+    expect(alerts).toEqual([]);
+  });
+
+  it('a chip below 5 nm off departs on most spectra, and its alert falls due within the first ten', () => {
+    // (Smaller errors of the layer just below are largely taken up by κ, gain and u — the plan's
+    // belowNm counts what that costs the cut; the merit sees what they cannot take up.)
+    const wrong = buildBroadbandChip({ ...FEW_LAYER, below: FEW_LAYER.below.map((l, i) => (i === 2 ? { ...l, thicknessNm: l.thicknessNm + 5 } : l)) }, GRID);
+    const { departs, alerts } = merits(wrong, NOISE, 150, 2);
+    expect(departs).toBeGreaterThan(0.7 * 150);
+    expect(alerts.length).toBeGreaterThanOrEqual(1);
+    expect(alerts[0]).toBeLessThanOrEqual(10);
+  });
+
+  it('noise twice what was stated: the spectra depart, and the estimate’s σ widens by the measured noise (×1.4–2; the priors’ part stays)', () => {
+    const honest = merits(chip, NOISE, 200, 3);
+    const noisy = merits(chip, 2 * NOISE, 200, 3);
+    expect(noisy.departs).toBeGreaterThan(190);
+    expect(noisy.sigma / honest.sigma).toBeGreaterThan(1.4);
+    expect(noisy.sigma / honest.sigma).toBeLessThan(2);
+  });
+});
+
+describe('bad input to the broadband fit', () => {
+  const chip = buildBroadbandChip(FEW_LAYER, GRID);
+  const options: BroadbandFitOptions = { chip, noise: NOISE, targetNm: 60, rateNmPerS: 0.5, ...PRIORS };
+
+  it('a spectrum of the wrong length, a time that is not a number, or fewer than 8 usable values is not used and changes nothing', () => {
+    const fit = createBroadbandFit(options);
+    const clean = new Float64Array(GRID.length);
+    chip.spectrum(clean, 1, 1);
+    expect(fit.read(clean, 2)).not.toBeNull();
+    const before = fit.estimate(2);
+    expect(fit.read(clean.subarray(0, 100), 2.2)).toBeNull();
+    expect(fit.read(clean, Number.NaN)).toBeNull();
+    const holes = Float64Array.from(clean, (v, w) => (w < 7 ? v : Number.NaN));
+    expect(fit.read(holes, 2.2)).toBeNull();
+    expect(fit.estimate(2)).toEqual(before);
+  });
+
+  it('values that are not finite are left out of the spectrum, the rest used', () => {
+    const fit = createBroadbandFit(options);
+    const clean = new Float64Array(GRID.length);
+    chip.spectrum(clean, 1, 1);
+    clean[10] = Number.NaN;
+    clean[11] = Number.POSITIVE_INFINITY;
+    const m = fit.read(clean, 2);
+    expect(m?.used).toBe(GRID.length - 2);
+    expect(Number.isFinite(fit.estimate(2).thicknessNm)).toBe(true);
+  });
+
+  it('a time that runs backwards is taken at the last time (the clock may wobble), never a step back', () => {
+    const fit = createBroadbandFit(options);
+    const clean = new Float64Array(GRID.length);
+    chip.spectrum(clean, 1, 1);
+    fit.read(clean, 2);
+    expect(fit.read(clean, 1.9)).not.toBeNull();
+    expect(Number.isFinite(fit.estimate(2).sigmaNm)).toBe(true);
+  });
+
+  it('bad options are refused in one sentence naming the option', () => {
+    expect(() => createBroadbandFit({ ...options, targetNm: 0 })).toThrow(/targetNm must be positive/);
+    expect(() => createBroadbandFit({ ...options, rateNmPerS: Number.NaN })).toThrow(/rateNmPerS must be positive/);
+    expect(() => createBroadbandFit({ ...options, noise: 0 })).toThrow(/noise must be positive/);
+    expect(() => createBroadbandFit({ ...options, gainSigma: -1 })).toThrow(/gainSigma must be positive/);
+    expect(() => createBroadbandFit({ ...options, indexSigma: -0.1 })).toThrow(/indexSigma must be ≥ 0/);
+    expect(() => createBroadbandFit({ ...options, use: Int32Array.of(0, 1, 2) })).toThrow(/at least 8 wavelengths/);
+    expect(() => createBroadbandFit({ ...options, use: Int32Array.from({ length: 10 }, (_, i) => 245 + i) })).toThrow(/outside the modelled grid/);
+  });
+});
+
+describe('the broadband plan', () => {
+  const input: BroadbandPlanInput = { chip: FEW_LAYER, wavelengthsNm: GRID, targetNm: 40, rateNmPerS: 0.5, sampleRateHz: RATE_HZ, shutterDelayS: DELAY_S, noise: NOISE, ...PRIORS };
+
+  it('predicts the spectrum at the target and keeps its window inside the valid range, leaving out only insensitive wavelengths', () => {
+    const plan = planBroadbandLayer({ ...input, chip: { ...FEW_LAYER, validRangeNm: [420, 880] } });
+    const chip = buildBroadbandChip(FEW_LAYER, GRID);
+    const want = new Float64Array(GRID.length);
+    chip.spectrum(want, 40, 1);
+    for (let w = 10; w <= 240; w++) expect(plan.predicted[w]).toBe(want[w]);
+    expect(Number.isNaN(plan.predicted[0])).toBe(true);
+    expect(plan.window.fromNm).toBeGreaterThanOrEqual(420);
+    expect(plan.window.toNm).toBeLessThanOrEqual(880);
+    expect(plan.window.count + plan.window.excludedInsensitive).toBe(231);
+    // Every wavelength left out moves less, over the layer's last half, than a tenth of the best one.
+    const S = new Float64Array(GRID.length);
+    const dU = new Float64Array(GRID.length);
+    const dK = new Float64Array(GRID.length);
+    const slope = new Float64Array(GRID.length);
+    for (const u of [20, 30, 40]) {
+      chip.spectrumAndSlopes(S, dU, dK, u, 1);
+      for (let w = 0; w < GRID.length; w++) slope[w] = Math.max(slope[w] as number, Math.abs(dU[w] as number));
+    }
+    const largest = Math.max(...slope.subarray(10, 241));
+    const kept = new Set(plan.window.use);
+    for (let w = 10; w <= 240; w++) expect(kept.has(w)).toBe((slope[w] as number) >= 0.1 * largest);
+  });
+
+  it('a layer below off by 0.5 nm biases the fit as the plan’s sensitivity says (within 15 %)', () => {
+    const sigmaBelow = 0.5;
+    const plan = planBroadbandLayer({ ...input, belowSigmaNm: [0, 0, sigmaBelow] });
+    // The filter fed spectra of a chip whose top finished layer is 0.5 nm thicker than it believes, no noise.
+    const believed = buildBroadbandChip(FEW_LAYER, GRID);
+    const truth = buildBroadbandChip({ ...FEW_LAYER, below: FEW_LAYER.below.map((l, i) => (i === 2 ? { ...l, thicknessNm: l.thicknessNm + sigmaBelow } : l)) }, GRID);
+    const r = runLayer(truth, { chip: believed, use: plan.window.use, noise: NOISE, targetNm: 40, rateNmPerS: 0.5, ...PRIORS }, { rate: 0.5, kappa: 1, gain: 1, offset: 0 }, null, { gain: 0, offset: 0, rate: 0 });
+    const bias = Math.abs(r.estimatedNm - r.trueNm);
+    expect(plan.belowNm).toBeGreaterThan(0);
+    expect(bias / plan.belowNm).toBeGreaterThan(0.85);
+    expect(bias / plan.belowNm).toBeLessThan(1.15);
+  });
+
+  it('bad input is refused in one sentence', () => {
+    expect(() => planBroadbandLayer({ ...input, noise: 0 })).toThrow(/must be positive/);
+    expect(() => planBroadbandLayer({ ...input, chip: { ...FEW_LAYER, validRangeNm: [1000, 1100] } })).toThrow(/no wavelength of the grid lies in the valid range/);
+  });
 });
