@@ -108,8 +108,9 @@ export interface BroadbandFit {
   cutTimeS(targetNm: number, shutterDelayS: number): number;
   /** The model spectrum at the present estimate (or `uNm`), for display: written into `out` at the used indices. */
   predicted(out: Float64Array, uNm?: number): Float64Array;
-  /** The used grid indices. */
+  /** The used grid indices, and the grid, nm. */
   readonly use: Int32Array;
+  readonly wavelengthsNm: Float64Array;
   /** The last spectrum's merit (null before one). */
   readonly merit: SpectrumMerit | null;
 }
@@ -280,6 +281,7 @@ export function createBroadbandFit(options: BroadbandFitOptions): BroadbandFit {
       return out;
     },
     use,
+    wavelengthsNm: chip.wavelengthsNm,
     get merit() {
       return merit;
     },

@@ -5,3 +5,7 @@ export { buildIndexTables, buildSignalTable, layerSignalTable, signalAndSlope, S
 export type { IndexTables, SignalSource, SignalTable } from './signal-table.ts';
 export { refitChip } from './chip-refit.ts';
 export type { ChipRefitOptions, ChipRefitResult, MaterialFactor, RefitLayer, RefitLayerResult } from './chip-refit.ts';
+export { buildBroadbandChip } from './broadband-chip.ts';
+export type { BroadbandChip, BroadbandChipSpec } from './broadband-chip.ts';
+export { addSpectrumInformation, carryForward, createBroadbandFit, DEFAULT_WANDER, departureThreshold, STATE } from './broadband-fit.ts';
+export type { BroadbandEstimate, BroadbandFit, BroadbandFitOptions, SpectrumMerit, Wander } from './broadband-fit.ts';

@@ -26,6 +26,9 @@
 import { buildBroadbandChip, type BroadbandChip, type BroadbandChipSpec } from '../estimate/broadband-chip.ts';
 import { addSpectrumInformation, carryForward, DEFAULT_WANDER, STATE, type Wander } from '../estimate/broadband-fit.ts';
 import { choleskyInto, choleskyInverseInto } from '../numeric/dense.ts';
+import { scaledDispersion } from '../optics/dispersion.ts';
+import type { ChipViewOptions } from './plan.ts';
+import type { LayerRecipe, ResolvedRecipe } from './recipe.ts';
 import { NEAREST } from './stack-precision.ts';
 
 const INSENSITIVE = 0.1;
@@ -221,5 +224,37 @@ export function chooseWindow(chip: BroadbandChip, targetNm: number): BroadbandLa
     toNm: chip.wavelengthsNm[use[use.length - 1] as number] as number,
     count: use.length,
     excludedInsensitive: chip.modelled.length - use.length,
+  };
+}
+
+/**
+ * The broadband view of layer `index` (0-based) of a recipe on its chip, as `chipMonitorFor` gives
+ * the single-wavelength one: the finished layers of its chip at part thicknesses `partNm` (the
+ * design's where absent) times their chip ratio, with their index factors, the layer's material
+ * growing; valid where the substrate's and every layer's data are.
+ */
+export function broadbandChipFor(recipe: ResolvedRecipe, index: number, partNm: readonly number[], view: ChipViewOptions = {}): BroadbandChipSpec {
+  const layer = recipe.layers[index] as LayerRecipe;
+  const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
+  const factors = view.indexFactors ?? [];
+  let lo = Math.max(chip.validRangeNm[0], layer.validRangeNm[0]);
+  let hi = Math.min(chip.validRangeNm[1], layer.validRangeNm[1]);
+  const below = [];
+  for (let j = chip.fromLayer - 1; j < index; j++) {
+    const l = recipe.layers[j] as LayerRecipe;
+    below.push({ dispersion: scaledDispersion(l.dispersion, factors[j] ?? 1, 0), thicknessNm: (partNm[j] ?? l.targetNm) * l.chipRatio });
+    lo = Math.max(lo, l.validRangeNm[0]);
+    hi = Math.min(hi, l.validRangeNm[1]);
+  }
+  return {
+    incident: recipe.incident,
+    substrate: chip.substrate,
+    back: chip.back,
+    substrateThicknessNm: chip.thicknessMm * 1e6,
+    below,
+    growing: scaledDispersion(layer.dispersion, view.growingIndexFactor ?? 1, 0),
+    angleDeg: layer.angleDeg,
+    signal: layer.signal,
+    validRangeNm: [lo, hi],
   };
 }

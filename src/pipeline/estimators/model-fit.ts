@@ -61,7 +61,7 @@ export interface FitClockSource {
 }
 
 /** The fit's clock at run time t: the crystal's part thickness over the planned rate, or elapsed time. */
-export function fitClockAt(layer: RecipeLayer, run: FitRun | null, source: FitClockSource, timeS: number): number {
+export function fitClockAt(layer: RecipeLayer, run: { readonly clock: FitRun['clock'] } | null, source: FitClockSource, timeS: number): number {
   if (run?.clock !== 'crystal') return timeS - source.openedAtS;
   const c = source.crystal;
   // Before the layer's first crystal reading: elapsed time, the same clock at the planned rate.
