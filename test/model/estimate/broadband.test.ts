@@ -409,6 +409,20 @@ describe('bad input to the broadband fit', () => {
     expect(fit.estimate(2)).toEqual(before);
   });
 
+  it('the estimate is carried from the last spectrum by the rate, its variance by P_uu + 2τP_ur + τ²P_rr (it grows)', () => {
+    const fit = createBroadbandFit(options);
+    const clean = new Float64Array(GRID.length);
+    for (let j = 1; j <= 20; j++) {
+      chip.spectrum(clean, 0.1 * j, 1);
+      fit.read(clean, j / RATE_HZ);
+    }
+    const now = fit.estimate(4);
+    const later = fit.estimate(6);
+    expect(later.thicknessNm - now.thicknessNm).toBeCloseTo(2 * now.rateNmPerS, 12);
+    expect(now.thicknessNm).toBeCloseTo(2, 2); // 0.5 nm/s × 4 s
+    expect(later.sigmaNm).toBeGreaterThan(now.sigmaNm);
+  });
+
   it('values that are not finite are left out of the spectrum, the rest used', () => {
     const fit = createBroadbandFit(options);
     const clean = new Float64Array(GRID.length);

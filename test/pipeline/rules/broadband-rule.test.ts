@@ -93,8 +93,10 @@ describe('the broadband rule', () => {
     // The close, one delay after the cut, lands within half a spectrum's growth of the target (u).
     const closeU = chipRate * 1.01 * (cutAtS + layer.shutterDelayS);
     expect(Math.abs(closeU - layerPlan.chipTargetNm)).toBeLessThan(0.5 * chipRate * 1.01 / RATE_HZ + 4 * run.plan.boundNm);
-    // It records the physical thickness: u/κ.
-    expect(Math.abs(estimatedNm * layer.chipRatio - chipRate * (cutAtS + layer.shutterDelayS))).toBeLessThan(0.5);
+    // It records the physical thickness at the close, u/κ: within 4σ of the truth, σ from u's and κ's.
+    const atClose = run.fit.estimate(cutAtS + layer.shutterDelayS);
+    const trueNm = chipRate * (cutAtS + layer.shutterDelayS);
+    expect(Math.abs(estimatedNm * layer.chipRatio - trueNm)).toBeLessThan(4 * (atClose.sigmaNm + trueNm * atClose.indexSigma));
     // The estimate's σ is honest: rms z over the layer within 0.6–1.6 (successive estimates are correlated).
     const rmsZ = Math.sqrt(zs.reduce((s, z) => s + z * z, 0) / zs.length);
     console.log(`broadband rule on edge layer 6: window ${run.plan.window.count} wavelengths, bound ${run.plan.boundNm.toFixed(4)} nm, close off the target by ${(closeU - layerPlan.chipTargetNm).toFixed(4)} nm, rms z ${rmsZ.toFixed(2)}`);
