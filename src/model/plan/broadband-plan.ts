@@ -133,12 +133,16 @@ export function planBroadbandLayer(input: BroadbandPlanInput): BroadbandLayerPla
   const L = new Float64Array(P * P);
   const column = new Float64Array(P);
   const unusedB = new Float64Array(P);
+  // One spectrum's information, the same until the Jacobians are refreshed.
+  const spectrumInfo = new Float64Array(P * P);
   const hb = new Float64Array(P);
   let refreshedAt = Number.NEGATIVE_INFINITY;
   for (let j = 1; j <= spectra; j++) {
     const u = rateNmPerS * j * dt;
     if (Math.abs(u - refreshedAt) >= REFRESH_NM) {
       chip.spectrumAndSlopes(S, dU, dK, u, 1, use);
+      spectrumInfo.fill(0);
+      addSpectrumInformation(spectrumInfo, unusedB, S, dU, dK, null, use, invVar, 1, 1, 0);
       for (const p of perturbed) {
         p.chip.spectrum(scratchS, u, 1, use);
         for (const w of use) p.dS[w] = (scratchS[w] as number) - (S[w] as number);
@@ -150,7 +154,7 @@ export function planBroadbandLayer(input: BroadbandPlanInput): BroadbandLayerPla
     // Information update: P ← (P⁻¹ + Σ w h hᵀ)⁻¹.
     if (!choleskyInto(L, cov, P)) break;
     choleskyInverseInto(A, L, P, column);
-    addSpectrumInformation(A, unusedB, S, dU, dK, null, use, invVar, 1, 1, 0);
+    for (let k = 0; k < P * P; k++) A[k] = (A[k] as number) + (spectrumInfo[k] as number);
     if (!choleskyInto(L, A, P)) break;
     choleskyInverseInto(cov, L, P, column);
     for (const p of perturbed) {
