@@ -81,6 +81,8 @@ export interface CalibrationResult {
   readonly iterations: number;
   /** The covariance scale applied (≥ 1). */
   readonly birgeRatio: number;
+  /** Per pooled run, the optical monitor's fitted drifts: gain (fraction of the gain) and offset (fraction of full scale), per hour. */
+  readonly monitorDrifts: readonly { readonly gainPerHour: number; readonly offsetPerHour: number }[];
 }
 
 export interface SpectrumData {
@@ -586,5 +588,6 @@ export function calibrate(runs: readonly RunData[], spectra: readonly SpectrumDa
   }
   if (spectra.length === 0) warnings.push('no measured spectrum was given: the chip ratios and tooling factors are known only as their products (measure the parts with --measured FILE.csv)');
 
-  return { materials, layers, residuals, correlation: { names, matrix }, warnings, iterations, birgeRatio };
+  const monitorDrifts = runLayout.map(({ nuisanceAt: n }) => ({ gainPerHour: (theta[n + 1] as number) / (theta[n] as number), offsetPerHour: theta[n + 3] as number }));
+  return { materials, layers, residuals, correlation: { names, matrix }, warnings, iterations, birgeRatio, monitorDrifts };
 }
