@@ -28,10 +28,11 @@ export interface SourceProcess {
 
 /**
  * The profile as a plain object (what `--profile-out` writes and calibration.json keeps), checked
- * against the schema. Errors are against the first run's recipe: `rebaseProfile` moves them onto
+ * against the schema, or a sentence saying why the chamber found lies outside what the virtual
+ * chamber models. Errors are against the first run's recipe: `rebaseProfile` moves them onto
  * another recipe.
  */
-export function chamberProfile(result: CalibrationResult, runs: readonly RunData[]): Record<string, unknown> {
+export function chamberProfile(result: CalibrationResult, runs: readonly RunData[]): { profile: Record<string, unknown> } | { problem: string } {
   const sources: Record<string, unknown> = { default: { driftPercentPerHour: 0 } };
   const materials: Record<string, unknown> = { default: { indexScatterPercent: 0 } };
   for (const [name, m] of Object.entries(result.materials)) {
@@ -57,9 +58,13 @@ export function chamberProfile(result: CalibrationResult, runs: readonly RunData
     },
     crystal: { noiseHz: round(mean(runs.map((r) => r.crystalNoiseHz))) },
   };
-  // A file fringe writes must load.
-  SimProfileSchema.parse(profile);
-  return profile;
+  // A file fringe writes must load; a chamber beyond the simulator's ranges is said so, not clamped.
+  const checked = SimProfileSchema.safeParse(profile);
+  if (!checked.success) {
+    const issue = checked.error.issues[0];
+    return { problem: `the calibrated chamber lies outside what the virtual chamber models (${issue ? `${issue.path.join('.')}: ${issue.message}` : 'invalid'}), so no simulator profile was made` };
+  }
+  return { profile };
 }
 
 /**

@@ -3,7 +3,7 @@
 // errors, which are relative to the recipe, are re-based on the absolute factors calibrated.
 import { describe, expect, it } from 'vitest';
 import { createVirtualChamber, SimProfileSchema } from '../../sim/index.ts';
-import { rebaseProfile } from '../../src/calibrate/index.ts';
+import { chamberProfile, rebaseProfile, type CalibrationResult } from '../../src/calibrate/index.ts';
 import type { ResolvedRecipe } from '../../src/model/plan/recipe.ts';
 import { loadShippedRecipe } from './support.ts';
 
@@ -43,5 +43,27 @@ describe('rebaseProfile', () => {
     const same = rebaseProfile(profile, factors, recipe);
     expect(same.sources.TiO2?.chipRatioErrorPercent).toBeCloseTo(1, 6);
     expect(same.sources.SiO2?.toolingErrorPercent).toBeCloseTo(2, 6);
+  });
+});
+
+describe('chamberProfile', () => {
+  it('says so in a sentence, never throws, when the chamber found lies outside what the simulator models', () => {
+    const factor = (value: number) => ({ value, sigma: 0.01 });
+    // A chip ratio 80 % over the recipe's: the profile's knob stops at ±50 %.
+    const result: CalibrationResult = {
+      materials: { TiO2: { indexFactor: factor(1), chipRatio: factor(1.8), toolingFactor: factor(1), priorShare: { indexFactor: 0, chipRatio: 0, toolingFactor: 0 }, recipeChipRatio: 1, recipeToolingFactor: 1 } },
+      layers: [],
+      residuals: [],
+      correlation: { names: [], matrix: [] },
+      warnings: [],
+      iterations: 1,
+      birgeRatio: 1,
+      monitorDrifts: [{ gainPerHour: 0, offsetPerHour: 0 }],
+    };
+    const run = { label: 'r', recipe: loadShippedRecipe('ar4-visible'), layers: [], levels: [], opticalNoise: 0.001, crystalNoiseHz: 0.05, estimatedNm: [], shutterDelaysS: {}, warnings: [] };
+    const outside = chamberProfile(result, [run]);
+    expect(outside).toEqual({ problem: expect.stringMatching(/^the calibrated chamber lies outside what the virtual chamber models \(sources\.TiO2\.chipRatioErrorPercent: .*\), so no simulator profile was made$/) as unknown });
+    const inside = chamberProfile({ ...result, materials: { TiO2: { ...(result.materials.TiO2 as CalibrationResult['materials'][string]), chipRatio: factor(1.02) } } }, [run]);
+    expect('profile' in inside && SimProfileSchema.parse(inside.profile).sources.TiO2?.chipRatioErrorPercent).toBeCloseTo(2, 6);
   });
 });

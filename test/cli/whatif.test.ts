@@ -90,7 +90,13 @@ describe('fringe whatif', () => {
     const calibration = JSON.parse(readFileSync(join(run, 'calibration.json'), 'utf8')) as Record<string, unknown>;
     delete calibration.profile;
     writeFileSync(join(old, 'calibration.json'), JSON.stringify(calibration));
+    const outside = join(dir, 'outside-calibration');
+    mkdirSync(outside);
+    copyFileSync(join(run, 'journal.ndjson'), join(outside, 'journal.ndjson'));
+    copyFileSync(join(run, 'recipe.json'), join(outside, 'recipe.json'));
+    writeFileSync(join(outside, 'calibration.json'), JSON.stringify({ ...calibration, profileProblem: 'the calibrated chamber lies outside what the virtual chamber models (x), so no simulator profile was made' }));
     const cases: [string[], RegExp][] = [
+      [[outside, '--recipe', RECIPE], /calibration\.json: the calibrated chamber lies outside what the virtual chamber models/],
       [[join(dir, 'no-such-run'), '--recipe', RECIPE], /no run at .*no-such-run: give a run folder/],
       [[uncalibrated, '--recipe', RECIPE], /has no calibration beside it \(calibration\.json\): run `fringe calibrate .*` first/],
       [[old, '--recipe', RECIPE], /written before calibrations kept the chamber's profile: run `fringe calibrate/],

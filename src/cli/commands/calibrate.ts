@@ -109,18 +109,22 @@ export function runCalibrate(argv: string[], io: CommandIo): number {
   });
 
   const result = calibrate(runs, spectra);
-  const profile = chamberProfile(result, runs);
+  const chamber = chamberProfile(result, runs);
   const record = {
     ...jsonOf(result),
     runs: runs.map((r, i) => ({ id: r.label, dir: dirs[i] })),
     measured: spectra.map((s) => ({ file: s.spectrum.source, run: s.run, quantity: s.spectrum.quantity, read: s.spectrum.scale, because: s.spectrum.scaleReason })),
     // The virtual chamber `fringe whatif` runs on (errors against the first run's recipe).
-    profile,
+    ...('profile' in chamber ? { profile: chamber.profile } : { profileProblem: chamber.problem }),
   };
   for (const dir of new Set(dirs)) writeAtomically(join(dir, 'calibration.json'), `${JSON.stringify(record, null, 2)}\n`);
   if (values.out !== undefined) writeOutputFile(values.out, correctedRecipe(values.recipe as string, values.out, result, runs, spectra));
   if (values.plot !== undefined) writeOutputFile(values.plot, plotOf(result, runs, spectra));
-  if (values['profile-out'] !== undefined) writeOutputFile(values['profile-out'], profileFile(profile, runs));
+  if (values['profile-out'] !== undefined) {
+    // The calibration is kept (above) even when its chamber cannot be written as a profile.
+    if ('problem' in chamber) throw new CliError(`--profile-out: ${chamber.problem}; the calibration itself is kept in calibration.json`, 1);
+    writeOutputFile(values['profile-out'], profileFile(chamber.profile, runs));
+  }
   io.out(values.json ? JSON.stringify(record) : formatTable(result, runs, spectra));
   return 0;
 }

@@ -48,6 +48,7 @@ const CalibrationFileSchema = z.object({
   layers: z.array(z.object({ number: z.number(), partNm: z.number(), sigmaNm: z.number(), run: z.number().optional() })),
   runs: z.array(z.object({ id: z.string(), dir: z.string() })).optional(),
   profile: z.unknown().optional(),
+  profileProblem: z.string().optional(),
 });
 
 export async function runWhatIfCommand(argv: string[], io: CommandIo): Promise<number> {
@@ -133,6 +134,7 @@ function readCalibration(dir: string, target: string): z.infer<typeof Calibratio
   }
   const parsed = CalibrationFileSchema.safeParse(value);
   if (!parsed.success) throw new CliError(`${file} is not a calibration as fringe writes it: ${again}`, 1);
+  if (parsed.data.profileProblem !== undefined) throw new CliError(`${file}: ${parsed.data.profileProblem}`, 1);
   if (parsed.data.profile === undefined) throw new CliError(`${file} was written before calibrations kept the chamber's profile: ${again}`, 1);
   const profile = SimProfileSchema.safeParse(parsed.data.profile);
   if (!profile.success) throw new CliError(`${file} holds a damaged chamber profile: ${again}`, 1);
