@@ -47,6 +47,12 @@ export interface MaterialCalibration {
   readonly indexFactor: ValueSigma;
   readonly chipRatio: ValueSigma;
   readonly toolingFactor: ValueSigma;
+  /**
+   * The share of each factor's variance that its priors (and those of the parameters it is
+   * tied to) give, 0..1: above PRIOR_DOMINATED the sigma is the prior's width seen through the
+   * correlations, not what the data say, and the factor is flagged as hardly told.
+   */
+  readonly priorShare: { readonly indexFactor: number; readonly chipRatio: number; readonly toolingFactor: number };
   /** What the first pooled run's recipe said. */
   readonly recipeChipRatio: number;
   readonly recipeToolingFactor: number;
@@ -81,6 +87,8 @@ export interface CalibrationResult {
   readonly iterations: number;
   /** The covariance scale applied (≥ 1). */
   readonly birgeRatio: number;
+  /** Per pooled run, the optical monitor's fitted drifts: gain (fraction of the gain) and offset (fraction of full scale), per hour. */
+  readonly monitorDrifts: readonly { readonly gainPerHour: number; readonly offsetPerHour: number }[];
 }
 
 export interface SpectrumData {
@@ -121,6 +129,9 @@ export const CRYSTAL_LEVEL_FLOOR_HZ = 0.2;
  * factors on the mirror gave errors 1.5× their sigmas; with it, honest (DEVELOPERS.md).
  */
 export const OPTICAL_MODEL_FLOOR = 1.5e-4;
+
+/** Share of a factor's variance from the priors above which the data are said to hardly tell it. */
+export const PRIOR_DOMINATED = 0.5;
 
 /** |correlation| above which two parameters are reported as not separated by the data. */
 export const UNSEPARATED_CORRELATION = 0.9;
@@ -512,6 +523,14 @@ export function calibrate(runs: readonly RunData[], spectra: readonly SpectrumDa
   const cov = inverse(A, P);
   const scale = birgeRatio * birgeRatio;
   const sd = (p: number): number => Math.sqrt(Math.max(0, (cov[p * P + p] as number) * scale));
+  // C = (H + Π)⁻¹ splits as C·H·C + C·Π·C: the second term is what the priors Π contribute to
+  // the variance (a factor the data leave loose in some combination, say ρ·τ against the
+  // thicknesses' common scale that only a spectrum pins, inherits the priors' widths there).
+  const priorShare = (j: number): number => {
+    let fromPriors = 0;
+    for (let p = 0; p < P; p++) fromPriors += (cov[j * P + p] as number) ** 2 / (priorSigma[p] as number) ** 2;
+    return Math.min(1, fromPriors / (cov[j * P + j] as number));
+  };
   const residuals: DataResidual[] = datasetNames
     .map((data, i) => {
       const acc = perSet[i] as { n: number; sum: number; sumW: number };
@@ -529,6 +548,7 @@ export function calibrate(runs: readonly RunData[], spectra: readonly SpectrumDa
       // From logs: σ(x) = x·σ(ln x).
       chipRatio: { value: Math.exp(theta[rhoAt(m)] as number) * (rhoRecipe[m] as number), sigma: sd(rhoAt(m)) * Math.exp(theta[rhoAt(m)] as number) * (rhoRecipe[m] as number) },
       toolingFactor: { value: Math.exp(theta[tauAt(m)] as number) * (tauRecipe[m] as number), sigma: sd(tauAt(m)) * Math.exp(theta[tauAt(m)] as number) * (tauRecipe[m] as number) },
+      priorShare: { indexFactor: priorShare(fAt(m)), chipRatio: priorShare(rhoAt(m)), toolingFactor: priorShare(tauAt(m)) },
       recipeChipRatio: rhoRecipe[m] as number,
       recipeToolingFactor: tauRecipe[m] as number,
     };
@@ -582,9 +602,13 @@ export function calibrate(runs: readonly RunData[], spectra: readonly SpectrumDa
   }
   if (otherPairs > 0) warnings.push(`${otherPairs} pair(s) of factors of different materials move together (|correlation| ≥ ${UNSEPARATED_CORRELATION}): see the correlation table; each factor's sigma already counts it`);
   for (const q of params) {
-    if (sd(q.p) > 0.5 * q.prior) warnings.push(`the data hardly tell the ${q.name}: its sigma (${(100 * sd(q.p)).toFixed(2)} %) is near its prior's (${(100 * q.prior).toFixed(0)} %)`);
+    const share = priorShare(q.p);
+    if (sd(q.p) > 0.5 * q.prior || share > PRIOR_DOMINATED) {
+      warnings.push(`the data hardly tell the ${q.name}: its sigma (${(100 * sd(q.p)).toFixed(2)} %) is ${(100 * share).toFixed(0)} % the priors' (its own ±${(100 * q.prior).toFixed(0)} % and those of what it is tied to), in variance`);
+    }
   }
   if (spectra.length === 0) warnings.push('no measured spectrum was given: the chip ratios and tooling factors are known only as their products (measure the parts with --measured FILE.csv)');
 
-  return { materials, layers, residuals, correlation: { names, matrix }, warnings, iterations, birgeRatio };
+  const monitorDrifts = runLayout.map(({ nuisanceAt: n }) => ({ gainPerHour: (theta[n + 1] as number) / (theta[n] as number), offsetPerHour: theta[n + 3] as number }));
+  return { materials, layers, residuals, correlation: { names, matrix }, warnings, iterations, birgeRatio, monitorDrifts };
 }

@@ -31,6 +31,12 @@ export interface LayerReadings {
   readonly counts: Float64Array;
   /** Whether u came from the crystal (else from the run time). */
   readonly crystalClock: boolean;
+  /**
+   * The layer's growth as the crystal saw it, in 1 s bins from the opening to the close: run
+   * time (s) and the fraction of the layer's mass reached (u). Empty without a crystal clock.
+   * With the layer's part thickness it gives the rate on the parts (chamber-profile.ts).
+   */
+  readonly growth: { readonly timesS: Float64Array; readonly fractions: Float64Array };
 }
 
 /** The crystal's mean frequency in a pause: before layer 1 (after = 0) or after layer `after`. */
@@ -51,6 +57,11 @@ export interface RunData {
   readonly crystalNoiseHz: number;
   /** The controller's own estimate of each layer's part thickness (a starting point), NaN where none. */
   readonly estimatedNm: readonly number[];
+  /**
+   * Per source, the shutter's delays as its acknowledgements showed them (acknowledged move time
+   * − command time, s, opens and closes alike); empty for a chamber that acknowledges nothing.
+   */
+  readonly shutterDelaysS: Readonly<Record<string, readonly number[]>>;
   readonly warnings: readonly string[];
 }
 
@@ -75,7 +86,7 @@ export function collectRunData(label: string, recipe: ResolvedRecipe, records: I
   const crystalV: number[] = [];
   const commanded: { open: number[]; close: number[] } = { open: new Array<number>(K).fill(Number.NaN), close: new Array<number>(K).fill(Number.NaN) };
   const acked: { action: 'open' | 'close'; source: string; timeS: number }[] = [];
-  const commandOrder: { layer: number; action: 'open' | 'close'; source: string }[] = [];
+  const commandOrder: { layer: number; action: 'open' | 'close'; source: string; timeS: number }[] = [];
   const estimatedNm = new Array<number>(K).fill(Number.NaN);
   let lastS = 0;
   for (const record of records) {
@@ -100,25 +111,27 @@ export function collectRunData(label: string, recipe: ResolvedRecipe, records: I
         const delay = (recipe.layers[i] as ResolvedRecipe['layers'][number]).shutterDelayS;
         // The first open and the last close of a layer bound its growth.
         if (e.command.action === 'open' ? !Number.isFinite(list[i]) : true) list[i] = e.command.timeS + delay;
-        commandOrder.push({ layer: e.command.layer, action: e.command.action, source: e.command.source });
+        commandOrder.push({ layer: e.command.layer, action: e.command.action, source: e.command.source, timeS: e.command.timeS });
       } else if (e.type === 'layer-finished' && e.layer >= 1 && e.layer <= K && Number.isFinite(e.estimatedNm)) {
         estimatedNm[e.layer - 1] = e.estimatedNm;
       }
     }
   }
   // Acknowledgements come in the order of the commands of their source: pair them up.
-  const pending = new Map<string, { layer: number; action: 'open' | 'close' }[]>();
+  const pending = new Map<string, { layer: number; action: 'open' | 'close'; timeS: number }[]>();
   for (const c of commandOrder) {
     const key = `${c.source}/${c.action}`;
     if (!pending.has(key)) pending.set(key, []);
-    (pending.get(key) as { layer: number; action: 'open' | 'close' }[]).push({ layer: c.layer, action: c.action });
+    (pending.get(key) as { layer: number; action: 'open' | 'close'; timeS: number }[]).push(c);
   }
+  const shutterDelaysS: Record<string, number[]> = {};
   const open = [...commanded.open];
   const close = [...commanded.close];
   const seenOpen = new Set<number>();
   for (const a of acked) {
     const command = pending.get(`${a.source}/${a.action}`)?.shift();
     if (!command) continue;
+    (shutterDelaysS[a.source] ??= []).push(a.timeS - command.timeS);
     const i = command.layer - 1;
     if (a.action === 'open') {
       if (!seenOpen.has(i)) open[i] = a.timeS;
@@ -213,6 +226,21 @@ export function collectRunData(label: string, recipe: ResolvedRecipe, records: I
         counts.push(to - from);
       }
     }
+    const growthTimes: number[] = [];
+    const growthFractions: number[] = [];
+    if (crystalClock) {
+      for (let from = lowerBound(crystalT, v.openS); from < crystalT.length && (crystalT[from] as number) < v.closeS; ) {
+        const binEnd = (crystalT[from] as number) + 1;
+        let t = 0;
+        let n = 0;
+        for (; from < crystalT.length && (crystalT[from] as number) < Math.min(binEnd, v.closeS); from++) {
+          t += crystalT[from] as number;
+          n++;
+        }
+        growthTimes.push(t / n);
+        growthFractions.push(clockAt(t / n));
+      }
+    }
     layers.push({
       index: i,
       openS: v.openS,
@@ -223,6 +251,7 @@ export function collectRunData(label: string, recipe: ResolvedRecipe, records: I
       values: Float64Array.from(values),
       counts: Float64Array.from(counts),
       crystalClock,
+      growth: { timesS: Float64Array.from(growthTimes), fractions: Float64Array.from(growthFractions) },
     });
   });
   if (clockFallbacks > 0) warnings.push(`${label}: ${clockFallbacks} layer(s) had no crystal readings around them; their optical readings are placed on the run time instead`);
@@ -235,6 +264,7 @@ export function collectRunData(label: string, recipe: ResolvedRecipe, records: I
     opticalNoise: Math.max(1e-5, differenceNoise(opticalV, 1)),
     crystalNoiseHz: Math.max(1e-3, differenceNoise(crystalV, 2)),
     estimatedNm,
+    shutterDelaysS,
     warnings,
   };
 }

@@ -19,6 +19,7 @@ import { runSimulate, simulateUsage } from './commands/simulate.ts';
 import { runSpectrum, spectrumUsage } from './commands/spectrum.ts';
 import { runStudyCommand, studyUsage } from './commands/study.ts';
 import { runTooling, toolingUsage } from './commands/tooling.ts';
+import { runWhatIfCommand, whatifUsage } from './commands/whatif.ts';
 
 const commands: Record<string, { run: (argv: string[], io: CommandIo) => number | Promise<number>; usage: string }> = {
   spectrum: { run: runSpectrum, usage: spectrumUsage },
@@ -33,6 +34,7 @@ const commands: Record<string, { run: (argv: string[], io: CommandIo) => number 
   tooling: { run: runTooling, usage: toolingUsage },
   materials: { run: runMaterials, usage: materialsUsage },
   calibrate: { run: runCalibrate, usage: calibrateUsage },
+  whatif: { run: runWhatIfCommand, usage: whatifUsage },
   floor: { run: runFloor, usage: floorUsage },
 };
 
@@ -53,6 +55,7 @@ Commands:
   tooling             a corrected tooling factor from a calibration run
   materials [NAME]    the material library: range, dispersion, sources; --plot of n and k
   calibrate RUN       the chamber's chip ratios, tooling factors and film indices from finished runs
+  whatif RUN          another recipe or strategy, run many times on the chamber RUN's calibration describes
   floor --mqtt URL    every chamber's run on one read-only page, from the plant's broker
 
 fringe is process control, not a safety system: interlocks, manual shutter controls and the

@@ -5,7 +5,7 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { beforeAll, describe, expect, it } from 'vitest';
-import { loadSimProfile } from '../../sim/index.ts';
+import { loadSimProfile, SimProfileSchema } from '../../sim/index.ts';
 import { parseMeasuredSpectrum } from '../../src/calibrate/index.ts';
 import { loadRecipe } from '../../src/config/load-recipe.ts';
 import { runCli } from '../support/run-cli.ts';
@@ -80,6 +80,22 @@ describe('fringe calibrate', () => {
     // The monitor's noise as the run showed it: the uncalibrated profile's 0.1 % within a tenth.
     expect(profile.optical.noisePercent).toBeGreaterThan(0.09);
     expect(profile.optical.noisePercent).toBeLessThan(0.11);
+    // The process as the journal showed it, against config/sim/uncalibrated.yaml's settings:
+    // shutter delay 0.2 s (jitter 0.02 s) from the acknowledgements, rate 2 % over the recipe's
+    // with a 2 s ramp and 2 % rms fluctuation from the crystal (4 layers: the rate level carries
+    // the fluctuation's mean over two layers, ~1.5 %).
+    for (const name of ['TiO2', 'SiO2']) {
+      const source = profile.sources[name];
+      expect(source?.shutterDelayS).toBeGreaterThan(0.17);
+      expect(source?.shutterDelayS).toBeLessThan(0.23);
+      expect(source?.shutterJitterS).toBeLessThan(0.05);
+      expect(Math.abs((source?.rateBiasPercent ?? Number.NaN) - 2)).toBeLessThan(4);
+      expect(Math.abs((source?.rampTimeConstantS ?? Number.NaN) - 2)).toBeLessThan(1.5);
+      expect(source?.fluctuationPercent).toBeGreaterThan(0.5);
+      expect(source?.fluctuationPercent).toBeLessThan(4);
+    }
+    // calibration.json keeps the same profile, which fringe whatif runs on.
+    expect(SimProfileSchema.parse((JSON.parse(readFileSync(join(run, 'calibration.json'), 'utf8')) as { profile: unknown }).profile)).toEqual(profile);
   }, 120_000);
 
   it('prints a table for people', async () => {

@@ -7,8 +7,7 @@ import { readFileSync, renameSync, writeFileSync } from 'node:fs';
 import { dirname, join, relative, resolve } from 'node:path';
 import { parseArgs } from 'node:util';
 import { Document, parseDocument } from 'yaml';
-import { SimProfileSchema } from '../../../sim/index.ts';
-import { calibrate, CalibrationDataError, collectRunData, MeasuredSpectrumError, readMeasuredSpectrum, type CalibrationResult, type RunData, type SpectrumData } from '../../calibrate/index.ts';
+import { calibrate, CalibrationDataError, chamberProfile, collectRunData, MeasuredSpectrumError, readMeasuredSpectrum, type CalibrationResult, type RunData, type SpectrumData } from '../../calibrate/index.ts';
 import { readYamlFile } from '../../config/read-config.ts';
 import { scaledDispersion } from '../../model/optics/dispersion.ts';
 import { buildOpticalModel, spectrum, type StackSpec } from '../../model/optics/optical-model.ts';
@@ -36,8 +35,9 @@ physics. Several runs are pooled: the factors are shared, the layers are each ru
   --recipe FILE         the recipe file the run was made with (for --out)
   --plot FILE.svg       the measured spectra over the design's and the calibrated model's
   --profile-out FILE    write a simulator profile of this chamber as calibrated (chip ratio,
-                        tooling and index errors against the first run's recipe, the monitor's
-                        and the crystal's noise), for fringe simulate --profile
+                        tooling and index errors against the first run's recipe; rates, ramps,
+                        fluctuation and shutter delays from the journal; the monitor's noise and
+                        drifts, the crystal's noise), for fringe simulate --profile
 
 The calibration is kept beside each run as calibration.json.
 `;
@@ -109,15 +109,22 @@ export function runCalibrate(argv: string[], io: CommandIo): number {
   });
 
   const result = calibrate(runs, spectra);
+  const chamber = chamberProfile(result, runs);
   const record = {
     ...jsonOf(result),
     runs: runs.map((r, i) => ({ id: r.label, dir: dirs[i] })),
     measured: spectra.map((s) => ({ file: s.spectrum.source, run: s.run, quantity: s.spectrum.quantity, read: s.spectrum.scale, because: s.spectrum.scaleReason })),
+    // The virtual chamber `fringe whatif` runs on (errors against the first run's recipe).
+    ...('profile' in chamber ? { profile: chamber.profile } : { profileProblem: chamber.problem }),
   };
   for (const dir of new Set(dirs)) writeAtomically(join(dir, 'calibration.json'), `${JSON.stringify(record, null, 2)}\n`);
   if (values.out !== undefined) writeOutputFile(values.out, correctedRecipe(values.recipe as string, values.out, result, runs, spectra));
   if (values.plot !== undefined) writeOutputFile(values.plot, plotOf(result, runs, spectra));
-  if (values['profile-out'] !== undefined) writeOutputFile(values['profile-out'], profileOf(result, runs));
+  if (values['profile-out'] !== undefined) {
+    // The calibration is kept (above) even when its chamber cannot be written as a profile.
+    if ('problem' in chamber) throw new CliError(`--profile-out: ${chamber.problem}; the calibration itself is kept in calibration.json`, 1);
+    writeOutputFile(values['profile-out'], profileFile(chamber.profile, runs));
+  }
   io.out(values.json ? JSON.stringify(record) : formatTable(result, runs, spectra));
   return 0;
 }
@@ -243,35 +250,8 @@ function plotOf(result: CalibrationResult, runs: readonly RunData[], spectra: re
 }
 
 
-/**
- * A simulator profile of the chamber as calibrated: per material the chip-ratio, tooling and
- * index errors against the first run's recipe (so that `fringe simulate` of that recipe builds
- * the chamber found) and the noise of the monitor and the crystal as the runs showed them. The
- * rest (rates, ramps, fluctuation, drifts, shutter delays) is the typical profile's: not yet
- * estimated from the journal, and the file says so.
- */
-function profileOf(result: CalibrationResult, runs: readonly RunData[]): string {
-  const sources: Record<string, unknown> = { default: {} };
-  const materials: Record<string, unknown> = { default: { indexScatterPercent: 0 } };
-  for (const [name, m] of Object.entries(result.materials)) {
-    sources[name] = {
-      chipRatioErrorPercent: round(100 * (m.chipRatio.value / m.recipeChipRatio - 1)),
-      toolingErrorPercent: round(100 * (m.toolingFactor.value / m.recipeToolingFactor - 1)),
-    };
-    materials[name] = { indexOffsetPercent: round(100 * (m.indexFactor.value - 1)), indexScatterPercent: 0 };
-  }
-  const mean = (f: (r: RunData) => number): number => runs.reduce((s, r) => s + f(r), 0) / runs.length;
-  const profile = {
-    formatVersion: 1,
-    name: `calibrated from ${runs.map((r) => r.label).join(', ')}`,
-    description: 'chip ratios, tooling factors, film indices and instrument noise from fringe calibrate; every other knob is the typical profile\'s, not estimated',
-    sources,
-    materials,
-    optical: { noisePercent: round(100 * mean((r) => r.opticalNoise)) },
-    crystal: { noiseHz: round(mean((r) => r.crystalNoiseHz)) },
-  };
-  // Checked against the schema before it is written: a file fringe writes must load.
-  SimProfileSchema.parse(profile);
+/** The chamber as calibrated, as a simulator profile file (errors against the first run's recipe). */
+function profileFile(profile: Record<string, unknown>, runs: readonly RunData[]): string {
   const doc = new Document(profile);
   doc.commentBefore = ` Simulator profile written by fringe calibrate from ${runs.map((r) => `run ${r.label}`).join(', ')}:\n errors are against the recipe of the first run.`;
   return doc.toString();
