@@ -9,9 +9,16 @@
  *   {"k":"m","t":80.2,"mark":"resumed","at":"…","meta":{…}}   a note on the run itself (not an
  *                                                        input): where a resumed session took it up
  *
- * Readers skip a damaged line (not JSON, or none of these shapes) and say how many they skipped:
- * one torn write must not cost the rest of the run.
+ * Every line written ends in its number and a check, `,"n":S,"z":N}`: S counts the lines written
+ * (the header 0, the records from 1, a resumed session going on from the last), N is the CRC-32
+ * of the line up to and with its number. A byte changed is seen at its line, a line repeated or
+ * moved by a number not after the last, lines lost by a gap in the numbers: never read as a
+ * number they were not. Journals from before the check have none and are read as they are.
+ *
+ * Readers skip a damaged line (not JSON, none of these shapes, or its check fails) and say which
+ * they skipped: one torn write must not cost the rest of the run.
  */
+import { crc32 } from 'node:zlib';
 import type { RunEvent } from '../pipeline/events.ts';
 import type { PipelineInput, Reading } from '../pipeline/types.ts';
 
@@ -118,4 +125,36 @@ const QUOTED_NON_FINITE = /"(?:NaN|-?Infinity)"/;
 /** The reviver costs ~3× the parse: used only on lines that hold a quoted NaN or ±Infinity. */
 export function parseRecord(line: string): unknown {
   return QUOTED_NON_FINITE.test(line) ? JSON.parse(line, reviveNonFinite) : JSON.parse(line);
+}
+
+const SEQ_FIELD = ',"n":';
+const CHECK_FIELD = ',"z":';
+
+/** `body` (a record's or header's JSON text) as the line written: its number in the sequence and its check. */
+export function sealLine(body: string, seq: number): string {
+  const numbered = `${body.slice(0, -1)}${SEQ_FIELD}${seq}`;
+  return `${numbered}${CHECK_FIELD}${crc32(`${numbered}}`)}}`;
+}
+
+/** A sealed line taken apart: the JSON text it was sealed from, its number, and whether its check holds. */
+export interface UnsealedLine {
+  readonly body: string;
+  /** NaN when the check fails (the number may be damaged too). */
+  readonly seq: number;
+  readonly intact: boolean;
+}
+
+const DIGITS = /^\d{1,15}$/;
+
+/** A line taken apart, or null when it ends in no check (a journal from before them, or a line that lost it). */
+export function unsealLine(text: string): UnsealedLine | null {
+  const at = text.lastIndexOf(CHECK_FIELD);
+  if (at < 0 || text.charCodeAt(text.length - 1) !== 0x7d) return null;
+  const check = text.slice(at + CHECK_FIELD.length, -1);
+  if (!DIGITS.test(check)) return null;
+  const numbered = `${text.slice(0, at)}}`;
+  const seqAt = numbered.lastIndexOf(SEQ_FIELD);
+  const seq = seqAt < 0 ? '' : numbered.slice(seqAt + SEQ_FIELD.length, -1);
+  const intact = crc32(numbered) === Number(check) && DIGITS.test(seq);
+  return intact ? { body: `${numbered.slice(0, seqAt)}}`, seq: Number(seq), intact } : { body: numbered, seq: Number.NaN, intact };
 }

@@ -17,7 +17,7 @@ import { createController, type ControllerState } from '../../pipeline/controlle
 import { CUT_REASON_WORDS, ESTIMATOR_WORDS, plannedCutWords, wordFor, type Estimator } from '../../pipeline/cut-words.ts';
 import type { RunEvent } from '../../pipeline/events.ts';
 import { createLiveRun } from '../../pipeline/live-run.ts';
-import { createJournalRun } from '../../pipeline/replay.ts';
+import { runJournalToEnd } from '../../pipeline/replay.ts';
 import type { OperatorAction, ReadingSource } from '../../pipeline/types.ts';
 import { createRunHub, type RunHub } from '../../server/run-hub.ts';
 import { allowHostOption, CliError, estimatorOption, outputFolderOption } from '../cli-error.ts';
@@ -121,10 +121,8 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
   if (recorded) {
     // The journal through the controller, and through the hub, so the dashboard shows the run
     // as it stood (finished layers and their cuts, the alerts, the layer's trace), not from now.
-    const replay = createJournalRun(recorded.journal.records, createController(recipe, { estimator, confirmCloses: journalConfirmsCloses(recorded.journal.header) }), hub ? { onInput: hub.feed.input, onEvent: hub.feed.event } : {});
-    hub?.attach(replay);
-    replay.runUntil(Number.POSITIVE_INFINITY);
-    resumeFrom = replay.state;
+    const controller = createController(recipe, { estimator, confirmCloses: journalConfirmsCloses(recorded.journal.header) });
+    resumeFrom = runJournalToEnd(recorded.journal.records, controller, hub ? { onInput: hub.feed.input, onEvent: hub.feed.event } : {}, (replay) => hub?.attach(replay)).state;
     warnOfDamage(recorded, io);
     if (resumeFrom.phase === 'finished' || resumeFrom.phase === 'aborted') throw new CliError(`the run in ${runDir} has already ${resumeFrom.phase === 'finished' ? 'finished' : 'been aborted'}`, 1);
     io.err(`resuming ${runDir} at layer ${resumeFrom.index + 1} (${resumeFrom.phase}), run time ${resumeFrom.nowS.toFixed(1)} s`);
