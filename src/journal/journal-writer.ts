@@ -173,10 +173,11 @@ export function createJournalWriter(
     if (queue.length === 0) return true;
     // Numbered now, in the order written: readings dropped before then leave no gap.
     let next = seq;
-    const lines = queue.map((l) => (l.raw ? { data: Buffer.from(l.text), next } : { data: Buffer.from(`${sealLine(l.text, next)}\n`), next: ++next }));
+    const texts = queue.map((l) => (l.raw ? l.text : `${sealLine(l.text, next++)}\n`));
+    const numbered = (count: number): number => queue.slice(0, count).filter((l) => !l.raw).length;
     try {
-      writeAll(Buffer.concat(lines.map((l) => l.data)));
-      seq = next;
+      writeAll(Buffer.from(texts.join('')));
+      seq += numbered(queue.length);
       queue = [];
       queueBytes = 0;
       return true;
@@ -184,19 +185,17 @@ export function createJournalWriter(
       // Keep the lines not written whole; the rest of the one cut short goes first next time.
       let written = (failure as WriteFailure).written;
       let done = 0;
-      while (done < queue.length && written >= (lines[done] as { data: Buffer }).data.length) {
-        written -= (lines[done] as { data: Buffer }).data.length;
-        seq = (lines[done] as { next: number }).next;
+      while (done < queue.length && written >= Buffer.byteLength(texts[done] as string)) {
+        written -= Buffer.byteLength(texts[done] as string);
         queueBytes -= (queue[done] as PendingLine).bytes;
         done++;
       }
       if (written > 0) {
-        const cut = lines[done] as { data: Buffer; next: number };
-        partial = cut.data.subarray(written);
-        seq = cut.next;
+        partial = Buffer.from(texts[done] as string).subarray(written);
         queueBytes -= (queue[done] as PendingLine).bytes;
         done++;
       }
+      seq += numbered(done);
       queue = queue.slice(done);
       failed((failure as WriteFailure).reason, 'write');
       return false;

@@ -10,7 +10,7 @@ import { isDeepStrictEqual } from 'node:util';
 import fc from 'fast-check';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { createVirtualChamber } from '../../sim/index.ts';
-import { recordToInput, type JournalRecord } from '../../src/journal/journal-format.ts';
+import { recordToInput, sealLine, type JournalRecord } from '../../src/journal/journal-format.ts';
 import { describeDamage, JournalError, readJournal, type JournalContents } from '../../src/journal/journal-reader.ts';
 import { createJournalWriter } from '../../src/journal/journal-writer.ts';
 import { createController, type Controller } from '../../src/pipeline/controller.ts';
@@ -168,8 +168,10 @@ describe('a journal damaged at random points', () => {
           }
           holder[key] = to;
         }
-        writeFileSync(file, Buffer.concat([header, Buffer.from(copy.map((r) => `${JSON.stringify(r)}\n`).join(''))]));
+        // Sealed as the writer would: the edits are what a bug writes, not damage the check would catch.
+        writeFileSync(file, Buffer.concat([header, Buffer.from(copy.map((r, i) => `${sealLine(JSON.stringify(r), i + 1)}\n`).join(''))]));
         const read = readJournal(file);
+        expect(read.firstDamaged.filter((d) => d.reason === 'altered')).toEqual([]);
         replayJournal(read.records, controller);
       }),
     );

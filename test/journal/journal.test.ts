@@ -248,6 +248,7 @@ describe('resuming a journal', () => {
     const after = readJournal(file, { chunkBytes: 5 });
     expect(after.truncated).toBe(false);
     expect(after.firstDamaged).toEqual([{ line: 13, reason: 'not JSON' }]);
+    expect(after.lostLines).toBe(0);
     expect(after.records).toHaveLength(before.records.length + 2);
     expect(after.records.at(-2)).toEqual({ k: 'm', t: 0.9, mark: 'resumed', at: '2026-12-01T01:00:00.000Z', meta: { source: 'live', clock: 'instrument' } });
     expect(after.records.at(-1)).toEqual(readingRecord(reading(10) as Reading));
