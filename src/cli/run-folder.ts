@@ -1,7 +1,7 @@
 /** Finding a recorded run on disk for the commands that read one (replay, export, run --resume). */
 import { existsSync, readFileSync, statSync } from 'node:fs';
 import { dirname, join } from 'node:path';
-import { describeDamage, JournalError, openJournal, type JournalStream } from '../journal/journal-reader.ts';
+import { describeDamage, JournalError, openJournal, type JournalReadReport, type JournalStream } from '../journal/journal-reader.ts';
 import type { CommandIo } from './command-io.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import { CliError } from './cli-error.ts';
@@ -28,9 +28,12 @@ export function readRecordedRun(target: string): RecordedRun {
   }
 }
 
-/** Once the records have been read: one warning line on stderr if damaged lines were skipped. */
-export function warnOfDamage(run: RecordedRun, io: CommandIo): void {
-  const warning = describeDamage(run.journalFile, run.journal.report);
+/**
+ * Once the records have been read: one warning line on stderr naming the damaged, missing or cut
+ * off lines, if any (`report`: what another pass over the journal found, as the run report's).
+ */
+export function warnOfDamage(run: RecordedRun, io: CommandIo, report: JournalReadReport = run.journal.report): void {
+  const warning = describeDamage(run.journalFile, report);
   if (warning) io.err(`warning: ${warning}`);
 }
 

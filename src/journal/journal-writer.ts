@@ -13,7 +13,7 @@ import { join } from 'node:path';
 import { fileErrorReason, makeWritableFolder } from '../files/writable-folder.ts';
 import type { RunEvent } from '../pipeline/events.ts';
 import type { PipelineInput } from '../pipeline/types.ts';
-import { JOURNAL_VERSION, readingRecord, stringifyRecord, type JournalHeader, type JournalRecord } from './journal-format.ts';
+import { JOURNAL_VERSION, readingRecord, sealLine, stringifyRecord, unsealLine, type JournalHeader, type JournalRecord } from './journal-format.ts';
 
 export interface JournalWriter {
   readonly dir: string;
@@ -66,10 +66,16 @@ export interface JournalWriterOptions {
   fsync?: (fd: number) => void;
 }
 
+/** What sealing adds to a line at most: `,"z":4294967295` and the newline. */
+const CHECK_BYTES = 16;
+
 const SYNCED_EVENTS = new Set<RunEvent['type']>(['cut', 'alert', 'layer-finished', 'run-finished', 'mode-changed']);
 
 interface PendingLine {
+  /** A record's JSON text, sealed with its check as it is written (readings dropped before then break no chain); or raw text. */
   readonly text: string;
+  readonly raw?: boolean;
+  /** Its bytes on disk (a sealed line's check counted at its longest). */
   readonly bytes: number;
   /** Readings may be dropped when the buffer overflows; nothing else may. */
   readonly reading: boolean;
@@ -93,12 +99,18 @@ export function createJournalWriter(
   let fd: number;
   let resuming: boolean;
   let endsMidLine = false;
+  /** The number the next line written carries (journal-format.ts): the header 0. */
+  let seq = 0;
   try {
     makeWritableFolder(dir);
     resuming = existsSync(file) && statSync(file).size > 0;
     if (resuming && options.resumedAtS === undefined) throw new Error('it already holds a journal of another run');
     fd = openSync(file, 'a+');
-    if (resuming) endsMidLine = lastByte(fd, statSync(file).size) !== 0x0a;
+    if (resuming) {
+      const size = statSync(file).size;
+      endsMidLine = lastByte(fd, size) !== 0x0a;
+      seq = nextSeq(fd, size);
+    }
   } catch (error) {
     throw new JournalWriteError(`${file} cannot be opened for the journal: ${fileErrorReason(error)}`);
   }
@@ -159,9 +171,13 @@ export function createJournalWriter(
       }
     }
     if (queue.length === 0) return true;
-    const data = Buffer.from(queue.map((l) => l.text).join(''));
+    // Numbered now, in the order written: readings dropped before then leave no gap.
+    let next = seq;
+    const texts = queue.map((l) => (l.raw ? l.text : `${sealLine(l.text, next++)}\n`));
+    const numbered = (count: number): number => queue.slice(0, count).filter((l) => !l.raw).length;
     try {
-      writeAll(data);
+      writeAll(Buffer.from(texts.join('')));
+      seq += numbered(queue.length);
       queue = [];
       queueBytes = 0;
       return true;
@@ -169,17 +185,17 @@ export function createJournalWriter(
       // Keep the lines not written whole; the rest of the one cut short goes first next time.
       let written = (failure as WriteFailure).written;
       let done = 0;
-      while (done < queue.length && written >= (queue[done] as PendingLine).bytes) {
-        written -= (queue[done] as PendingLine).bytes;
+      while (done < queue.length && written >= Buffer.byteLength(texts[done] as string)) {
+        written -= Buffer.byteLength(texts[done] as string);
         queueBytes -= (queue[done] as PendingLine).bytes;
         done++;
       }
       if (written > 0) {
-        const cut = queue[done] as PendingLine;
-        partial = Buffer.from(cut.text).subarray(written);
-        queueBytes -= cut.bytes;
+        partial = Buffer.from(texts[done] as string).subarray(written);
+        queueBytes -= (queue[done] as PendingLine).bytes;
         done++;
       }
+      seq += numbered(done);
       queue = queue.slice(done);
       failed((failure as WriteFailure).reason, 'write');
       return false;
@@ -219,8 +235,8 @@ export function createJournalWriter(
 
   const push = (record: JournalRecord | JournalHeader, reading: boolean): void => {
     if (closed) return;
-    const text = `${stringifyRecord(record)}\n`;
-    const bytes = Buffer.byteLength(text);
+    const text = stringifyRecord(record);
+    const bytes = Buffer.byteLength(text) + CHECK_BYTES;
     queue.push({ text, bytes, reading });
     queueBytes += bytes;
     if (failing === 'write') bound();
@@ -236,7 +252,7 @@ export function createJournalWriter(
     // A crash may have cut the last line short: start on a fresh one (the half line is then one
     // damaged line that readers skip), and note where the run was taken up again.
     if (endsMidLine) {
-      queue.push({ text: '\n', bytes: 1, reading: false });
+      queue.push({ text: '\n', raw: true, bytes: 1, reading: false });
       queueBytes += 1;
     }
     const atS = options.resumedAtS as number;
@@ -318,6 +334,29 @@ export function describeLoss(loss: JournalLoss): string {
 function lastByte(fd: number, size: number): number {
   const one = Buffer.alloc(1);
   return readSync(fd, one, 0, 1, size - 1) === 1 ? (one[0] as number) : -1;
+}
+
+/**
+ * The number a line appended to the file carries: one past the last intact line's, read from the
+ * end back (the last 64 KiB, else the last 16 MiB); 1 after a header alone (or a journal from
+ * before the numbers). Not found, the file's size: more than any line's number, so the reader
+ * reports a gap rather than taking the new lines for old ones repeated.
+ */
+function nextSeq(fd: number, size: number): number {
+  for (const window of [64 << 10, (16 << 20) + 2]) {
+    const length = Math.min(size, window);
+    const bytes = Buffer.alloc(length);
+    readSync(fd, bytes, 0, length, size - length);
+    for (let end = length; end > 0; ) {
+      const start = bytes.lastIndexOf(0x0a, end - 1);
+      if (start < 0 && length < size) break; // the window starts inside a line: read a wider one
+      if (start < 0) return 1; // the header
+      const sealed = unsealLine(bytes.toString('utf8', start + 1, end));
+      if (sealed?.intact) return sealed.seq + 1;
+      end = start;
+    }
+  }
+  return size;
 }
 
 function closeQuietly(fd: number): void {

@@ -120,6 +120,27 @@ export function createJournalRun(
   };
 }
 
+/**
+ * A journal's inputs through `controller` to the run's end (`attach` sees the run before it
+ * steps), then the records after that end read too, so that the journal's report covers the
+ * whole file (damage after the run's end included).
+ */
+export function runJournalToEnd(
+  records: Iterable<JournalRecord>,
+  controller: Controller,
+  callbacks: Parameters<typeof createJournalRun>[2] = {},
+  attach?: (run: SteppedRun) => void,
+): SteppedRun {
+  const iterator = records[Symbol.iterator]();
+  const run = createJournalRun({ [Symbol.iterator]: () => iterator }, controller, callbacks);
+  attach?.(run);
+  run.runUntil(Number.POSITIVE_INFINITY);
+  for (let item = iterator.next(); !item.done; item = iterator.next()) {
+    // Read for the report only.
+  }
+  return run;
+}
+
 function collect(records: Iterable<JournalRecord>, controller: Controller, onEvent?: (event: RunEvent) => void): { run: SteppedRun; result(): ReplayResult } {
   const events: RunEvent[] = [];
   const recordedEvents: RunEvent[] = [];

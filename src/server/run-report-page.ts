@@ -5,6 +5,7 @@
  */
 import { createHash } from 'node:crypto';
 import { escapeXml, renderLineChart, type ChartOptions, type ChartSeries } from '../report/index.ts';
+import { describeDamage } from '../journal/journal-reader.ts';
 import type { RunReport, ReportTrace } from './run-report.ts';
 
 const STYLE = `
@@ -69,9 +70,8 @@ export function renderRunReport(report: RunReport): string {
     `<h1>${h(title)}</h1>`,
     `<p class="sub">run ${h(report.id)}, started ${h(header.startedAt)}, ${h(outcomeOf(report))}, ${h(clock(report.durationS))} of run time</p>`,
   );
-  if (report.damage.damagedLines > 0 || report.damage.truncated) {
-    parts.push(`<p><strong>The journal is damaged:</strong> ${report.damage.damagedLines} line(s) could not be read${report.damage.truncated ? ', and its last line was cut off' : ''}; the figures below are what the rest shows.</p>`);
-  }
+  const damage = describeDamage('journal.ndjson', report.damage);
+  if (damage !== null) parts.push(`<p><strong>The journal is damaged</strong> (${h(damage)}); the figures below are what the rest shows.</p>`);
   parts.push(recipeSection(report), chamberSection(report), layersSection(report), alertsSection(report), tracesSection(report), rateSection(report), outcomeSection(report));
   if (report.calibration !== undefined) parts.push(calibrationSection(report.calibration));
   parts.push(

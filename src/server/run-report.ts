@@ -12,7 +12,7 @@ import { journalConfirmsCloses, journalEstimator, type JournalHeader } from '../
 import { openJournal, type JournalReadReport } from '../journal/journal-reader.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import { createController } from '../pipeline/controller.ts';
-import { createJournalRun } from '../pipeline/replay.ts';
+import { runJournalToEnd } from '../pipeline/replay.ts';
 import { createRunHub } from './run-hub.ts';
 import type { AlertView, OutcomeView, StackRow, TraceView } from './views.ts';
 
@@ -83,9 +83,7 @@ export function collectRunReport(dir: string, id: string): RunReport {
     }
   });
   const controller = createController(recipe, { estimator: journalEstimator(journal.header), confirmCloses: journalConfirmsCloses(journal.header) });
-  const run = createJournalRun(journal.records, controller, { onInput: hub.feed.input, onEvent: hub.feed.event });
-  hub.attach(run);
-  run.runUntil(Number.POSITIVE_INFINITY);
+  const run = runJournalToEnd(journal.records, controller, { onInput: hub.feed.input, onEvent: hub.feed.event }, (r) => hub.attach(r));
   const snapshot = hub.snapshot();
   return {
     id,

@@ -6,7 +6,7 @@
  */
 import { closeSync, existsSync, openSync, readdirSync, readFileSync, readSync, realpathSync, statSync } from 'node:fs';
 import { join, resolve, sep } from 'node:path';
-import { headerProblem, parseRecord, type JournalHeader } from '../journal/journal-format.ts';
+import { headerProblem, parseRecord, unsealLine, type JournalHeader } from '../journal/journal-format.ts';
 import { runFigures } from './run-summary.ts';
 
 /** Run ids are folder names: letters, digits, dot, dash and underscore, not starting with a dot. */
@@ -76,7 +76,8 @@ export function readJournalHeader(file: string): JournalHeader | null {
     const text = buffer.subarray(0, n).toString('utf8');
     const end = text.indexOf('\n');
     if (end < 0) return null;
-    const header = parseRecord(text.slice(0, end));
+    const line = text.slice(0, end);
+    const header = parseRecord(unsealLine(line)?.body ?? line);
     // A damaged header (no meta, say) must not break the listing of the others.
     return headerProblem(header) === null ? (header as JournalHeader) : null;
   } catch {

@@ -1,7 +1,7 @@
 // The commands that read or write a journal, at the command line: bad files refused in one
 // sentence, damaged lines skipped with a warning, a resumed run keeping its clock, and a live run
 // whose journal the disk refuses for a while.
-import { mkdtempSync, readdirSync, readFileSync, writeFileSync, writeSync } from 'node:fs';
+import { copyFileSync, mkdtempSync, readdirSync, readFileSync, writeFileSync, writeSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -83,6 +83,36 @@ describe('a journal with damaged lines', () => {
     expect(exported.code, exported.err).toBe(0);
     expect(exported.err).toMatch(/skipped 2 damaged lines/);
     expect(exported.out.trim().split('\n').length).toBeGreaterThan(100);
+  });
+});
+
+describe('a journal with a changed number in the middle and a torn end', () => {
+  it('replay, export, report and run --resume each name the lines in one warning, and read every other record', async () => {
+    const runDir = await simulatedRun();
+    const file = join(runDir, 'journal.ndjson');
+    const lines = readFileSync(file, 'utf8').split('\n');
+    // A reading whose value lost a digit (still JSON, still a reading), and a last line cut short.
+    const changed = lines.findIndex((l, i) => i > 50 && /^\{"k":"r","c":"o",.*"v":0\.\d{3}/.test(l));
+    lines[changed] = (lines[changed] as string).replace(/("v":0\.\d)\d/, '$1');
+    const last = lines.length - 1; // after the final newline: the torn line goes here
+    lines[last] = '{"k":"r","c":"o","t":1e3,"v":0.5';
+    writeFileSync(file, lines.join('\n'));
+    copyFileSync(join(root, 'config/chambers/sim-tcp.yaml'), join(runDir, 'chamber.yaml'));
+    const warning = `warning: ${file}: skipped 1 damaged line: line ${changed + 1} (altered: its check fails); line ${last + 1} is cut off (the file ends inside it): read to the line before`;
+    const replay = await run('replay', runDir, '--json');
+    const exported = await run('export', runDir, '--csv');
+    const report = await run('report', runDir, '--out', join(runDir, 'r.html'));
+    // The run had finished: the resume replays it, says what it skipped, and refuses.
+    const resume = await run('run', '--resume', runDir);
+    for (const [name, r, code] of [['replay', replay, 0], ['export', exported, 0], ['report', report, 0], ['run --resume', resume, 1]] as const) {
+      expect(r.code, `${name}: ${r.err}`).toBe(code);
+      expect(r.err.split('\n')[0], name).toBe(warning);
+      expect(r.err, name).not.toMatch(/\bat \S+ \(/);
+    }
+    expect(resume.err).toMatch(/has already finished/);
+    expect((JSON.parse(replay.out) as { damagedLines: number }).damagedLines).toBe(1);
+    // The changed reading is not among the exported rows; every other one is.
+    expect(exported.out.split('\n').filter((row) => row.includes(',reading,')).length).toBe(lines.filter((l) => l.startsWith('{"k":"r"')).length - 2);
   });
 });
 

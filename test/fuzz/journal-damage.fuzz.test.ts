@@ -3,18 +3,20 @@
 // naming the file (and that only when the header is hit); every record before the damage reads
 // back as written; damaged lines are reported by their numbers, none before the damage; and the
 // records that survive replay through the controller without an exception.
-import { mkdtempSync, readFileSync, writeFileSync } from 'node:fs';
+import { mkdirSync, mkdtempSync, readFileSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
-import { join } from 'node:path';
+import { dirname, join } from 'node:path';
+import { isDeepStrictEqual } from 'node:util';
 import fc from 'fast-check';
 import { beforeAll, describe, expect, it } from 'vitest';
 import { createVirtualChamber } from '../../sim/index.ts';
-import type { JournalRecord } from '../../src/journal/journal-format.ts';
-import { JournalError, readJournal, type JournalContents } from '../../src/journal/journal-reader.ts';
+import { recordToInput, sealLine, type JournalRecord } from '../../src/journal/journal-format.ts';
+import { describeDamage, JournalError, readJournal, type JournalContents } from '../../src/journal/journal-reader.ts';
 import { createJournalWriter } from '../../src/journal/journal-writer.ts';
 import { createController, type Controller } from '../../src/pipeline/controller.ts';
 import { replayJournal } from '../../src/pipeline/replay.ts';
 import { createSteppedRun } from '../../src/pipeline/run-stepped.ts';
+import type { PipelineInput } from '../../src/pipeline/types.ts';
 import { ar4, typical } from '../server/support.ts';
 import { fuzz, FUZZ_TIMEOUT_MS } from './fuzz-runs.ts';
 
@@ -95,8 +97,51 @@ describe('a journal damaged at random points', () => {
         expect(read.damagedLines).toBeGreaterThanOrEqual(read.firstDamaged.length);
         // Nothing is invented: at most as many records as the lines that could hold one.
         const lines = bytes.toString('latin1').split('\n').length - 1;
-        expect(read.records.length + read.damagedLines).toBeLessThanOrEqual(Math.max(0, lines - 1));
+        const headerDamaged = read.firstDamaged.some((l) => l.line === 1) ? 1 : 0;
+        expect(read.records.length + read.damagedLines).toBeLessThanOrEqual(Math.max(0, lines - 1 + headerDamaged));
         replayJournal(read.records, controller);
+      }),
+    );
+  }, FUZZ_TIMEOUT_MS);
+
+  it('never yields a record it was not given, names the first damaged line, and takes a resumed session after it', () => {
+    const file = join(dir, 'checked', 'journal.ndjson');
+    mkdirSync(dirname(file), { recursive: true });
+    const resumedRecord: JournalRecord = { k: 'r', c: 'o', t: 999, v: 0.5, a: 999 };
+    fuzz(
+      'journal: no silently wrong record',
+      fc.property(damage, (d) => {
+        const { bytes, from } = damaged(d);
+        writeFileSync(file, bytes);
+        let read: JournalContents;
+        try {
+          read = readJournal(file);
+        } catch {
+          return; // the header was hit: the property above holds the sentence to account
+        }
+        // Every record read is one written, in the order written, none twice: a subsequence.
+        let next = 0;
+        for (const record of read.records) {
+          const at = records.findIndex((r, i) => i >= next && isDeepStrictEqual(r, record));
+          expect(at, `record ${JSON.stringify(record)} was never written there`).toBeGreaterThanOrEqual(0);
+          next = at + 1;
+        }
+        // Unless the file is the journal cut at a line's end, the damage is named, no line before it.
+        const cleanCut = bytes.length <= original.length && original.subarray(0, bytes.length).equals(bytes) && (bytes.length === 0 || bytes[bytes.length - 1] === 10);
+        if (!cleanCut) {
+          const damage = describeDamage(file, read);
+          expect(damage, 'the damage is reported').not.toBeNull();
+          const firstLine = Math.min(...read.firstDamaged.map((l) => l.line), ...read.firstLost.map((l) => l.line), read.truncatedLine ?? Number.POSITIVE_INFINITY);
+          expect(firstLine).toBeGreaterThan(lineEnds.filter((end) => end <= from).length);
+          expect(damage?.slice(file.length)).toMatch(new RegExp(`\\b${firstLine}\\b`));
+          expect(damage).not.toMatch(/\n/);
+        }
+        // A session resumed after the damage is read back whole.
+        const writer = createJournalWriter(dirname(file), { runId: 'fuzz', startedAt: '2026-01-01T01:00:00.000Z', recipe: ar4.name, meta: {} }, { resumedAtS: 999 });
+        writer.input(recordToInput(resumedRecord) as PipelineInput);
+        writer.close();
+        const after = readJournal(file);
+        expect(after.records.slice(-2)).toEqual([expect.objectContaining({ k: 'm', t: 999 }), resumedRecord]);
       }),
     );
   }, FUZZ_TIMEOUT_MS);
@@ -123,8 +168,10 @@ describe('a journal damaged at random points', () => {
           }
           holder[key] = to;
         }
-        writeFileSync(file, Buffer.concat([header, Buffer.from(copy.map((r) => `${JSON.stringify(r)}\n`).join(''))]));
+        // Sealed as the writer would: the edits are what a bug writes, not damage the check would catch.
+        writeFileSync(file, Buffer.concat([header, Buffer.from(copy.map((r, i) => `${sealLine(JSON.stringify(r), i + 1)}\n`).join(''))]));
         const read = readJournal(file);
+        expect(read.firstDamaged.filter((d) => d.reason === 'altered')).toEqual([]);
         replayJournal(read.records, controller);
       }),
     );

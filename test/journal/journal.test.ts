@@ -133,7 +133,7 @@ describe('reading a journal as a stream', () => {
     expect([...journal.records]).toHaveLength(27);
     appendFileSync(file, '{"k":"r","c":"o","t":3');
     expect([...journal.records]).toHaveLength(27);
-    expect(journal.report).toEqual({ truncated: true, damagedLines: 0, firstDamaged: [] });
+    expect(journal.report).toEqual({ truncated: true, truncatedLine: 29, damagedLines: 0, firstDamaged: [], lostLines: 0, firstLost: [] });
   });
 
   it('skips damaged lines inside the journal and says which', () => {
@@ -153,14 +153,49 @@ describe('reading a journal as a stream', () => {
       { line: 10, reason: 'not a journal record' },
     ]);
     expect(j.records).toHaveLength(22 - 4);
+    // The damaged lines held the numbers that are missing: no line is reported lost besides.
+    expect(j.lostLines).toBe(0);
     expect(describeDamage(file, j)).toBe(`${file}: skipped 4 damaged lines: lines 4 (not JSON), 6 (not a journal record), 8 (not JSON), 10 (not a journal record)`);
   });
 
-  it('skips a line too long to hold without holding it', () => {
-    const file = writeJournal('long', 5);
+  it('sees a changed digit, a line repeated and a line lost by the lines’ checks, each at its line, and reads on after it', () => {
+    const file = writeJournal('checked', 20);
     const lines = readFileSync(file, 'utf8').split('\n');
-    lines.splice(2, 0, `{"k":"i","t":1,"input":{"kind":"operator","action":"hold","note":"${'x'.repeat(5000)}"}}`);
+    const clean = readJournal(file).records;
+    lines[3] = (lines[3] as string).replace('"v":0.', '"v":1.'); // a reading's value changed: still JSON, still a record
+    lines.splice(8, 0, lines[7] as string); // line 8 written twice
+    lines.splice(15, 1); // a line lost (the 15th written)
     writeFileSync(file, lines.join('\n'));
+    const j = readJournal(file);
+    expect(j.firstDamaged).toEqual([
+      { line: 4, reason: 'altered' },
+      { line: 9, reason: 'out of place' },
+    ]);
+    expect(j.firstLost).toEqual([{ line: 16, count: 1 }]);
+    // Every record read is one written, in order, none twice.
+    expect(j.records).toEqual(clean.filter((_, i) => ![2, 13].includes(i)));
+    expect(describeDamage(file, j)).toBe(`${file}: skipped 2 damaged lines: lines 4 (altered: its check fails), 9 (repeated or out of place); 1 line missing (1 before line 16)`);
+  });
+
+  it('reads a journal from before the lines carried checks as it stands', () => {
+    const dir = tempDir();
+    const file = join(dir, 'journal.ndjson');
+    writeFileSync(file, `${JSON.stringify({ journal: 'fringe', version: 1, ...header })}\n{"k":"r","c":"o","t":0,"v":0.5,"a":0}\n{"k":"r","c":"o","t":0.1,"v":0.6,"a":0.1}\n`);
+    expect(readJournal(file)).toMatchObject({ damagedLines: 0, records: [{ t: 0, v: 0.5 }, { t: 0.1, v: 0.6 }] });
+    // Resumed by this fringe: the new lines carry checks, numbered from 1.
+    const w = createJournalWriter(dir, header, { resumedAtS: 0.2 });
+    w.input(reading(3));
+    w.close();
+    expect(readJournal(file)).toMatchObject({ damagedLines: 0, records: [{ t: 0 }, { t: 0.1 }, { k: 'm', t: 0.2 }, { t: 0.3 }] });
+  });
+
+  it('skips a line too long to hold without holding it', () => {
+    const w = createJournalWriter(join(tempDir(), 'long'), header);
+    w.input(reading(0));
+    w.input({ kind: 'operator', action: 'hold', timeS: 1, note: 'x'.repeat(5000) } as PipelineInput);
+    for (let i = 1; i < 5; i++) w.input(reading(i));
+    w.close();
+    const file = w.file;
     const j = readJournal(file, { chunkBytes: 64, maxLineBytes: 1000 });
     expect(j.firstDamaged).toEqual([{ line: 3, reason: 'too long' }]);
     expect(j.records).toHaveLength(5);
@@ -213,6 +248,7 @@ describe('resuming a journal', () => {
     const after = readJournal(file, { chunkBytes: 5 });
     expect(after.truncated).toBe(false);
     expect(after.firstDamaged).toEqual([{ line: 13, reason: 'not JSON' }]);
+    expect(after.lostLines).toBe(0);
     expect(after.records).toHaveLength(before.records.length + 2);
     expect(after.records.at(-2)).toEqual({ k: 'm', t: 0.9, mark: 'resumed', at: '2026-12-01T01:00:00.000Z', meta: { source: 'live', clock: 'instrument' } });
     expect(after.records.at(-1)).toEqual(readingRecord(reading(10) as Reading));

@@ -1,7 +1,7 @@
 /** `fringe report RUN`: one self-contained HTML page of a recorded run, to open, print or send. */
 import { basename, join } from 'node:path';
 import { parseCommandArgs } from '../parse-command-args.ts';
-import { collectRunReport, RunReportError } from '../../server/run-report.ts';
+import { collectRunReport, RunReportError, type RunReport } from '../../server/run-report.ts';
 import { renderRunReport } from '../../server/run-report-page.ts';
 import { CliError, outputFileOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
@@ -33,15 +33,16 @@ export function runReport(argv: string[], io: CommandIo): number {
   if (values.out !== undefined && !/\.html?$/i.test(values.out)) throw new CliError(`--out names the page to write and must end in .html, got "${values.out}"`);
   const recorded = readRecordedRun(positionals[0] as string);
   const outFile = outputFileOption('out', values.out ?? join(recorded.dir, 'report.html'));
-  let page: string;
+  let report: RunReport;
   try {
-    page = renderRunReport(collectRunReport(recorded.dir, basename(recorded.dir)));
+    report = collectRunReport(recorded.dir, basename(recorded.dir));
   } catch (error) {
     if (error instanceof RunReportError) throw new CliError(error.message, 1);
     throw error;
   }
-  writeOutputFile(outFile, page);
-  warnOfDamage(recorded, io);
+  writeOutputFile(outFile, renderRunReport(report));
+  // The report read the journal itself: its pass found the damage.
+  warnOfDamage(recorded, io, report.damage);
   io.out(`wrote ${outFile}`);
   return 0;
 }

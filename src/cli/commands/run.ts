@@ -17,11 +17,11 @@ import { createController, type ControllerState } from '../../pipeline/controlle
 import { CUT_REASON_WORDS, ESTIMATOR_WORDS, plannedCutWords, wordFor, type Estimator } from '../../pipeline/cut-words.ts';
 import type { RunEvent } from '../../pipeline/events.ts';
 import { createLiveRun } from '../../pipeline/live-run.ts';
-import { replayJournal } from '../../pipeline/replay.ts';
+import { runJournalToEnd } from '../../pipeline/replay.ts';
 import type { OperatorAction, ReadingSource } from '../../pipeline/types.ts';
 import { createRunHub, type RunHub } from '../../server/run-hub.ts';
 import { allowHostOption, CliError, estimatorOption, outputFolderOption } from '../cli-error.ts';
-import { readRecordedRecipe, readRecordedRun, warnOfDamage } from '../run-folder.ts';
+import { readRecordedRecipe, readRecordedRun, warnOfDamage, type RecordedRun } from '../run-folder.ts';
 import { serveDashboard } from '../serve-dashboard.ts';
 import { PLANT_OPTIONS, plantPlan, plantUsage, startPlant, stopPlant } from '../plant-options.ts';
 import { driveRun } from '../drive-run.ts';
@@ -84,12 +84,12 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
 
   let estimator = estimatorOption(values.estimator);
   let recipe: ResolvedRecipe;
-  let resumeFrom: ControllerState | undefined;
+  let recorded: RecordedRun | undefined;
   let runDir: string;
   let chamberFile = values.chamber;
   if (values.resume !== undefined) {
     if (positionals.length > 0) throw new CliError('--resume takes the recipe from the run; give no RECIPE');
-    const recorded = readRecordedRun(values.resume);
+    recorded = readRecordedRun(values.resume);
     runDir = recorded.dir;
     recipe = readRecordedRecipe(runDir, 'it is not a run folder fringe can resume');
     const journal = recorded.journal;
@@ -105,11 +105,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
       throw new CliError(`the run in ${runDir} decides on the ${recordedClock} clock; it resumes on it (leave out --clock)`);
     }
     runClock = recordedClock;
-    resumeFrom = replayJournal(journal.records, createController(recipe, { estimator, confirmCloses: journalConfirmsCloses(journal.header) })).state;
-    warnOfDamage(recorded, io);
-    if (resumeFrom.phase === 'finished' || resumeFrom.phase === 'aborted') throw new CliError(`the run in ${runDir} has already ${resumeFrom.phase === 'finished' ? 'finished' : 'been aborted'}`, 1);
     chamberFile ??= join(runDir, 'chamber.yaml');
-    io.err(`resuming ${runDir} at layer ${resumeFrom.index + 1} (${resumeFrom.phase}), run time ${resumeFrom.nowS.toFixed(1)} s`);
   } else {
     if (positionals.length !== 1) throw new CliError('run needs exactly one RECIPE file and --chamber FILE (see fringe run --help)');
     if (chamberFile === undefined) throw new CliError('run needs --chamber FILE: which instruments to read and which shutters to drive');
@@ -119,6 +115,18 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
   }
   const chamber = loadChamber(chamberFile);
   const plant = plantPlan(values, chamber.name, { settings: chamber.plant, file: chamberFile });
+  // The dashboard sees the live run through a hub; its commands step the controller at once.
+  const hub = values.serve || plant ? createRunHub({ recipe, source: 'live', runId: runDir.split(/[\\/]/).pop() ?? null }) : undefined;
+  let resumeFrom: ControllerState | undefined;
+  if (recorded) {
+    // The journal through the controller, and through the hub, so the dashboard shows the run
+    // as it stood (finished layers and their cuts, the alerts, the layer's trace), not from now.
+    const controller = createController(recipe, { estimator, confirmCloses: journalConfirmsCloses(recorded.journal.header) });
+    resumeFrom = runJournalToEnd(recorded.journal.records, controller, hub ? { onInput: hub.feed.input, onEvent: hub.feed.event } : {}, (replay) => hub?.attach(replay)).state;
+    warnOfDamage(recorded, io);
+    if (resumeFrom.phase === 'finished' || resumeFrom.phase === 'aborted') throw new CliError(`the run in ${runDir} has already ${resumeFrom.phase === 'finished' ? 'finished' : 'been aborted'}`, 1);
+    io.err(`resuming ${runDir} at layer ${resumeFrom.index + 1} (${resumeFrom.phase}), run time ${resumeFrom.nowS.toFixed(1)} s`);
+  }
   const drivers = openChamber(chamber);
   if (!drivers.shutter) {
     await drivers.close();
@@ -166,9 +174,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
     source.status.subscribe((s) => io.err(`${id}: ${s.state}${s.detail ? ` (${s.detail})` : ''}`)),
   );
 
-  // The dashboard sees the live run through a hub; its commands step the controller at once.
   let lastState: ControllerState = resumeFrom ?? controller.initial();
-  const hub = values.serve || plant ? createRunHub({ recipe, source: 'live', runId: runDir.split(/[\\/]/).pop() ?? null }) : undefined;
   journalAlerts.attach(journal, () => (Number.isFinite(lastState.nowS) ? lastState.nowS : 0), hub);
   hub?.attach({
     get state() {
