@@ -179,6 +179,8 @@ export interface ControllerState {
   readonly linksDown: readonly string[];
   /** Run time the run was last taken up again after a stop (NaN: never): the crystal's next reading is a fresh start. */
   readonly resumedAtS: number;
+  /** The optical monitor's rms noise as the last layer's readings showed it (NaN before any): see `fitNoise`. */
+  readonly monitorNoise: number;
 }
 
 /**
@@ -234,6 +236,7 @@ export function withReading(
     awaitingSinceS: s.awaitingSinceS,
     linksDown: s.linksDown,
     resumedAtS: s.resumedAtS,
+    monitorNoise: s.monitorNoise,
   };
 }
 

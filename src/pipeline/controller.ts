@@ -44,7 +44,7 @@ import {
   type ControllerState,
 } from './controller-state.ts';
 import { readCrystal } from './estimators/crystal.ts';
-import { fitClockAt, fitEstimateAt, modelFitRule, startFit } from './estimators/model-fit.ts';
+import { fitClockAt, fitEstimateAt, fitNoise, modelFitRule, startFit } from './estimators/model-fit.ts';
 import { confirmStep, startTurnDetector } from './estimators/turn-detector.ts';
 import type { RunEvent } from './events.ts';
 import { wantedMode } from './fallbacks.ts';
@@ -149,6 +149,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       awaitingSinceS: Number.NaN,
       linksDown: [],
       resumedAtS: Number.NaN,
+      monitorNoise: Number.NaN,
     };
   }
 
@@ -482,7 +483,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       rateAlerted: false,
       crystalAlerted: false,
       layerCrystalNm: Number.NaN,
-      fit: fitted ? startFit({ recipe, index: s.index, plan, stack: resolvedStack(recipe, s), materialIndex: s.materialIndex, materialRate: s.materialRate, noise, indexSigma: opts.indexSigma }, crystalAlive ? 'crystal' : 'time') : null,
+      fit: fitted ? startFit({ recipe, index: s.index, plan, stack: resolvedStack(recipe, s), materialIndex: s.materialIndex, materialRate: s.materialRate, noise: fitNoise(noise, s.monitorNoise), indexSigma: opts.indexSigma }, crystalAlive ? 'crystal' : 'time') : null,
     };
   }
 

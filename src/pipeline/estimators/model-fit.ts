@@ -49,6 +49,22 @@ export const RATE_RUN_SIGMA = 0.003;
  * of a nanometre or so (derived from config/sim/typical.yaml's 0.05 Hz and 3 Hz; allowed 0.5).
  */
 export const CLOCK_START_SIGMA_NM = 0.5;
+/**
+ * A monitor measured noisier than the recipe says by more than this factor is taken at its
+ * measured noise. The fit's Huber and spike thresholds are in units of the noise: at the
+ * recipe's 0.1 % on a monitor at 0.5 % (the harsh profile) a third of the honest readings counted
+ * as spikes and the rest were clipped, and the edge filter's first level layer came out 1.5×
+ * worse than the plain rule's. Within the factor the recipe's figure stands: the measurement
+ * from a layer's readings scatters by a few per cent, and a monitor a little noisier than
+ * stated costs the fit nothing measurable (common practice, no source).
+ */
+export const NOISIER_THAN_STATED = 1.5;
+
+/** The noise the fits take: the recipe's, or the monitor's as measured where it is clearly more (NaN: not measured yet). */
+export function fitNoise(statedNoise: number, measuredNoise: number): number {
+  return measuredNoise > NOISIER_THAN_STATED * statedNoise ? measuredNoise : statedNoise;
+}
+
 /** Bins of a layer's readings kept for the chip refit: while it grew, and after the close. */
 const RECORD_BINS = 60;
 const RECORD_BINS_AFTER = 6;
