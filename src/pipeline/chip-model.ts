@@ -11,7 +11,7 @@ import { DEFAULT_PRIORS } from '../model/plan/precision.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import type { ControllerContext } from './controller-options.ts';
 import { layerPlanOf, type ControllerState } from './controller-state.ts';
-import { CLOCK_START_SIGMA_NM, concludeFit, fitClockAt, fitNoise, RATE_RUN_SIGMA } from './estimators/model-fit.ts';
+import { CLOCK_START_SIGMA_NM, concludeFit, fitBridges, fitClockAt, fitNoise, RATE_RUN_SIGMA } from './estimators/model-fit.ts';
 import type { RunEvent } from './events.ts';
 import { resolvedStack } from './resolved-stack.ts';
 import type { RecipeLayer } from './rules/cut-rule.ts';
@@ -76,7 +76,8 @@ export function enterLayerFit(ctx: ControllerContext, s: ControllerState, skippe
   let materialRate = s.materialRate;
   let record: RefitLayer | null = null;
   const planned = layerPlanOf(s).cut;
-  const fitCut = s.mode === 'level' || s.mode === 'turning-point';
+  // The fit judged the layer: cut on it optically, or on the crystal it calibrated through a gap.
+  const fitCut = s.mode === 'level' || s.mode === 'turning-point' || fitBridges(s.fit, s.mode, planned);
   const watched = s.mode === planned && (planned === 'crystal' || planned === 'time');
   if (s.fit && !skipped && Number.isFinite(s.cutAtS) && (fitCut || watched)) {
     const closeClock = fitClockAt(layer, s.fit, s, s.cutAtS + layer.shutterDelayS);

@@ -170,18 +170,64 @@ export function fitEstimateAt(layer: RecipeLayer, run: FitRun, source: FitClockS
  * the planned one (1 on the time clock); it cuts at the reading nearest the right instant: up to
  * half a reading interval early.
  */
-export const modelFitRule: CutRule<FitNow> = {
-  estimate: ({ run, clockS }, now) => fitThickness(run, clockS, now.layer),
-  decide({ run, clockS }, now) {
-    const { layer, plan } = now;
-    const clockRate = run.clock === 'crystal' ? now.rateNmPerS / layer.rateNmPerS : 1;
-    const cutClock = run.fit.cutTimeS(plan.chipTargetNm + fitOvershootNm(now.mode, layer.overshootFraction, plan), layer.shutterDelayS * clockRate);
-    const halfStep = (0.5 * clockRate) / now.sampleRateHz;
-    if (!(now.armed && clockS + halfStep >= cutClock)) return null;
-    const est = run.fit.estimate(cutClock + layer.shutterDelayS * clockRate);
-    return cutAt('model-fit', est.thicknessNm / est.indexFactor / layer.chipRatio, now.delayNm);
-  },
-};
+export const modelFitRule: CutRule<FitNow> = fitCutRule('model-fit');
+
+/**
+ * An optical layer handed to the crystal while its monitor is away (or back with too little of
+ * the layer left, {@link leftToCrystal}): the crystal calibrated by the layer's own fit. On the
+ * crystal's clock the fit carries on without readings, u = u₀ + r·c: its rate r on that clock is
+ * this layer's calibration of the crystal (the material's earlier layers are its prior, so it
+ * knows at least what they knew), u₀ where the layer stood. The material's calibration alone cut
+ * the harsh profile's AR layer 4 at once when the monitor went quiet, 6 % thin.
+ */
+export const fitCalibratedCrystalRule: CutRule<FitNow> = fitCutRule('crystal-calibrated');
+
+/** Whether the fit cuts the layer through a gap of its monitor: an optical layer on the crystal, with the fit on the crystal's clock. */
+export function fitBridges(run: FitRun | null, mode: CutMode, planned: CutMode): boolean {
+  return run?.clock === 'crystal' && mode === 'crystal' && (planned === 'level' || planned === 'turning-point');
+}
+
+/**
+ * Below this much left of a layer (part nm) a monitor answering again leaves the layer with the
+ * crystal calibrated by the fit: the plan's precision of the optical cut over the recipe's
+ * tooling uncertainty (the plan's figure for the crystal, 1 % by default). What the crystal adds
+ * to the cut grows with what is left of the layer, at most that fraction of it when calibrated
+ * by the recipe alone (by the fit it does better), and below the floor it is within the optical
+ * cut's own precision: the readings after the gap could not improve the cut by anything the plan
+ * can tell, and they go into the fit all the same. Infinity where the recipe says the tooling is
+ * exact. The layers below are left out of the precision: they err alike for both cuts.
+ */
+export function resumeFloorNm(plan: LayerPlan, toolingSigmaPercent: number): number {
+  return toolingSigmaPercent > 0 ? plan.precisionNm / (toolingSigmaPercent / 100) : Number.POSITIVE_INFINITY;
+}
+
+/**
+ * Whether a layer the fit bridges stays with the crystal when its monitor answers again: what
+ * the fit says is left of it is under {@link resumeFloorNm}. Also that figure, part nm (NaN
+ * before the fit has readings enough).
+ */
+export function leftToCrystal(layer: RecipeLayer, plan: LayerPlan, run: FitRun, source: FitClockSource, timeS: number, toolingSigmaPercent: number): { stays: boolean; leftNm: number; floorNm: number } {
+  const estimate = fitEstimateAt(layer, run, source, timeS);
+  const leftNm = estimate ? plan.targetNm - estimate.thicknessNm : Number.NaN;
+  const floorNm = resumeFloorNm(plan, toolingSigmaPercent);
+  return { stays: leftNm < floorNm, leftNm, floorNm };
+}
+
+function fitCutRule(reason: 'model-fit' | 'crystal-calibrated'): CutRule<FitNow> {
+  return {
+    estimate: ({ run, clockS }, now) => fitThickness(run, clockS, now.layer),
+    decide({ run, clockS }, now) {
+      const { layer, plan } = now;
+      const clockRate = run.clock === 'crystal' ? now.rateNmPerS / layer.rateNmPerS : 1;
+      // The overshoot is the planned mode's, whichever instrument cuts the layer now.
+      const cutClock = run.fit.cutTimeS(plan.chipTargetNm + fitOvershootNm(plan.cut, layer.overshootFraction, plan), layer.shutterDelayS * clockRate);
+      const halfStep = (0.5 * clockRate) / now.sampleRateHz;
+      if (!(now.armed && clockS + halfStep >= cutClock)) return null;
+      const est = run.fit.estimate(cutClock + layer.shutterDelayS * clockRate);
+      return cutAt(reason, est.thicknessNm / est.indexFactor / layer.chipRatio, now.delayNm);
+    },
+  };
+}
 
 /**
  * A turning-point layer's set overshoot, for the fit: the recipe gives it as the fraction of the
