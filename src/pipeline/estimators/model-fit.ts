@@ -65,6 +65,9 @@ export function fitNoise(statedNoise: number, measuredNoise: number): number {
   return measuredNoise > NOISIER_THAN_STATED * statedNoise ? measuredNoise : statedNoise;
 }
 
+/** Readings the fit needs before it says anything of the layer. */
+const FIT_MIN_READINGS = 8;
+
 /** Bins of a layer's readings kept for the chip refit: while it grew, and after the close. */
 const RECORD_BINS = 60;
 const RECORD_BINS_AFTER = 6;
@@ -155,7 +158,7 @@ export function readFit(run: FitRun, clockS: number, value: number): void {
  */
 function fitThickness(run: FitRun, clockS: number, layer: RecipeLayer): ThicknessEstimate | null {
   const e = run.fit.estimate(clockS);
-  if (!Number.isFinite(e.thicknessNm) || !Number.isFinite(e.sigmaNm) || e.readings < 8) return null;
+  if (!Number.isFinite(e.thicknessNm) || !Number.isFinite(e.sigmaNm) || e.readings < FIT_MIN_READINGS) return null;
   return { thicknessNm: e.thicknessNm / layer.chipRatio, sigmaNm: e.sigmaNm / layer.chipRatio };
 }
 
@@ -182,9 +185,13 @@ export const modelFitRule: CutRule<FitNow> = fitCutRule('model-fit');
  */
 export const fitCalibratedCrystalRule: CutRule<FitNow> = fitCutRule('crystal-calibrated');
 
-/** Whether the fit cuts the layer through a gap of its monitor: an optical layer on the crystal, with the fit on the crystal's clock. */
+/**
+ * Whether the fit cuts the layer through a gap of its monitor: an optical layer on the crystal,
+ * with the fit on the crystal's clock and readings enough to have calibrated it (else the
+ * crystal's own rule cuts).
+ */
 export function fitBridges(run: FitRun | null, mode: CutMode, planned: CutMode): boolean {
-  return run?.clock === 'crystal' && mode === 'crystal' && (planned === 'level' || planned === 'turning-point');
+  return run?.clock === 'crystal' && mode === 'crystal' && (planned === 'level' || planned === 'turning-point') && run.fit.readings().times.length >= FIT_MIN_READINGS;
 }
 
 /**
