@@ -24,9 +24,8 @@ export function wantedMode(ctx: ControllerContext, s: ControllerState, plan: Lay
   const planned = plan.cut;
   if (planned === 'time') return s.mode;
   const optical = planned === 'level' || planned === 'turning-point';
-  const back = optical && !opticalSilent && s.nowS - s.optical.since >= opts.recoverS;
-  const resumes = s.fit !== null ? !monitorBackTooLate(ctx, s, plan) : planned === 'level' && gapHidesOneTurnAtMost(ctx, s, plan, crystalSilent);
-  const opticalUsable = optical && !opticalSilent && (s.mode === planned || (back && resumes));
+  const resumes = (): boolean => (s.fit !== null ? !monitorBackTooLate(ctx, s, plan) : planned === 'level' && gapHidesOneTurnAtMost(ctx, s, plan, crystalSilent));
+  const opticalUsable = optical && !opticalSilent && (s.mode === planned || (s.nowS - s.optical.since >= opts.recoverS && resumes()));
   if (opticalUsable) return planned;
   const crystalUsable = !crystalSilent && (s.mode === 'crystal' || s.nowS - s.crystal.since >= opts.recoverS);
   return crystalUsable ? 'crystal' : 'time';
