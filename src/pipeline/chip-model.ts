@@ -5,13 +5,13 @@
  * layers start from what they give.
  */
 import { compensate } from '../model/design/compensate.ts';
-import { refitChip, type RefitLayer, type RefitLayerResult } from '../model/estimate/index.ts';
+import { readingNoise, refitChip, type RefitLayer, type RefitLayerResult } from '../model/estimate/index.ts';
 import { scaledDispersion } from '../model/optics/dispersion.ts';
 import { DEFAULT_PRIORS } from '../model/plan/precision.ts';
 import type { ResolvedRecipe } from '../model/plan/recipe.ts';
 import type { ControllerContext } from './controller-options.ts';
 import { layerPlanOf, type ControllerState } from './controller-state.ts';
-import { CLOCK_START_SIGMA_NM, concludeFit, fitClockAt, RATE_RUN_SIGMA } from './estimators/model-fit.ts';
+import { CLOCK_START_SIGMA_NM, concludeFit, fitBridges, fitClockAt, fitNoise, RATE_RUN_SIGMA } from './estimators/model-fit.ts';
 import type { RunEvent } from './events.ts';
 import { resolvedStack } from './resolved-stack.ts';
 import type { RecipeLayer } from './rules/cut-rule.ts';
@@ -33,7 +33,7 @@ export function refitRecords(ctx: ControllerContext, s: ControllerState): Contro
   const first = (s.chipRecords[0] as RefitLayer).index;
   const priors = s.materialAfter[first - 1] ?? { rate: {}, index: {} };
   const result = refitChip(recipe, s.chipRecords, {
-    noise,
+    noise: fitNoise(noise, s.monitorNoise),
     fixedPartNm: stack.partNm,
     fixedIndexFactors: stack.indexFactors,
     ratePriors: priors.rate,
@@ -76,7 +76,8 @@ export function enterLayerFit(ctx: ControllerContext, s: ControllerState, skippe
   let materialRate = s.materialRate;
   let record: RefitLayer | null = null;
   const planned = layerPlanOf(s).cut;
-  const fitCut = s.mode === 'level' || s.mode === 'turning-point';
+  // The fit judged the layer: cut on it optically, or on the crystal it calibrated through a gap.
+  const fitCut = s.mode === 'level' || s.mode === 'turning-point' || fitBridges(s.fit, s.mode, planned);
   const watched = s.mode === planned && (planned === 'crystal' || planned === 'time');
   if (s.fit && !skipped && Number.isFinite(s.cutAtS) && (fitCut || watched)) {
     const closeClock = fitClockAt(layer, s.fit, s, s.cutAtS + layer.shutterDelayS);
@@ -103,7 +104,10 @@ export function enterLayerFit(ctx: ControllerContext, s: ControllerState, skippe
       }
     }
   }
-  return { state: { ...s, indexFactors, opticalNm, materialIndex, materialRate }, record };
+  // The monitor's noise as this layer's readings show it, for the fits of the layers after it.
+  const measured = s.fit ? readingNoise(s.fit.fit.readings().values) : Number.NaN;
+  const monitorNoise = Number.isFinite(measured) ? measured : s.monitorNoise;
+  return { state: { ...s, indexFactors, opticalNm, materialIndex, materialRate, monitorNoise }, record };
 }
 
 /**

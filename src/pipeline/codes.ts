@@ -16,6 +16,7 @@ export type AlertCode =
   | 'time-ceiling'
   | 'rate-out-of-band'
   | 'mode-restored'
+  | 'optical-back-late'
   | 'crystal-changed'
   | 'crystal-implausible'
   | 'optical-implausible'
@@ -52,6 +53,10 @@ export const ALERTS: Readonly<Record<AlertCode, { severity: Severity; sentence: 
   'time-ceiling': { severity: 'critical', sentence: 'The layer ran past its time ceiling and was cut.' },
   'rate-out-of-band': { severity: 'warning', sentence: 'The deposition rate is outside its allowed band.' },
   'mode-restored': { severity: 'info', sentence: 'The layer’s own monitor is answering again: the layer is back on its planned cut.' },
+  'optical-back-late': {
+    severity: 'info',
+    sentence: 'The optical monitor is answering again, with too little of the layer left for its cut to do better: the crystal, calibrated by the layer’s fit, keeps it.',
+  },
   'crystal-changed': { severity: 'warning', sentence: 'A fresh crystal has come into use: the layer’s thickness carries on from where the old crystal left it.' },
   'crystal-implausible': {
     severity: 'critical',

@@ -39,6 +39,8 @@ export interface OpticalTrack {
   readonly suspectValue: number;
   readonly erratic: boolean;
   readonly distrusted: boolean;
+  /** The present run of readings has been alerted as a monitor back too late to take its layer back from the crystal. */
+  readonly backTooLateSaid: boolean;
 }
 
 export interface CrystalTrack {
@@ -179,6 +181,8 @@ export interface ControllerState {
   readonly linksDown: readonly string[];
   /** Run time the run was last taken up again after a stop (NaN: never): the crystal's next reading is a fresh start. */
   readonly resumedAtS: number;
+  /** The optical monitor's rms noise as the last layer's readings showed it (NaN before any): see `fitNoise`. */
+  readonly monitorNoise: number;
 }
 
 /**
@@ -234,6 +238,7 @@ export function withReading(
     awaitingSinceS: s.awaitingSinceS,
     linksDown: s.linksDown,
     resumedAtS: s.resumedAtS,
+    monitorNoise: s.monitorNoise,
   };
 }
 
@@ -250,7 +255,7 @@ export function freshOptical(plan: LayerPlan | undefined): OpticalTrack {
     if (v > high) high = v;
   }
   const jumpLimit = high >= low ? 2 * (high - low) : 0;
-  return { value: Number.NaN, since: Number.NaN, gapFromS: Number.NaN, jumpLimit, suspects: 0, suspectValue: Number.NaN, erratic: false, distrusted: false };
+  return { value: Number.NaN, since: Number.NaN, gapFromS: Number.NaN, jumpLimit, suspects: 0, suspectValue: Number.NaN, erratic: false, distrusted: false, backTooLateSaid: false };
 }
 
 /** The plan of the layer in progress. */

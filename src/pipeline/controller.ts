@@ -44,10 +44,10 @@ import {
   type ControllerState,
 } from './controller-state.ts';
 import { readCrystal } from './estimators/crystal.ts';
-import { fitClockAt, fitEstimateAt, modelFitRule, startFit } from './estimators/model-fit.ts';
+import { fitBridges, fitCalibratedCrystalRule, fitClockAt, fitEstimateAt, fitNoise, leftToCrystal, modelFitRule, startFit } from './estimators/model-fit.ts';
 import { confirmStep, startTurnDetector } from './estimators/turn-detector.ts';
 import type { RunEvent } from './events.ts';
-import { wantedMode } from './fallbacks.ts';
+import { monitorBackTooLate, wantedMode } from './fallbacks.ts';
 import { readOptical } from './optical-channel.ts';
 import { crystalCalibratedRule } from './rules/crystal-calibrated.ts';
 import { crystalThicknessRule } from './rules/crystal-thickness.ts';
@@ -149,6 +149,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       awaitingSinceS: Number.NaN,
       linksDown: [],
       resumedAtS: Number.NaN,
+      monitorNoise: Number.NaN,
     };
   }
 
@@ -256,6 +257,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
    */
   function layerRule(s: ControllerState): LayerRule {
     if (s.fit && isOptical(s.mode)) return bound(modelFitRule, { run: s.fit, clockS: fitClockAt(layerRecipe(s), s.fit, s, s.nowS) });
+    if (s.fit && fitBridges(s.fit, s.mode, layerPlan(s).cut)) return bound(fitCalibratedCrystalRule, { run: s.fit, clockS: fitClockAt(layerRecipe(s), s.fit, s, s.nowS) });
     switch (s.mode) {
       case 'level':
         return bound(triggerLevelRule, s.turns);
@@ -300,6 +302,9 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
     if (crystalSilent && !s.crystalAlerted) s = alert({ ...s, crystalAlerted: true }, events, 'crystal-lost', ALERTS['crystal-lost'].sentence);
     const wanted = wantedMode(ctx, s, plan, opticalSilent, crystalSilent);
     if (wanted !== s.mode) s = changeMode(s, events, wanted, wanted === plan.cut ? 'mode-restored' : wanted === 'crystal' ? 'crystal-fallback' : 'time-fallback');
+    if (s.mode === 'crystal' && !opticalSilent && !s.optical.backTooLateSaid && s.nowS - s.optical.since >= opts.recoverS && monitorBackTooLate(ctx, s, plan)) {
+      s = alertBackTooLate(s, events, plan);
+    }
     const now = layerNow(s, crystalSilent);
 
     if (!s.rateAlerted && !crystalSilent && elapsed > 3 * opts.rateSmoothingS && Number.isFinite(s.crystal.rateNmPerS)) {
@@ -482,7 +487,7 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
       rateAlerted: false,
       crystalAlerted: false,
       layerCrystalNm: Number.NaN,
-      fit: fitted ? startFit({ recipe, index: s.index, plan, stack: resolvedStack(recipe, s), materialIndex: s.materialIndex, materialRate: s.materialRate, noise, indexSigma: opts.indexSigma }, crystalAlive ? 'crystal' : 'time') : null,
+      fit: fitted ? startFit({ recipe, index: s.index, plan, stack: resolvedStack(recipe, s), materialIndex: s.materialIndex, materialRate: s.materialRate, noise: fitNoise(noise, s.monitorNoise), indexSigma: opts.indexSigma }, crystalAlive ? 'crystal' : 'time') : null,
     };
   }
 
@@ -552,7 +557,15 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
   function changeMode(s: ControllerState, events: RunEvent[], to: CutMode, code: AlertCode): ControllerState {
     if (s.mode === to) return s;
     events.push({ type: 'mode-changed', timeS: s.nowS, layer: layerRecipe(s).number, from: s.mode, to });
-    return alert({ ...s, mode: to }, events, code, ALERTS[code].sentence);
+    const bridged = code === 'mode-restored' && fitBridges(s.fit, s.mode, to) ? ' (the model fit takes it on with the readings from both sides of the gap, bridged by the crystal)' : '';
+    return alert({ ...s, mode: to }, events, code, `${ALERTS[code].sentence}${bridged}`);
+  }
+
+  /** The monitor answering again with too little of its layer left: said once per run of readings, with the figures. */
+  function alertBackTooLate(s: ControllerState, events: RunEvent[], plan: LayerPlan): ControllerState {
+    const left = leftToCrystal(layerRecipe(s), plan, s.fit as NonNullable<ControllerState['fit']>, s, s.nowS, recipe.crystal.toolingSigmaPercent);
+    s = { ...s, optical: { ...s.optical, backTooLateSaid: true } };
+    return alert(s, events, 'optical-back-late', `${ALERTS['optical-back-late'].sentence} (${left.leftNm.toFixed(1)} nm left, under ${left.floorNm.toFixed(1)} nm)`);
   }
 
   return { recipe, options: opts, initial, step, estimate };

@@ -60,6 +60,7 @@ export function readOptical(ctx: ControllerContext, s: ControllerState, r: Readi
     suspectValue: Number.NaN,
     erratic: false,
     distrusted: false,
+    backTooLateSaid: unbroken && o.backTooLateSaid,
   };
   const turns = readTurns(s.turns, layerPlanOf(s), r.timeS, r.value, opts.turnSmoothingS);
   return withReading(s, r.timeS, r.timeS, s.lastCrystalS, optical, turns, s.crystal, s.layerCrystalNm);

@@ -4,6 +4,7 @@ export type { FinalEstimate, LayerEstimate, LayerFit, LayerFitOptions } from './
 export { buildIndexTables, buildSignalTable, layerSignalTable, signalAndSlope, SIGNAL_TABLE_STEP_NM } from './signal-table.ts';
 export type { IndexTables, SignalSource, SignalTable } from './signal-table.ts';
 export { refitChip } from './chip-refit.ts';
+export { readingNoise, READING_NOISE_MIN } from './reading-noise.ts';
 export type { ChipRefitOptions, ChipRefitResult, MaterialFactor, RefitLayer, RefitLayerResult } from './chip-refit.ts';
 export { buildBroadbandChip } from './broadband-chip.ts';
 export type { BroadbandChip, BroadbandChipSpec } from './broadband-chip.ts';

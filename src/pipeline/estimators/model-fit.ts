@@ -49,6 +49,25 @@ export const RATE_RUN_SIGMA = 0.003;
  * of a nanometre or so (derived from config/sim/typical.yaml's 0.05 Hz and 3 Hz; allowed 0.5).
  */
 export const CLOCK_START_SIGMA_NM = 0.5;
+/**
+ * A monitor measured noisier than the recipe says by more than this factor is taken at its
+ * measured noise. The fit's Huber and spike thresholds are in units of the noise: at the
+ * recipe's 0.1 % on a monitor at 0.5 % (the harsh profile) a third of the honest readings counted
+ * as spikes and the rest were clipped, and the edge filter's first level layer came out 1.5×
+ * worse than the plain rule's. Within the factor the recipe's figure stands: the measurement
+ * from a layer's readings scatters by a few per cent, and a monitor a little noisier than
+ * stated costs the fit nothing measurable (common practice, no source).
+ */
+export const NOISIER_THAN_STATED = 1.5;
+
+/** The noise the fits take: the recipe's, or the monitor's as measured where it is clearly more (NaN: not measured yet). */
+export function fitNoise(statedNoise: number, measuredNoise: number): number {
+  return measuredNoise > NOISIER_THAN_STATED * statedNoise ? measuredNoise : statedNoise;
+}
+
+/** Readings the fit needs before it says anything of the layer. */
+const FIT_MIN_READINGS = 8;
+
 /** Bins of a layer's readings kept for the chip refit: while it grew, and after the close. */
 const RECORD_BINS = 60;
 const RECORD_BINS_AFTER = 6;
@@ -139,7 +158,7 @@ export function readFit(run: FitRun, clockS: number, value: number): void {
  */
 function fitThickness(run: FitRun, clockS: number, layer: RecipeLayer): ThicknessEstimate | null {
   const e = run.fit.estimate(clockS);
-  if (!Number.isFinite(e.thicknessNm) || !Number.isFinite(e.sigmaNm) || e.readings < 8) return null;
+  if (!Number.isFinite(e.thicknessNm) || !Number.isFinite(e.sigmaNm) || e.readings < FIT_MIN_READINGS) return null;
   return { thicknessNm: e.thicknessNm / layer.chipRatio, sigmaNm: e.sigmaNm / layer.chipRatio };
 }
 
@@ -154,18 +173,68 @@ export function fitEstimateAt(layer: RecipeLayer, run: FitRun, source: FitClockS
  * the planned one (1 on the time clock); it cuts at the reading nearest the right instant: up to
  * half a reading interval early.
  */
-export const modelFitRule: CutRule<FitNow> = {
-  estimate: ({ run, clockS }, now) => fitThickness(run, clockS, now.layer),
-  decide({ run, clockS }, now) {
-    const { layer, plan } = now;
-    const clockRate = run.clock === 'crystal' ? now.rateNmPerS / layer.rateNmPerS : 1;
-    const cutClock = run.fit.cutTimeS(plan.chipTargetNm + fitOvershootNm(now.mode, layer.overshootFraction, plan), layer.shutterDelayS * clockRate);
-    const halfStep = (0.5 * clockRate) / now.sampleRateHz;
-    if (!(now.armed && clockS + halfStep >= cutClock)) return null;
-    const est = run.fit.estimate(cutClock + layer.shutterDelayS * clockRate);
-    return cutAt('model-fit', est.thicknessNm / est.indexFactor / layer.chipRatio, now.delayNm);
-  },
-};
+export const modelFitRule: CutRule<FitNow> = fitCutRule('model-fit');
+
+/**
+ * An optical layer handed to the crystal while its monitor is away (or back with too little of
+ * the layer left, {@link leftToCrystal}): the crystal calibrated by the layer's own fit. On the
+ * crystal's clock the fit carries on without readings, u = u₀ + r·c: its rate r on that clock is
+ * this layer's calibration of the crystal (the material's earlier layers are its prior, so it
+ * knows at least what they knew), u₀ where the layer stood. The material's calibration alone cut
+ * the harsh profile's AR layer 4 at once when the monitor went quiet, 6 % thin.
+ */
+export const fitCalibratedCrystalRule: CutRule<FitNow> = fitCutRule('crystal-calibrated');
+
+/**
+ * Whether the fit cuts the layer through a gap of its monitor: an optical layer on the crystal,
+ * with the fit on the crystal's clock and readings enough to have calibrated it (else the
+ * crystal's own rule cuts).
+ */
+export function fitBridges(run: FitRun | null, mode: CutMode, planned: CutMode): boolean {
+  return run?.clock === 'crystal' && mode === 'crystal' && (planned === 'level' || planned === 'turning-point') && run.fit.readings().times.length >= FIT_MIN_READINGS;
+}
+
+/**
+ * Below this much left of a layer (part nm) a monitor answering again leaves the layer with the
+ * crystal calibrated by the fit: the plan's precision of the optical cut over the recipe's
+ * tooling uncertainty (the plan's figure for the crystal, 1 % by default). What the crystal adds
+ * to the cut grows with what is left of the layer, at most that fraction of it when calibrated
+ * by the recipe alone (by the fit it does better), and below the floor it is within the optical
+ * cut's own precision: the readings after the gap could not improve the cut by anything the plan
+ * can tell, and they go into the fit all the same. Infinity where the recipe says the tooling is
+ * exact. The layers below are left out of the precision: they err alike for both cuts.
+ */
+export function resumeFloorNm(plan: LayerPlan, toolingSigmaPercent: number): number {
+  return toolingSigmaPercent > 0 ? plan.precisionNm / (toolingSigmaPercent / 100) : Number.POSITIVE_INFINITY;
+}
+
+/**
+ * Whether a layer the fit bridges stays with the crystal when its monitor answers again: what
+ * the fit says is left of it is under {@link resumeFloorNm}. Also that figure, part nm (NaN
+ * before the fit has readings enough).
+ */
+export function leftToCrystal(layer: RecipeLayer, plan: LayerPlan, run: FitRun, source: FitClockSource, timeS: number, toolingSigmaPercent: number): { stays: boolean; leftNm: number; floorNm: number } {
+  const estimate = fitEstimateAt(layer, run, source, timeS);
+  const leftNm = estimate ? plan.targetNm - estimate.thicknessNm : Number.NaN;
+  const floorNm = resumeFloorNm(plan, toolingSigmaPercent);
+  return { stays: leftNm < floorNm, leftNm, floorNm };
+}
+
+function fitCutRule(reason: 'model-fit' | 'crystal-calibrated'): CutRule<FitNow> {
+  return {
+    estimate: ({ run, clockS }, now) => fitThickness(run, clockS, now.layer),
+    decide({ run, clockS }, now) {
+      const { layer, plan } = now;
+      const clockRate = run.clock === 'crystal' ? now.rateNmPerS / layer.rateNmPerS : 1;
+      // The overshoot is the planned mode's, whichever instrument cuts the layer now.
+      const cutClock = run.fit.cutTimeS(plan.chipTargetNm + fitOvershootNm(plan.cut, layer.overshootFraction, plan), layer.shutterDelayS * clockRate);
+      const halfStep = (0.5 * clockRate) / now.sampleRateHz;
+      if (!(now.armed && clockS + halfStep >= cutClock)) return null;
+      const est = run.fit.estimate(cutClock + layer.shutterDelayS * clockRate);
+      return cutAt(reason, est.thicknessNm / est.indexFactor / layer.chipRatio, now.delayNm);
+    },
+  };
+}
 
 /**
  * A turning-point layer's set overshoot, for the fit: the recipe gives it as the fraction of the
