@@ -72,7 +72,8 @@ export function collectRunReport(dir: string, id: string): RunReport {
   }
   const journal = openJournal(join(dir, 'journal.ndjson'));
   // Two points a second of run time is plenty for a chart a few centimetres wide.
-  const hub = createRunHub({ recipe, source: 'replay', runId: id, pointsPerS: 2, maxTracePoints: 100_000, maxRatePoints: 100_000, maxLog: 1 });
+  const estimator = journalEstimator(journal.header);
+  const hub = createRunHub({ recipe, source: 'replay', runId: id, estimator, pointsPerS: 2, maxTracePoints: 100_000, maxRatePoints: 100_000, maxLog: 1 });
   const traces = new Map<number, { view: TraceView; measured: [number, number][] }>();
   hub.subscribe((message) => {
     if (message.type === 'event' && message.event.type === 'layer-started') {
@@ -82,7 +83,7 @@ export function collectRunReport(dir: string, id: string): RunReport {
       traces.get(message.layer)?.measured.push([message.point[2], message.point[1]]);
     }
   });
-  const controller = createController(recipe, { estimator: journalEstimator(journal.header), confirmCloses: journalConfirmsCloses(journal.header) });
+  const controller = createController(recipe, { estimator, confirmCloses: journalConfirmsCloses(journal.header) });
   const run = runJournalToEnd(journal.records, controller, { onInput: hub.feed.input, onEvent: hub.feed.event }, (r) => hub.attach(r));
   const snapshot = hub.snapshot();
   return {

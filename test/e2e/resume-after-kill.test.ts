@@ -88,6 +88,8 @@ describe('SIGKILL mid-layer and --resume, end to end over TCP', () => {
     expect(resumed.out()).toContain(`resuming ${runDir} at layer 3 (depositing), run time ${s.nowS.toFixed(1)} s`);
     const url = /dashboard: (http:\/\/\S+)/.exec(resumed.out())?.[1] as string;
     const snapshot = (await (await fetch(`${url}api/run/snapshot`)).json()) as RunSnapshot;
+    // The dashboard names the estimator the run cuts with (it said the plain rules' words for a fit).
+    expect(snapshot.estimator).toBe(journalEstimator(killed.header));
     for (const finished of finishedAtKill) {
       const row = snapshot.layers[finished.layer - 1];
       expect(row?.status, `layer ${finished.layer}`).toBe('past');

@@ -116,7 +116,7 @@ export async function runLive(argv: string[], io: CommandIo, deps: RunLiveDeps =
   const chamber = loadChamber(chamberFile);
   const plant = plantPlan(values, chamber.name, { settings: chamber.plant, file: chamberFile });
   // The dashboard sees the live run through a hub; its commands step the controller at once.
-  const hub = values.serve || plant ? createRunHub({ recipe, source: 'live', runId: runDir.split(/[\\/]/).pop() ?? null }) : undefined;
+  const hub = values.serve || plant ? createRunHub({ recipe, source: 'live', runId: runDir.split(/[\\/]/).pop() ?? null, estimator }) : undefined;
   let resumeFrom: ControllerState | undefined;
   if (recorded) {
     // The journal through the controller, and through the hub, so the dashboard shows the run
