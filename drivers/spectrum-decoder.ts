@@ -26,6 +26,7 @@
  */
 import { z } from 'zod';
 import { validate } from '../src/config/validation.ts';
+import { wavelengthRange } from '../src/model/plan/chip-spectrum.ts';
 import type { Fault, FaultCode, SpectrumReading } from '../src/pipeline/types.ts';
 import { FAULT_LINE_CHARS } from './line-framer.ts';
 
@@ -126,10 +127,7 @@ export function spectrumLineBytes(options: SpectrumFormOptions): number {
 /** The wavelengths a configured grid stands for. */
 export function gridFromConfig(grid: NonNullable<ResolvedSpectrumForm['grid']>): Float64Array {
   if (Array.isArray(grid)) return Float64Array.from(grid);
-  const { fromNm, toNm, stepNm } = grid;
-  // A step's rounding must not drop the last wavelength (400 + 250·2 is 900 exactly; 0.1 steps are not).
-  const count = Math.floor((toNm - fromNm) / stepNm + 1e-9) + 1;
-  return Float64Array.from({ length: count }, (_, i) => fromNm + i * stepNm);
+  return wavelengthRange(grid);
 }
 
 /**

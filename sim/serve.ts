@@ -11,7 +11,7 @@ import type { Duplex } from 'node:stream';
 import { SerialPort } from 'serialport';
 import type { ResolvedRecipe } from '../src/model/plan/recipe.ts';
 import type { ShutterCommand } from '../src/pipeline/types.ts';
-import { formatAck, formatReading, parseShutterCommand } from './line-format.ts';
+import { formatAck, formatReading, formatSpectrum, formatSpectrumHeader, parseShutterCommand } from './line-format.ts';
 import type { SimProfile } from './profile.ts';
 import { createVirtualChamber, type VirtualChamber } from './virtual-chamber.ts';
 
@@ -57,6 +57,7 @@ function startChamberOnWire(options: ServeOptions) {
   const speed = options.speed ?? 1;
   const applied: ShutterCommand[] = [];
   const refusedLines: string[] = [];
+  const spectralForm = options.profile.spectral?.form;
   const startMs = performance.now();
   let host: HostLink | undefined;
 
@@ -95,13 +96,19 @@ function startChamberOnWire(options: ServeOptions) {
       },
     };
     host = link;
+    // A host that connects learns the spectral grid first, as from a spectrometer's first frame.
+    if (spectralForm && chamber.spectralGridNm) stream.write(formatSpectrumHeader(chamber.spectralGridNm, spectralForm));
     return link;
   };
 
   const timer = setInterval(() => {
     const untilS = ((performance.now() - startMs) / 1000) * speed;
     const lines: string[] = [];
-    chamber.advance(untilS, (reading) => lines.push(formatReading(reading)));
+    chamber.advance(
+      untilS,
+      (reading) => lines.push(formatReading(reading)),
+      spectralForm ? (spectrum) => lines.push(formatSpectrum(spectrum, spectralForm)) : undefined,
+    );
     for (const ack of chamber.takeAcks()) lines.push(formatAck(ack));
     const stream = host?.stream;
     if (lines.length === 0 || !host || !stream?.writable) return;
