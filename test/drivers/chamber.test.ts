@@ -49,6 +49,9 @@ describe('the shipped chamber files', () => {
   });
 
   it('sim-tcp connects to 127.0.0.1:7301 and gets the default dialect, the same as spelled out in sim-serial', () => {
+    const spectral = loadChamber(join(root, 'sim-tcp-spectral.yaml'));
+    expect(spectral.instruments[0]?.channels).toEqual(['optical', 'crystal', 'spectral']);
+    expect(spectral.instruments[0]?.spectrum).toMatchObject({ form: 'table', headerTag: 'SPW', rowTag: 'SPC', timeField: true });
     const tcp = loadChamber(join(root, 'sim-tcp.yaml'));
     const serial = loadChamber(join(root, 'sim-serial.yaml'));
     expect(tcp.instruments[0]?.transport).toMatchObject({ kind: 'tcp', host: '127.0.0.1', port: 7301 });
