@@ -17,7 +17,7 @@
  * ```
  *
  * With a spectral monitor in the simulator profile, its spectra too, in the profile's form: a
- * header of the grid when a host connects, then a line per spectrum, the time with 3 decimals and
+ * header of the grid when a host connects and again every 50 spectra, a line per spectrum, the time with 3 decimals and
  * each value (a fraction) with 6; these lines are longer than MAX_LINE_CHARS (about 2.3 kB for
  * 251 wavelengths; the spectral form's own bound applies):
  *

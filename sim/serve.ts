@@ -36,6 +36,8 @@ export interface ServedChamber {
 
 /** Bytes a host may leave unread before the chamber drops its lines, as a full output buffer of an instrument would. */
 const MAX_UNREAD_BYTES = 1024 * 1024;
+/** The spectral grid's header is written again before every this many spectra (and to each host that connects). */
+const SPECTRA_PER_HEADER = 50;
 /** Longest partial line kept from the host. */
 const MAX_PENDING_CHARS = 4096;
 
@@ -58,6 +60,7 @@ function startChamberOnWire(options: ServeOptions) {
   const applied: ShutterCommand[] = [];
   const refusedLines: string[] = [];
   const spectralForm = options.profile.spectral?.form;
+  let spectraSent = 0;
   const startMs = performance.now();
   let host: HostLink | undefined;
 
@@ -107,7 +110,14 @@ function startChamberOnWire(options: ServeOptions) {
     chamber.advance(
       untilS,
       (reading) => lines.push(formatReading(reading)),
-      spectralForm ? (spectrum) => lines.push(formatSpectrum(spectrum, spectralForm)) : undefined,
+      spectralForm
+        ? (spectrum) => {
+            // The grid again every so often, as spectrometers on serial lines do: a host that
+            // opened its port late (a pseudo-terminal drops what nobody read) still learns it.
+            if (++spectraSent % SPECTRA_PER_HEADER === 0) lines.push(formatSpectrumHeader(spectrum.wavelengthsNm, spectralForm));
+            lines.push(formatSpectrum(spectrum, spectralForm));
+          }
+        : undefined,
     );
     for (const ack of chamber.takeAcks()) lines.push(formatAck(ack));
     const stream = host?.stream;
