@@ -38,6 +38,8 @@ export interface ServedChamber {
 const MAX_UNREAD_BYTES = 1024 * 1024;
 /** The spectral grid's header is written again before every this many spectra (and to each host that connects). */
 const SPECTRA_PER_HEADER = 50;
+/** How long closing waits for a host to take the chamber's last lines, ms. */
+const CLOSE_GRACE_MS = 1000;
 /** Longest partial line kept from the host. */
 const MAX_PENDING_CHARS = 4096;
 
@@ -153,7 +155,18 @@ export function serveOnStream(stream: Duplex, options: ServeOptions): ServedCham
     close: async () => {
       wire.stop();
       wire.host?.detach();
-      await new Promise<void>((resolve) => stream.end(resolve));
+      // A host that stopped reading leaves the stream full and `end` waiting for ever (a pseudo-
+      // terminal nobody reads): what it has not taken in a moment is dropped, as on a cut cable.
+      await new Promise<void>((resolve) => {
+        const cut = setTimeout(() => {
+          stream.destroy();
+          resolve();
+        }, CLOSE_GRACE_MS);
+        stream.end(() => {
+          clearTimeout(cut);
+          resolve();
+        });
+      });
     },
   };
 }
