@@ -40,6 +40,16 @@ function liveRun(profile: SimProfile): Decision[] {
 }
 
 describe('spectra in a live run', () => {
+  it('are left alone by the controller: the same state, no event, the clock where it was', () => {
+    const controller = createController(recipe, { estimator: 'fit' });
+    let state = controller.initial();
+    for (const input of [{ kind: 'reading', channel: 'optical', value: 0.9, timeS: 1, arrivalS: 1 }, { kind: 'operator', action: 'start', timeS: 1 }] as const) state = controller.step(state, input).state;
+    const grid = Float64Array.of(400, 500);
+    const result = controller.step(state, { kind: 'spectrum', channel: 'spectral', wavelengthsNm: grid, values: Float64Array.of(0.9, 0.8), timeS: 30, arrivalS: 30 });
+    expect(result.state).toBe(state);
+    expect(result.events).toEqual([]);
+  });
+
   it('pass through to the decisions’ consumers and leave every decision as it was', () => {
     const plain = liveRun(typical);
     const spectral = liveRun(SimProfileSchema.parse({ ...typical, spectral: { rateHz: 2, resolutionNm: 0 } }));
