@@ -5,9 +5,10 @@
  */
 import { z } from 'zod';
 import { loadConfigFile } from '../src/config/read-config.ts';
-import type { ChannelKind } from '../src/pipeline/types.ts';
+import type { InstrumentChannel } from '../src/pipeline/types.ts';
 import { PlantSettingsSchema } from '../src/plant/plant-settings.ts';
 import { ChannelKindSchema, FRINGE_DIALECT, LineDecoderOptionsSchema } from './line-decoder.ts';
+import { SpectrumFormSchema } from './spectrum-decoder.ts';
 import { LineFramerOptionsSchema } from './line-framer.ts';
 import { createLineLink, LineLinkSettingsSchema, RetryOptionsSchema, type LineLink } from './line-link.ts';
 import { createLineSource, type LineSource } from './line-source.ts';
@@ -27,7 +28,9 @@ export const InstrumentSchema = z.strictObject({
   /** How its lines read. Default: fringe's own format. */
   dialect: LineDecoderOptionsSchema.prefault(FRINGE_DIALECT),
   /** The channels it feeds; each channel is fed by one instrument. */
-  channels: z.array(ChannelKindSchema).min(1),
+  channels: z.array(z.enum([...ChannelKindSchema.options, 'spectral'])).min(1),
+  /** How its spectra read: needed with the `spectral` channel, and only then. */
+  spectrum: SpectrumFormSchema.optional(),
   ...LineLinkSettingsSchema.shape,
 });
 
@@ -53,7 +56,7 @@ export const ChamberSchema = z
   })
   .superRefine((chamber, ctx) => {
     const ids = new Map<string, number>();
-    const feeder = new Map<ChannelKind, number>();
+    const feeder = new Map<InstrumentChannel, number>();
     chamber.instruments.forEach((instrument, i) => {
       const earlier = ids.get(instrument.id);
       if (earlier !== undefined) ctx.addIssue({ code: 'custom', path: ['instruments', i, 'id'], input: instrument.id, message: `"${instrument.id}" is also instruments[${earlier}]` });
@@ -63,7 +66,22 @@ export const ChamberSchema = z
         if (other !== undefined) ctx.addIssue({ code: 'custom', path: ['instruments', i, 'channels', j], input: channel, message: `${channel} is already fed by instruments[${other}]` });
         else feeder.set(channel, i);
       });
+      const spectral = instrument.channels.includes('spectral');
+      if (spectral && instrument.spectrum === undefined) {
+        ctx.addIssue({ code: 'custom', path: ['instruments', i, 'spectrum'], input: undefined, message: 'needed for the spectral channel: how its frames read (form: table or json)' });
+      }
+      if (!spectral && instrument.spectrum !== undefined) {
+        ctx.addIssue({ code: 'custom', path: ['instruments', i, 'spectrum'], input: instrument.spectrum, message: 'only for an instrument that feeds the spectral channel' });
+      }
+      const scalar = instrument.channels.some((c) => c !== 'spectral');
+      const form = instrument.spectrum;
+      if (scalar && form !== undefined && (form.form === 'table' ? form.rowTag === undefined : form.match === undefined)) {
+        const at = form.form === 'table' ? 'rowTag' : 'match';
+        ctx.addIssue({ code: 'custom', path: ['instruments', i, 'spectrum', at], input: undefined, message: `needed when the port carries other channels too: what tells a spectrum's line from theirs` });
+      }
+      // An instrument of spectra alone leaves its (default) dialect unused: its channels are not checked.
       const d = instrument.dialect;
+      if (!scalar) return;
       if (d.channel !== undefined && !instrument.channels.includes(d.channel)) {
         ctx.addIssue({ code: 'custom', path: ['instruments', i, 'dialect', 'channel'], input: d.channel, message: `${d.channel} is not among this instrument's channels (${instrument.channels.join(', ')})` });
       }
@@ -125,8 +143,11 @@ export function openChamber(chamber: Chamber, deps: ChamberDeps = {}): ChamberDr
   let shutter: ShutterOutput | undefined;
   try {
     for (const instrument of chamber.instruments) {
-      const { transport, dialect, channels, framer, retry, staleAfterS } = instrument;
-      sources.set(instrument.id, createLineSource({ framer, retry, staleAfterS, ...clock, transport: transportFactory(transport, deps), dialect, channels }));
+      const { transport, dialect, channels, spectrum, framer, retry, staleAfterS } = instrument;
+      sources.set(
+        instrument.id,
+        createLineSource({ framer, retry, staleAfterS, ...clock, transport: transportFactory(transport, deps), dialect, channels, ...(spectrum ? { spectrum } : {}) }),
+      );
     }
     if (chamber.shutters) {
       const { transport, framer, retry, staleAfterS, ...settings } = chamber.shutters;

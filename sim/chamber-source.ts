@@ -4,7 +4,7 @@
  * it on virtual time). For full speed without a scheduler, step it directly (run-stepped.ts).
  */
 import { asyncScheduler, BehaviorSubject, Observable, Subject, type SchedulerLike } from 'rxjs';
-import type { Reading, ReadingSource, ShutterAck, ShutterCommand, ShutterFault, ShutterSink, SourceStatus } from '../src/pipeline/types.ts';
+import type { InstrumentReading, ReadingSource, ShutterAck, ShutterCommand, ShutterFault, ShutterSink, SourceStatus } from '../src/pipeline/types.ts';
 import type { VirtualChamber } from './virtual-chamber.ts';
 
 export interface ChamberSourceOptions {
@@ -25,7 +25,7 @@ export function createChamberSource(chamber: VirtualChamber, options: ChamberSou
   // In process, a command always reaches the chamber: a refused one is simply never acknowledged.
   const faults = new Subject<ShutterFault>();
   let stopped = false;
-  const readings = new Observable<Reading>((subscriber) => {
+  const readings = new Observable<InstrumentReading>((subscriber) => {
     const startMs = scheduler.now();
     // A fresh action each period (not a re-scheduled one: a virtual-time scheduler chains those
     // into one deep subscription).
@@ -34,7 +34,8 @@ export function createChamberSource(chamber: VirtualChamber, options: ChamberSou
         subscriber.complete();
         return;
       }
-      chamber.advance(((scheduler.now() - startMs) / 1000) * speed, (r) => subscriber.next(r));
+      const emit = (r: InstrumentReading): void => subscriber.next(r);
+      chamber.advance(((scheduler.now() - startMs) / 1000) * speed, emit, emit);
       for (const ack of chamber.takeAcks()) acks.next(ack);
       work = scheduler.schedule(advance, periodMs);
     }, 0);

@@ -16,6 +16,18 @@
  *                               the run time of the move, s, 3 decimals
  * ```
  *
+ * With a spectral monitor in the simulator profile, its spectra too, in the profile's form: a
+ * header of the grid when a host connects and again every 50 spectra, a line per spectrum, the time with 3 decimals and
+ * each value (a fraction) with 6; these lines are longer than MAX_LINE_CHARS (about 2.3 kB for
+ * 251 wavelengths; the spectral form's own bound applies):
+ *
+ * ```text
+ * SPW,<nm>,<nm>,…                          table form: the wavelengths, nm
+ * SPC,<time_s>,<value>,<value>,…           table form: one spectrum
+ * {"ch":"spectral","nm":[<nm>,…]}          json form: the wavelengths
+ * {"ch":"spectral","t":<time_s>,"v":[…]}   json form: one spectrum
+ * ```
+ *
  * From the host to the chamber:
  *
  * ```text
@@ -39,7 +51,7 @@
  * Every parser returns a value, never throws: the message, or a {@link Fault} saying what is
  * wrong and at which character.
  */
-import type { ChannelKind, Fault, FaultCode, Reading, ShutterAck, ShutterCommand } from '../src/pipeline/types.ts';
+import type { ChannelKind, Fault, FaultCode, Reading, ShutterAck, ShutterCommand, SpectrumReading } from '../src/pipeline/types.ts';
 
 /** Longest line accepted, characters without the line end. */
 export const MAX_LINE_CHARS = 200;
@@ -62,6 +74,22 @@ export function formatReading(reading: Reading): string {
   const tag = reading.channel === 'optical' ? 'OPT' : 'XTL';
   const decimals = reading.channel === 'optical' ? OPTICAL_DECIMALS : CRYSTAL_DECIMALS;
   return `${tag},${fixed(reading.timeS, TIME_DECIMALS)},${fixed(reading.value, decimals)}\n`;
+}
+
+/** The forms the chamber writes spectra in (the chamber file reads them with `FRINGE_SPECTRUM_TABLE` or `FRINGE_SPECTRUM_JSON`). */
+export type SpectrumLineForm = 'table' | 'json';
+
+/** The grid's header line: `SPW,<nm>,…\n` or `{"ch":"spectral","nm":[…]}\n`. */
+export function formatSpectrumHeader(wavelengthsNm: ArrayLike<number>, form: SpectrumLineForm): string {
+  const nm = Array.from(wavelengthsNm);
+  return form === 'table' ? `SPW,${nm.join(',')}\n` : `${JSON.stringify({ ch: 'spectral', nm })}\n`;
+}
+
+/** One spectrum's line: `SPC,<time_s>,<value>,…\n` or `{"ch":"spectral","t":…,"v":[…]}\n`. */
+export function formatSpectrum(spectrum: SpectrumReading, form: SpectrumLineForm): string {
+  const values = Array.from(spectrum.values, (v) => fixed(v, OPTICAL_DECIMALS));
+  const t = fixed(spectrum.timeS, TIME_DECIMALS);
+  return form === 'table' ? `SPC,${t},${values.join(',')}\n` : `{"ch":"spectral","t":${t},"v":[${values.join(',')}]}\n`;
 }
 
 /** `SHUTTER <source> OPEN|CLOSE <layer>\n`. */

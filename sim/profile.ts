@@ -174,6 +174,37 @@ export const SpectrophotometerSettingsSchema = z.strictObject({
 });
 export type SpectrophotometerSettings = z.infer<typeof SpectrophotometerSettingsSchema>;
 
+/**
+ * A spectrometer on the witness chip (issue 15): a spectrum of the chip's T or R (the monitor
+ * layer's signal and angle) on a grid of its own, every 1/rate s. Each value is
+ * g(t)·(S + s)/(1 + s) + o(t) + ε: S the true spectrum averaged over the slit, s the stray light
+ * (light reaching the detector whatever the chip passes, in the reference frame too; common
+ * practice, no source), g and o the baseline's linear drifts, ε white noise per wavelength.
+ */
+export const SpectralMonitorSettingsSchema = z.strictObject({
+  /** The instrument's wavelengths, nm: `fromNm`, `fromNm + stepNm`, … up to `toNm`. Default 400–900 nm in 2 nm steps. */
+  grid: z
+    .strictObject({ fromNm: positive, toNm: positive, stepNm: positive })
+    .refine((g) => g.toNm > g.fromNm, { path: ['toNm'], message: 'must be above fromNm' })
+    .refine((g) => (g.toNm - g.fromNm) / g.stepNm < 16_384, { path: ['stepNm'], message: 'gives more than 16384 wavelengths' })
+    .default({ fromNm: 400, toNm: 900, stepNm: 2 }),
+  /** Spectra per second. Default 5. */
+  rateHz: positive.max(1000).default(5),
+  /** rms of the white noise of one value, percent of full scale. Default 0.2. */
+  noisePercent: nonNegative.max(20).default(0.2),
+  /** Linear drift of the gain with run time, percent per hour (gain 1 at t = 0). Default 0.5. */
+  gainDriftPercentPerHour: finite.min(-100).max(100).default(0.5),
+  /** Linear drift of the offset with run time, percent of full scale per hour. Default 0.05. */
+  offsetDriftPercentPerHour: finite.min(-100).max(100).default(0.05),
+  /** Stray light s, percent of the reference level. Default 0.1. */
+  strayLightPercent: nonNegative.max(50).default(0.1),
+  /** FWHM of the triangular slit function, nm; 0: the value at each wavelength itself. Default 3. */
+  resolutionNm: nonNegative.max(100).default(3),
+  /** How the chamber writes them: `table` (SPW header, SPC lines) or `json` (one object a line). Default table. */
+  form: z.enum(['table', 'json']).default('table'),
+});
+export type SpectralMonitorSettings = z.infer<typeof SpectralMonitorSettingsSchema>;
+
 export const SimProfileSchema = z.strictObject({
   formatVersion: z.literal(1),
   name: z.string().min(1),
@@ -185,6 +216,8 @@ export const SimProfileSchema = z.strictObject({
   optical: OpticalSettingsSchema.prefault({}),
   crystal: CrystalSettingsSchema.prefault({}),
   spectrophotometer: SpectrophotometerSettingsSchema.prefault({}),
+  /** A spectral monitor on the witness chip; absent: none. */
+  spectral: SpectralMonitorSettingsSchema.optional(),
 });
 export type SimProfile = z.infer<typeof SimProfileSchema>;
 

@@ -11,7 +11,7 @@ import type { Duplex } from 'node:stream';
 import { SerialPort } from 'serialport';
 import type { ResolvedRecipe } from '../src/model/plan/recipe.ts';
 import type { ShutterCommand } from '../src/pipeline/types.ts';
-import { formatAck, formatReading, parseShutterCommand } from './line-format.ts';
+import { formatAck, formatReading, formatSpectrum, formatSpectrumHeader, parseShutterCommand } from './line-format.ts';
 import type { SimProfile } from './profile.ts';
 import { createVirtualChamber, type VirtualChamber } from './virtual-chamber.ts';
 
@@ -36,6 +36,10 @@ export interface ServedChamber {
 
 /** Bytes a host may leave unread before the chamber drops its lines, as a full output buffer of an instrument would. */
 const MAX_UNREAD_BYTES = 1024 * 1024;
+/** The spectral grid's header is written again before every this many spectra (and to each host that connects). */
+const SPECTRA_PER_HEADER = 50;
+/** How long closing waits for a host to take the chamber's last lines, ms. */
+const CLOSE_GRACE_MS = 1000;
 /** Longest partial line kept from the host. */
 const MAX_PENDING_CHARS = 4096;
 
@@ -57,6 +61,8 @@ function startChamberOnWire(options: ServeOptions) {
   const speed = options.speed ?? 1;
   const applied: ShutterCommand[] = [];
   const refusedLines: string[] = [];
+  const spectralForm = options.profile.spectral?.form;
+  let spectraSent = 0;
   const startMs = performance.now();
   let host: HostLink | undefined;
 
@@ -95,13 +101,26 @@ function startChamberOnWire(options: ServeOptions) {
       },
     };
     host = link;
+    // A host that connects learns the spectral grid first, as from a spectrometer's first frame.
+    if (spectralForm && chamber.spectralGridNm) stream.write(formatSpectrumHeader(chamber.spectralGridNm, spectralForm));
     return link;
   };
 
   const timer = setInterval(() => {
     const untilS = ((performance.now() - startMs) / 1000) * speed;
     const lines: string[] = [];
-    chamber.advance(untilS, (reading) => lines.push(formatReading(reading)));
+    chamber.advance(
+      untilS,
+      (reading) => lines.push(formatReading(reading)),
+      spectralForm
+        ? (spectrum) => {
+            // The grid again every so often, as spectrometers on serial lines do: a host that
+            // opened its port late (a pseudo-terminal drops what nobody read) still learns it.
+            if (++spectraSent % SPECTRA_PER_HEADER === 0) lines.push(formatSpectrumHeader(spectrum.wavelengthsNm, spectralForm));
+            lines.push(formatSpectrum(spectrum, spectralForm));
+          }
+        : undefined,
+    );
     for (const ack of chamber.takeAcks()) lines.push(formatAck(ack));
     const stream = host?.stream;
     if (lines.length === 0 || !host || !stream?.writable) return;
@@ -136,7 +155,18 @@ export function serveOnStream(stream: Duplex, options: ServeOptions): ServedCham
     close: async () => {
       wire.stop();
       wire.host?.detach();
-      await new Promise<void>((resolve) => stream.end(resolve));
+      // A host that stopped reading leaves the stream full and `end` waiting for ever (a pseudo-
+      // terminal nobody reads): what it has not taken in a moment is dropped, as on a cut cable.
+      await new Promise<void>((resolve) => {
+        const cut = setTimeout(() => {
+          stream.destroy();
+          resolve();
+        }, CLOSE_GRACE_MS);
+        stream.end(() => {
+          clearTimeout(cut);
+          resolve();
+        });
+      });
     },
   };
 }

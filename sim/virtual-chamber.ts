@@ -28,6 +28,10 @@
  *   monitor wavelength, pass band, angle and signal. The monitor follows the layer that opened
  *   last (a new chip starts bare when its first layer opens) and keeps that layer's settings
  *   until the next one opens; before the first open it shows layer 1's chip at layer 1's settings.
+ * - Spectrum at t (a `spectral` monitor in the profile, every 1/rate s from 0, after the optical
+ *   and crystal readings of the same instant): per grid wavelength g(t)·(S + s)/(1 + s) + o(t) + ε
+ *   (`SpectralMonitorSettingsSchema`), S the chip's T or R on the true chip stack at the monitor
+ *   layer's angle and signal, averaged over the slit; noise from its own random stream.
  * - Crystal reading at t: stackFrequencyHz(f_bare, true crystal layers including the growing
  *   one) + shift·h(t) + ε (+ the mode hop after its time), h the heat load (profile notes).
  * - Determinism: the seed fixes every random number (one sub-stream per purpose, `random.ts`);
@@ -37,10 +41,11 @@ import { deepFreeze } from '../src/config/read-config.ts';
 import { stackFrequencyHz, crystalLifeUsed, type CrystalLayer } from '../src/model/crystal/index.ts';
 import { indexAt, scaledDispersion, type Dispersion } from '../src/model/optics/dispersion.ts';
 import type { ChipMonitor } from '../src/model/plan/chip-monitor.ts';
+import { buildChipSpectrum, wavelengthRange, type ChipSpectrum } from '../src/model/plan/chip-spectrum.ts';
 import { layerMonitor } from '../src/model/plan/plan.ts';
 import type { LayerRecipe, ResolvedRecipe } from '../src/model/plan/recipe.ts';
 import type { StackSpec } from '../src/model/optics/optical-model.ts';
-import type { Reading, ShutterAck, ShutterCommand } from '../src/pipeline/types.ts';
+import type { Reading, ShutterAck, ShutterCommand, SpectrumReading } from '../src/pipeline/types.ts';
 import { materialSettingsFor, sourceSettingsFor, type SimProfile, type SourceSettings } from './profile.ts';
 import { createRandomStream, type RandomStream } from './random.ts';
 import { SourceRate } from './source-rate.ts';
@@ -51,8 +56,14 @@ export const INHOMOGENEITY_SLICES = 8;
 export interface VirtualChamber {
   /** The chamber's clock, s: where the last `advance` left it. */
   readonly timeS: number;
-  /** Produces every reading due up to `untilS` (inclusive), in time order, into `sink`. */
-  advance(untilS: number, sink: (reading: Reading) => void): void;
+  /**
+   * Produces every reading due up to `untilS` (inclusive), in time order, into `sink`; with a
+   * spectral monitor in the profile, its spectra into `spectra` (without that sink none are
+   * computed, and the other readings are the same either way).
+   */
+  advance(untilS: number, sink: (reading: Reading) => void, spectra?: (spectrum: SpectrumReading) => void): void;
+  /** The spectral monitor's wavelengths, nm (undefined without one in the profile): every spectrum carries this array. */
+  readonly spectralGridNm: Float64Array | undefined;
   /** Time the next reading is due, s (a crystal sample may find the crystal failed and give none). */
   nextReadingTimeS(): number;
   /**
@@ -311,6 +322,43 @@ export function createVirtualChamber(recipe: ResolvedRecipe, profile: SimProfile
   let monitorSlices = 0;
   let monitor: ChipMonitor = layerMonitor(recipe, firstLayer, [], (materials.get(firstLayer.materialName) as MaterialState).dispersion);
 
+  // The spectral monitor: its grid, the chip's spectrum built with the monitor (the layers below
+  // precomputed, so a spectrum costs one layer per sub-wavelength), and its baseline and noise.
+  const spectral = profile.spectral;
+  const spectralGridNm = spectral === undefined ? undefined : wavelengthRange(spectral.grid);
+  const spectralNoise = createRandomStream(seed, 'spectral/noise');
+  let spectralIndex = 0;
+  const chipSpectrumOf = (layer: LayerRecipe, below: { dispersion: Dispersion; thicknessNm: number }[], growing: Dispersion): ChipSpectrum | null => {
+    if (spectral === undefined || spectralGridNm === undefined) return null;
+    const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
+    return buildChipSpectrum({
+      incident: recipe.incident,
+      substrate: chip.substrate,
+      back: chip.back,
+      substrateThicknessNm: chip.thicknessMm * 1e6,
+      below,
+      growing,
+      angleDeg: layer.angleDeg,
+      signal: layer.signal,
+      gridNm: spectralGridNm,
+      resolutionNm: spectral.resolutionNm,
+    });
+  };
+  let chipSpectrum: ChipSpectrum | null = null;
+  if (spectral !== undefined) {
+    // Every material on every chip must have data over the grid and its slit: refused now, not mid-run.
+    for (const [i, chip] of recipe.chips.entries()) {
+      const onChip = recipe.layers.filter((l) => l.chip === i);
+      const layer = onChip[0] ?? firstLayer;
+      try {
+        chipSpectrumOf(layer, onChip.map((l) => ({ dispersion: (materials.get(l.materialName) as MaterialState).dispersion, thicknessNm: 0 })), chip.substrate);
+      } catch (error) {
+        throw new RangeError(`the profile's spectral monitor cannot see chip ${i + 1}: ${(error as Error).message}`, { cause: error });
+      }
+    }
+    chipSpectrum = chipSpectrumOf(firstLayer, [], (materials.get(firstLayer.materialName) as MaterialState).dispersion);
+  }
+
   function chipNmOf(layer: LayerState): number {
     return layer.partNm * layer.source.chipFactor;
   }
@@ -356,6 +404,7 @@ export function createVirtualChamber(recipe: ResolvedRecipe, profile: SimProfile
     monitorLayer = layer;
     monitorSlices = full;
     monitor = layerMonitor(recipe, layer.recipe, below, sliceDispersion(layer, full));
+    chipSpectrum = chipSpectrumOf(layer.recipe, below, sliceDispersion(layer, full));
   }
 
   /** The growing slice's thickness on the chip, rebuilding the monitor when a slice completed. */
@@ -470,6 +519,26 @@ export function createVirtualChamber(recipe: ResolvedRecipe, profile: SimProfile
     sink({ kind: 'reading', channel: 'optical', value, timeS: t, arrivalS: t });
   }
 
+  function spectralTimeS(i: number): number {
+    return i / (spectral as NonNullable<typeof spectral>).rateHz;
+  }
+
+  function emitSpectrum(t: number, sink: (spectrum: SpectrumReading) => void): void {
+    const settings = spectral as NonNullable<typeof spectral>;
+    const grid = spectralGridNm as Float64Array;
+    const thicknessNm = monitorThicknessNm(); // first: it may rebuild the chip's spectrum
+    const values = (chipSpectrum as ChipSpectrum).spectrumAt(new Float64Array(grid.length), thicknessNm);
+    const stray = settings.strayLightPercent / 100;
+    const gain = 1 + (settings.gainDriftPercentPerHour / 100 / 3600) * t;
+    const offset = (settings.offsetDriftPercentPerHour / 100 / 3600) * t;
+    const sigma = settings.noisePercent / 100;
+    for (let i = 0; i < values.length; i++) {
+      const noise = sigma > 0 ? sigma * spectralNoise.gaussian() : 0;
+      values[i] = (gain * ((values[i] as number) + stray)) / (1 + stray) + offset + noise;
+    }
+    sink({ kind: 'spectrum', channel: 'spectral', wavelengthsNm: grid, values, timeS: t, arrivalS: t });
+  }
+
   function emitCrystal(t: number, sink: (reading: Reading) => void): void {
     const fMass = stackFrequencyHz(f0, crystalStack);
     if (failAt < 1 && crystalLifeUsed(f0, fMass, fMin) >= failAt) {
@@ -491,14 +560,20 @@ export function createVirtualChamber(recipe: ResolvedRecipe, profile: SimProfile
       return timeS;
     },
 
-    advance(untilS: number, sink: (reading: Reading) => void): void {
+    get spectralGridNm() {
+      return spectralGridNm;
+    },
+
+    advance(untilS: number, sink: (reading: Reading) => void, spectra?: (spectrum: SpectrumReading) => void): void {
       if (!Number.isFinite(untilS)) throw new RangeError(`advance needs a finite time, got ${untilS}`);
       for (;;) {
         const next = pending[0];
         const tMove = next === undefined ? Number.POSITIVE_INFINITY : next.moveS;
         const tOpt = opticalTimeS(optIndex);
         const tXtl = failedAtS === failedAtS ? Number.POSITIVE_INFINITY : crystalTimeS(xtlIndex);
-        const t = tMove < tOpt ? (tMove < tXtl ? tMove : tXtl) : tOpt < tXtl ? tOpt : tXtl;
+        const tReading = tMove < tOpt ? (tMove < tXtl ? tMove : tXtl) : tOpt < tXtl ? tOpt : tXtl;
+        const tSpec = spectral === undefined ? Number.POSITIVE_INFINITY : spectralTimeS(spectralIndex);
+        const t = tSpec < tReading ? tSpec : tReading;
         if (t > untilS) break;
         moveTo(t);
         if (tMove === t) {
@@ -508,9 +583,12 @@ export function createVirtualChamber(recipe: ResolvedRecipe, profile: SimProfile
           optIndex++;
           dropouts.commit(t);
           emitOptical(t, sink);
-        } else {
+        } else if (tXtl === t) {
           xtlIndex++;
           emitCrystal(t, sink);
+        } else {
+          spectralIndex++;
+          if (spectra) emitSpectrum(t, spectra);
         }
       }
       moveTo(untilS);

@@ -4,6 +4,9 @@
  *
  *   {"journal":"fringe","version":1,"runId":"…","startedAt":"…","recipe":"…",…}   first line
  *   {"k":"r","c":"o","t":12.3,"v":0.91234,"a":12.3}     reading (c: o optical, x crystal)
+ *   {"k":"g","g":1,"nm":[400,402,…]}                     a spectral grid, before its first spectrum
+ *   {"k":"s","g":1,"t":12.3,"a":12.3,"q":6,"v":[912345,…]}   a spectrum on grid 1: with `q`, each
+ *                                                        value is v/10^q exactly; without, v as is
  *   {"k":"i","t":12.4,"input":{…}}                      another input (operator, fault, ack)
  *   {"k":"e","event":{…}}                                 an event the controller decided
  *   {"k":"m","t":80.2,"mark":"resumed","at":"…","meta":{…}}   a note on the run itself (not an
@@ -19,7 +22,7 @@
  * they skipped: one torn write must not cost the rest of the run.
  */
 import type { RunEvent } from '../pipeline/events.ts';
-import type { PipelineInput, Reading } from '../pipeline/types.ts';
+import type { PipelineInput, Reading, SpectrumReading } from '../pipeline/types.ts';
 
 export const JOURNAL_VERSION = 1;
 
@@ -55,9 +58,32 @@ export interface JournalMark {
   readonly meta: Readonly<Record<string, unknown>>;
 }
 
+/** A spectral monitor's wavelength grid, numbered in the journal; written once, before its first spectrum. */
+export interface GridRecord {
+  readonly k: 'g';
+  readonly g: number;
+  readonly nm: readonly number[];
+}
+
+/**
+ * A spectrum on grid `g`. With `q` the values are integers, each value being v / 10^q exactly
+ * (what an instrument sent as decimals is stored in its own digits, no longer); without `q` the
+ * values are the numbers themselves. Either way it reads back to the same doubles.
+ */
+export interface SpectrumRecord {
+  readonly k: 's';
+  readonly g: number;
+  readonly t: number;
+  readonly a: number;
+  readonly q?: number;
+  readonly v: readonly number[];
+}
+
 export type JournalRecord =
   | { readonly k: 'r'; readonly c: 'o' | 'x'; readonly t: number; readonly v: number; readonly a: number }
-  | { readonly k: 'i'; readonly t: number; readonly input: Exclude<PipelineInput, Reading> }
+  | GridRecord
+  | SpectrumRecord
+  | { readonly k: 'i'; readonly t: number; readonly input: Exclude<PipelineInput, Reading | SpectrumReading> }
   | { readonly k: 'e'; readonly event: RunEvent }
   | JournalMark;
 
@@ -86,8 +112,19 @@ export function isJournalRecord(value: unknown): value is JournalRecord {
   switch (value.k) {
     case 'r':
       return (value.c === 'o' || value.c === 'x') && typeof value.t === 'number' && typeof value.v === 'number' && typeof value.a === 'number';
+    case 'g':
+      return Number.isSafeInteger(value.g) && Array.isArray(value.nm) && value.nm.length > 0 && value.nm.every((v) => typeof v === 'number');
+    case 's':
+      return (
+        Number.isSafeInteger(value.g) &&
+        typeof value.t === 'number' &&
+        typeof value.a === 'number' &&
+        (value.q === undefined || (Number.isInteger(value.q) && (value.q as number) >= 0 && (value.q as number) <= MAX_DECIMALS)) &&
+        Array.isArray(value.v) &&
+        value.v.every((v) => typeof v === 'number')
+      );
     case 'i':
-      return typeof value.t === 'number' && isObject(value.input) && typeof value.input.kind === 'string' && value.input.kind !== 'reading';
+      return typeof value.t === 'number' && isObject(value.input) && typeof value.input.kind === 'string' && value.input.kind !== 'reading' && value.input.kind !== 'spectrum';
     case 'e':
       return isObject(value.event) && typeof value.event.type === 'string' && typeof value.event.timeS === 'number';
     case 'm':
@@ -101,12 +138,111 @@ export function readingRecord(r: Reading): JournalRecord {
   return { k: 'r', c: r.channel === 'optical' ? 'o' : 'x', t: r.timeS, v: r.value, a: r.arrivalS };
 }
 
+/**
+ * The input a record holds (a reading or another input), or undefined for an event, a mark, a
+ * grid, and a spectrum (whose grid only a reader that has seen it knows: {@link createInputReader}).
+ */
 export function recordToInput(record: JournalRecord): PipelineInput | undefined {
   if (record.k === 'r') {
     return { kind: 'reading', channel: record.c === 'o' ? 'optical' : 'crystal', value: record.v, timeS: record.t, arrivalS: record.a };
   }
   if (record.k === 'i') return record.input;
   return undefined;
+}
+
+/** Most decimals a spectrum is stored with as integers (more would pass 2^53 for values near 1). */
+const MAX_DECIMALS = 9;
+const POWERS = Array.from({ length: MAX_DECIMALS + 1 }, (_, q) => 10 ** q);
+
+/**
+ * The write side of spectra: the records for one spectrum, its grid's record first whenever the
+ * grid is one not written yet (a channel's grid is fixed, so that is once a run).
+ */
+export function createSpectrumRecorder(): (spectrum: SpectrumReading) => JournalRecord[] {
+  let last: { nm: Float64Array; g: number } | undefined;
+  return (spectrum) => {
+    const out: JournalRecord[] = [];
+    const nm = spectrum.wavelengthsNm;
+    if (last === undefined || (last.nm !== nm && !sameValues(last.nm, nm))) {
+      last = { nm, g: (last?.g ?? 0) + 1 };
+      out.push({ k: 'g', g: last.g, nm: Array.from(nm) });
+    }
+    const q = decimalsOf(spectrum.values);
+    const v = Array.from(spectrum.values);
+    if (q === undefined) out.push({ k: 's', g: last.g, t: spectrum.timeS, a: spectrum.arrivalS, v });
+    else {
+      const scale = POWERS[q] as number;
+      for (let i = 0; i < v.length; i++) v[i] = Math.round((v[i] as number) * scale);
+      out.push({ k: 's', g: last.g, t: spectrum.timeS, a: spectrum.arrivalS, q, v });
+    }
+    return out;
+  };
+}
+
+function sameValues(a: Float64Array, b: Float64Array): boolean {
+  if (a.length !== b.length) return false;
+  for (let i = 0; i < a.length; i++) if (a[i] !== b[i]) return false;
+  return true;
+}
+
+/**
+ * The fewest decimals q with every value exactly round(v·10^q)/10^q (a value read from q
+ * decimals of text is: the quotient of two exact integers is correctly rounded, like the parse),
+ * or undefined when none up to MAX_DECIMALS does (a scaled value, -0).
+ */
+function decimalsOf(values: Float64Array): number | undefined {
+  let q = 0;
+  for (let i = 0; i < values.length; i++) {
+    const v = values[i] as number;
+    if (Object.is(v, -0)) return undefined;
+    while (Math.round(v * (POWERS[q] as number)) / (POWERS[q] as number) !== v) {
+      if (++q > MAX_DECIMALS) return undefined;
+    }
+  }
+  // Each value's integer must be exact at the common q too (a safe integer, read back the same).
+  const scale = POWERS[q] as number;
+  for (let i = 0; i < values.length; i++) {
+    const v = values[i] as number;
+    const n = Math.round(v * scale);
+    if (!Number.isSafeInteger(n) || n / scale !== v) return undefined;
+  }
+  return q;
+}
+
+/**
+ * The records of each input in turn: a reading compact, a spectrum as {@link createSpectrumRecorder}
+ * writes it, any other input whole. One recorder per journal (it numbers the grids).
+ */
+export function createInputRecorder(): (input: PipelineInput) => JournalRecord[] {
+  const spectrum = createSpectrumRecorder();
+  return (input) => {
+    if (input.kind === 'reading') return [readingRecord(input)];
+    if (input.kind === 'spectrum') return spectrum(input);
+    return [{ k: 'i', t: input.kind === 'fault' ? input.arrivalS : input.timeS, input }];
+  };
+}
+
+/**
+ * The read side: each record's input, spectra with the grid their journal wrote before them
+ * (a spectrum whose grid is missing, after damage, gives none). One reader per pass.
+ */
+export function createInputReader(): (record: JournalRecord) => PipelineInput | undefined {
+  const grids = new Map<number, Float64Array>();
+  return (record) => {
+    if (record.k === 'g') {
+      grids.set(record.g, Float64Array.from(record.nm));
+      return undefined;
+    }
+    if (record.k !== 's') return recordToInput(record);
+    const grid = grids.get(record.g);
+    if (grid === undefined || grid.length !== record.v.length) return undefined;
+    const values = Float64Array.from(record.v);
+    if (record.q !== undefined) {
+      const scale = POWERS[record.q] as number;
+      for (let i = 0; i < values.length; i++) values[i] = (values[i] as number) / scale;
+    }
+    return { kind: 'spectrum', channel: 'spectral', wavelengthsNm: grid, values, timeS: record.t, arrivalS: record.a };
+  };
 }
 
 /** JSON has no NaN or Infinity: write them as strings and read them back. */

@@ -13,7 +13,7 @@ import { join } from 'node:path';
 import { fileErrorReason, makeWritableFolder } from '../files/writable-folder.ts';
 import type { RunEvent } from '../pipeline/events.ts';
 import type { PipelineInput } from '../pipeline/types.ts';
-import { JOURNAL_VERSION, readingRecord, sealLine, stringifyRecord, unsealLine, type JournalHeader, type JournalRecord } from './journal-format.ts';
+import { createInputRecorder, JOURNAL_VERSION, sealLine, stringifyRecord, unsealLine, type JournalHeader, type JournalRecord } from './journal-format.ts';
 
 export interface JournalWriter {
   readonly dir: string;
@@ -126,6 +126,7 @@ export function createJournalWriter(
   let opening = true;
   let firstError: Error | undefined;
   let closed = false;
+  const recordInput = createInputRecorder();
 
   const loss = (): JournalLoss => ({ pendingBytes: queueBytes + (partial?.length ?? 0), droppedReadings });
   const report = (callback: (() => void) | undefined): void => {
@@ -270,7 +271,8 @@ export function createJournalWriter(
     dir,
     file,
     input(input) {
-      push(input.kind === 'reading' ? readingRecord(input) : { k: 'i', t: input.kind === 'fault' ? input.arrivalS : input.timeS, input }, input.kind === 'reading');
+      // Readings and spectra may be dropped when the disk refuses for long; a grid never (its spectra need it).
+      for (const record of recordInput(input)) push(record, record.k === 'r' || record.k === 's');
     },
     event(event) {
       push({ k: 'e', event }, false);

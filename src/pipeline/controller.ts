@@ -169,6 +169,10 @@ export function createController(recipe: ResolvedRecipe, options: Partial<Contro
         return { state: onLink(s, input, events), events };
       case 'resumed':
         return { state: { ...s, resumedAtS: Number.isFinite(s.nowS) ? s.nowS : 0 }, events: NO_EVENTS };
+      case 'spectrum':
+        // The spectral monitor's readings pass through to the journal and the dashboard; no rule
+        // uses them yet (the broadband estimator will), so they neither decide nor move the clock.
+        return { state: s, events: NO_EVENTS };
       case 'tick':
         if (!(input.timeS >= s.nowS)) return { state: s, events: NO_EVENTS };
         s = withReading(s, input.timeS, s.lastOpticalS, s.lastCrystalS, s.optical, s.turns, s.crystal, s.layerCrystalNm);

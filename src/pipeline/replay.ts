@@ -4,7 +4,7 @@
  * With the recorded recipe every decision is reproduced exactly: the controller is a pure
  * function of its inputs, and the journal holds all of them, ticks included.
  */
-import { recordToInput, type JournalMark, type JournalRecord } from '../journal/journal-format.ts';
+import { createInputReader, type JournalMark, type JournalRecord } from '../journal/journal-format.ts';
 import type { Controller, ControllerState } from './controller.ts';
 import type { RunEvent } from './events.ts';
 import { runPaced, type SteppedRun } from './run-stepped.ts';
@@ -62,7 +62,9 @@ export async function replayJournalPaced(
   return replay.result();
 }
 
-type InputRecord = Extract<JournalRecord, { k: 'r' | 'i' }>;
+type InputRecord = Extract<JournalRecord, { k: 'r' | 'i' | 's' }>;
+/** What a replay hands to `onRecord`: not fed, and not a grid (which the spectra after it need). */
+type OtherRecord = Exclude<JournalRecord, InputRecord | { k: 'g' }>;
 
 /**
  * A journal's inputs as a stepped run (recorded events and marks passed to `onRecord`, not fed),
@@ -72,13 +74,14 @@ type InputRecord = Extract<JournalRecord, { k: 'r' | 'i' }>;
 export function createJournalRun(
   records: Iterable<JournalRecord>,
   controller: Controller,
-  callbacks: { onInput?: (input: PipelineInput) => void; onEvent?: (event: RunEvent) => void; onRecord?: (record: Exclude<JournalRecord, InputRecord>) => void } = {},
+  callbacks: { onInput?: (input: PipelineInput) => void; onEvent?: (event: RunEvent) => void; onRecord?: (record: OtherRecord) => void } = {},
 ): SteppedRun {
   const iterator = records[Symbol.iterator]();
   let state: ControllerState = controller.initial();
   let next: InputRecord | undefined;
   let ended = false;
   let now = 0;
+  const read = createInputReader();
   const apply = (input: PipelineInput): void => {
     callbacks.onInput?.(input);
     const result = controller.step(state, input);
@@ -89,7 +92,8 @@ export function createJournalRun(
     while (next === undefined && !ended) {
       const item = iterator.next();
       if (item.done) ended = true;
-      else if (item.value.k === 'r' || item.value.k === 'i') next = item.value;
+      else if (item.value.k === 'r' || item.value.k === 'i' || item.value.k === 's') next = item.value;
+      else if (item.value.k === 'g') read(item.value);
       else callbacks.onRecord?.(item.value);
     }
     return next;
@@ -111,7 +115,7 @@ export function createJournalRun(
         const record = next as InputRecord;
         if (record.t > untilS) break;
         next = undefined;
-        const input = recordToInput(record);
+        const input = read(record);
         if (input) apply(input);
         now = Math.max(now, record.t);
       }
@@ -146,7 +150,7 @@ function collect(records: Iterable<JournalRecord>, controller: Controller, onEve
   const recordedEvents: RunEvent[] = [];
   const marks: JournalMark[] = [];
   let inputs = 0;
-  const onRecord = (r: Exclude<JournalRecord, InputRecord>): void => {
+  const onRecord = (r: OtherRecord): void => {
     if (r.k === 'e') recordedEvents.push(r.event);
     else marks.push(r);
   };

@@ -9,8 +9,11 @@
  */
 import type { Observable } from 'rxjs';
 
-/** The physical quantity a channel measures. */
+/** The physical quantity a channel of single numbers measures. */
 export type ChannelKind = 'optical' | 'crystal';
+
+/** Every channel an instrument can feed: the single-number ones and the spectral monitor. */
+export type InstrumentChannel = ChannelKind | 'spectral';
 
 /**
  * One reading. `optical`: the monitor signal as a fraction of full scale (transmittance or
@@ -28,17 +31,57 @@ export interface Reading {
 }
 
 /**
- * Stable codes of input faults (documented in the code registry with the alerts). The decoder
- * raises the first six; the controller the last two, for readings well formed but impossible: a
- * value no deposition can make from the recent readings (`implausible-jump`), a timestamp more
- * than a bounded step from the run clock's present (`time-jump`).
+ * One spectrum from the spectral monitor: calibrated transmittance or reflectance (a fraction,
+ * 0..1 nominal) at each wavelength of the channel's grid. The grid is fixed for the channel (from
+ * the chamber file or the instrument's header frame) and shared by every reading of it: the same
+ * array object, never to be written to. Dark and reference frames are the instrument's business.
  */
-export type FaultCode = 'not-a-number' | 'out-of-range' | 'time-backwards' | 'line-too-long' | 'garbled' | 'unknown-channel' | 'implausible-jump' | 'time-jump';
+export interface SpectrumReading {
+  readonly kind: 'spectrum';
+  readonly channel: 'spectral';
+  /** The channel's wavelengths, nm, strictly increasing; `values[i]` is at `wavelengthsNm[i]`. */
+  readonly wavelengthsNm: Float64Array;
+  readonly values: Float64Array;
+  /** Run time of the spectrum, s: the instrument's own timestamp when the frame carries one. */
+  readonly timeS: number;
+  /** Host monotonic arrival time, s. */
+  readonly arrivalS: number;
+}
+
+/** What an instrument's line can give: a single number or a spectrum. */
+export type InstrumentReading = Reading | SpectrumReading;
+
+/**
+ * Stable codes of input faults (documented in the code registry with the alerts). The decoder
+ * raises the first six; the controller the next two, for readings well formed but impossible: a
+ * value no deposition can make from the recent readings (`implausible-jump`), a timestamp more
+ * than a bounded step from the run clock's present (`time-jump`). The spectral decoder raises the
+ * last six: a spectrum whose count of values is not its grid's (`spectrum-length`), with a value
+ * that is no finite number (`spectrum-not-finite`) or lies far outside 0..1
+ * (`spectrum-out-of-range`), a spectrum before any grid is known (`grid-unknown`), a header that
+ * is no strictly increasing list of wavelengths (`grid-invalid`), and a header that differs from
+ * the grid in use (`grid-changed`: the grid stays the first one).
+ */
+export type FaultCode =
+  | 'not-a-number'
+  | 'out-of-range'
+  | 'time-backwards'
+  | 'line-too-long'
+  | 'garbled'
+  | 'unknown-channel'
+  | 'implausible-jump'
+  | 'time-jump'
+  | 'spectrum-length'
+  | 'spectrum-not-finite'
+  | 'spectrum-out-of-range'
+  | 'grid-unknown'
+  | 'grid-invalid'
+  | 'grid-changed';
 
 /** A line that could not be used. Bad input is a value, never an exception. */
 export interface Fault {
   readonly kind: 'fault';
-  readonly channel: ChannelKind | 'unknown';
+  readonly channel: InstrumentChannel | 'unknown';
   readonly code: FaultCode;
   /** The offending line (truncated to 200 characters). */
   readonly line: string;
@@ -132,7 +175,7 @@ export interface RunResumed {
 }
 
 /** Anything the decision reducer consumes. */
-export type PipelineInput = Reading | Fault | ShutterAck | ShutterFault | LinkChange | RunResumed | OperatorCommand | Tick;
+export type PipelineInput = Reading | SpectrumReading | Fault | ShutterAck | ShutterFault | LinkChange | RunResumed | OperatorCommand | Tick;
 
 /** A source's health. `lost` carries whether we closed it or it went away. */
 export type SourceStatus =
@@ -141,7 +184,7 @@ export type SourceStatus =
 
 /** Where readings come from: the same interface for a port, a socket, a journal and the simulator. */
 export interface ReadingSource {
-  readonly readings: Observable<Reading | Fault>;
+  readonly readings: Observable<InstrumentReading | Fault>;
   readonly status: Observable<SourceStatus>;
 }
 

@@ -7,7 +7,7 @@ import { fileURLToPath } from 'node:url';
 import { createVirtualChamber, measureParts, SimProfileSchema, type ChamberTruth, type SimProfile } from '../../sim/index.ts';
 import { loadRecipe } from '../../src/config/load-recipe.ts';
 import type { JournalRecord } from '../../src/journal/journal-format.ts';
-import { readingRecord } from '../../src/journal/journal-format.ts';
+import { createInputRecorder } from '../../src/journal/journal-format.ts';
 import type { ResolvedRecipe } from '../../src/model/plan/recipe.ts';
 import { createController } from '../../src/pipeline/controller.ts';
 import { runStepped } from '../../src/pipeline/run-stepped.ts';
@@ -39,11 +39,9 @@ export interface SimulatedForCalibration {
 export function simulateForCalibration(recipe: ResolvedRecipe, profile: SimProfile, seed: number): SimulatedForCalibration {
   const chamber = createVirtualChamber(recipe, profile, seed);
   const records: JournalRecord[] = [];
+  const recordInput = createInputRecorder();
   runStepped(createController(recipe, { estimator: 'fit' }), chamber, {
-    onInput: (input) => {
-      if (input.kind === 'reading') records.push(readingRecord(input));
-      else records.push({ k: 'i', t: input.kind === 'fault' ? input.arrivalS : input.timeS, input });
-    },
+    onInput: (input) => records.push(...recordInput(input)),
     onEvent: (event) => records.push({ k: 'e', event }),
   });
   const truth = chamber.truth();

@@ -7,7 +7,7 @@ import { afterAll, describe, expect, it } from 'vitest';
 import { stringify } from 'yaml';
 import { loadChamber, openChamber, type Chamber } from '../../drivers/chamber.ts';
 import { ConfigError } from '../../src/config/validation.ts';
-import type { Reading, Fault, SourceStatus } from '../../src/pipeline/types.ts';
+import type { InstrumentReading, Fault, SourceStatus } from '../../src/pipeline/types.ts';
 import { createMockSerial, settle, until } from './mock-serial.ts';
 
 const root = new URL('../../config/chambers/', import.meta.url).pathname;
@@ -49,6 +49,9 @@ describe('the shipped chamber files', () => {
   });
 
   it('sim-tcp connects to 127.0.0.1:7301 and gets the default dialect, the same as spelled out in sim-serial', () => {
+    const spectral = loadChamber(join(root, 'sim-tcp-spectral.yaml'));
+    expect(spectral.instruments[0]?.channels).toEqual(['optical', 'crystal', 'spectral']);
+    expect(spectral.instruments[0]?.spectrum).toMatchObject({ form: 'table', headerTag: 'SPW', rowTag: 'SPC', timeField: true });
     const tcp = loadChamber(join(root, 'sim-tcp.yaml'));
     const serial = loadChamber(join(root, 'sim-serial.yaml'));
     expect(tcp.instruments[0]?.transport).toMatchObject({ kind: 'tcp', host: '127.0.0.1', port: 7301 });
@@ -76,7 +79,7 @@ describe('chamber validation', () => {
       'instruments[0].transport: unknown key "baudrate" (a typo?)',
       expect.stringMatching(/^instruments\[1\]\.transport\.kind: /),
       expect.stringMatching(/^instruments\[1\]\.dialect\.columns\.value: expected number/),
-      expect.stringMatching(/^instruments\[1\]\.channels\[1\]: expected one of "optical", "crystal", found "uv"/),
+      expect.stringMatching(/^instruments\[1\]\.channels\[1\]: expected one of "optical", "crystal", "spectral", found "uv"/),
     ]);
   });
 
@@ -122,7 +125,7 @@ describe('openChamber', () => {
     const drivers = openChamber(chamber, { binding: serial.binding, clock: () => 123 });
     const source = drivers.sources.get('monitor');
     expect(source).toBeDefined();
-    const readings: Array<Reading | Fault> = [];
+    const readings: Array<InstrumentReading | Fault> = [];
     const statuses: SourceStatus[] = [];
     source?.readings.subscribe((r) => readings.push(r));
     source?.status.subscribe((s) => statuses.push(s));
@@ -161,7 +164,7 @@ describe('openChamber', () => {
       }),
     );
     const drivers = openChamber(chamber, { binding: serial.binding, clock: () => 7 });
-    const readings: Array<Reading | Fault> = [];
+    const readings: Array<InstrumentReading | Fault> = [];
     const linkStatus: SourceStatus[] = [];
     drivers.sources.get('monitor')?.readings.subscribe((r) => readings.push(r));
     drivers.shutterLink?.status.subscribe((s) => linkStatus.push(s));

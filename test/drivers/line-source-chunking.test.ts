@@ -6,7 +6,7 @@ import { describe, expect, it } from 'vitest';
 import { createLineSource } from '../../drivers/line-source.ts';
 import type { LineFramerOptions } from '../../drivers/line-framer.ts';
 import type { Transport, TransportEvents } from '../../drivers/transport.ts';
-import type { Fault, Reading } from '../../src/pipeline/types.ts';
+import type { Fault, InstrumentReading } from '../../src/pipeline/types.ts';
 
 const encode = (text: string): Uint8Array => new TextEncoder().encode(text);
 const pieces = ['OPT,', 'XTL,', '0.25,', '0.5', '6e6', ',', '\n', '\r', '\r\n', 'é', '😀', 'x'.repeat(9), 'y'.repeat(200), 'z'.repeat(700)];
@@ -51,7 +51,7 @@ const nextTurn = (): Promise<void> => new Promise((resolve) => setImmediate(reso
  * Each connection's chunks through a line source whose clock reads the count of bytes delivered
  * so far; between connections the transport drops and the link reconnects.
  */
-async function throughSource(connections: Uint8Array[][], framer: LineFramerOptions): Promise<Array<Reading | Fault>> {
+async function throughSource(connections: Uint8Array[][], framer: LineFramerOptions): Promise<Array<InstrumentReading | Fault>> {
   let bytesSoFar = 0;
   const transports: ReturnType<typeof memoryTransport>[] = [];
   const source = createLineSource({
@@ -65,7 +65,7 @@ async function throughSource(connections: Uint8Array[][], framer: LineFramerOpti
     retry: { initialDelayMs: 0, maxDelayMs: 1 },
     staleAfterS: 1e6,
   });
-  const items: Array<Reading | Fault> = [];
+  const items: Array<InstrumentReading | Fault> = [];
   source.readings.subscribe((item) => items.push(item));
   for (const [i, chunks] of connections.entries()) {
     while (transports.length <= i) await nextTurn();
@@ -80,7 +80,7 @@ async function throughSource(connections: Uint8Array[][], framer: LineFramerOpti
   return items;
 }
 
-const withoutArrival = (items: Array<Reading | Fault>): unknown[] => items.map(({ arrivalS: _, ...rest }) => rest);
+const withoutArrival = (items: Array<InstrumentReading | Fault>): unknown[] => items.map(({ arrivalS: _, ...rest }) => rest);
 
 describe('the line source, however the bytes are chunked', () => {
   it('gives the same readings and faults, each stamped with the end of a chunk, in order', async () => {

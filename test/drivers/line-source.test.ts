@@ -6,7 +6,7 @@ import { afterEach, beforeEach, describe, expect, it, vi } from 'vitest';
 import { createLineSource, type LineSource, type LineSourceOptions } from '../../drivers/line-source.ts';
 import { createSerialTransport } from '../../drivers/transport.ts';
 import { ConfigError } from '../../src/config/validation.ts';
-import type { Fault, Reading, SourceStatus } from '../../src/pipeline/types.ts';
+import type { Fault, InstrumentReading, SourceStatus } from '../../src/pipeline/types.ts';
 import { createMockSerial, settle, until, type MockSerial } from './mock-serial.ts';
 
 let serial: MockSerial;
@@ -34,7 +34,7 @@ function open(options: Partial<LineSourceOptions> = {}) {
     ...options,
   });
   source = s;
-  const readings: Array<Reading | Fault> = [];
+  const readings: Array<InstrumentReading | Fault> = [];
   const statuses: SourceStatus[] = [];
   let readingsDone = false;
   let statusDone = false;

@@ -1,7 +1,7 @@
 // The contract every ReadingSource keeps, as a suite any driver kind can run: the serial and TCP
 // line sources here, and the journal replay and the simulator when they arrive.
 import { describe, expect, it } from 'vitest';
-import type { Fault, Reading, ReadingSource, SourceStatus } from '../../src/pipeline/types.ts';
+import type { Fault, InstrumentReading, Reading, ReadingSource, SourceStatus } from '../../src/pipeline/types.ts';
 
 export interface ContractSubject {
   readonly source: ReadingSource & { close(): Promise<void> };
@@ -19,9 +19,9 @@ async function until(condition: () => boolean, what: string, timeoutMs: number):
 }
 
 export function readingSourceContract(name: string, setup: () => Promise<ContractSubject>, timeoutMs = 3000): void {
-  async function withSubject(body: (subject: ContractSubject, seen: { readings: Array<Reading | Fault>; statuses: SourceStatus[]; errors: unknown[]; completed: number }) => Promise<void>): Promise<void> {
+  async function withSubject(body: (subject: ContractSubject, seen: { readings: Array<InstrumentReading | Fault>; statuses: SourceStatus[]; errors: unknown[]; completed: number }) => Promise<void>): Promise<void> {
     const subject = await setup();
-    const seen = { readings: [] as Array<Reading | Fault>, statuses: [] as SourceStatus[], errors: [] as unknown[], completed: 0 };
+    const seen = { readings: [] as Array<InstrumentReading | Fault>, statuses: [] as SourceStatus[], errors: [] as unknown[], completed: 0 };
     subject.source.readings.subscribe({ next: (r) => seen.readings.push(r), error: (e: unknown) => seen.errors.push(e), complete: () => (seen.completed += 1) });
     subject.source.status.subscribe({ next: (s) => seen.statuses.push(s), error: (e: unknown) => seen.errors.push(e), complete: () => (seen.completed += 1) });
     try {

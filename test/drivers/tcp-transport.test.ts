@@ -7,7 +7,7 @@ import { afterEach, describe, expect, it } from 'vitest';
 import { createLineSource, type LineSource } from '../../drivers/line-source.ts';
 import { createShutterOutput } from '../../drivers/shutter-output.ts';
 import { createTcpTransport } from '../../drivers/transport.ts';
-import type { Fault, Reading, ShutterAck, ShutterFault, SourceStatus } from '../../src/pipeline/types.ts';
+import type { Fault, InstrumentReading, ShutterAck, ShutterFault, SourceStatus } from '../../src/pipeline/types.ts';
 
 /** A test instrument: records what it received, and can speak and hang up. */
 interface FakeInstrument {
@@ -66,7 +66,7 @@ afterEach(async () => {
 });
 
 function watch(source: LineSource) {
-  const readings: Array<Reading | Fault> = [];
+  const readings: Array<InstrumentReading | Fault> = [];
   const statuses: SourceStatus[] = [];
   source.readings.subscribe((r) => readings.push(r));
   source.status.subscribe((s) => statuses.push(s));
@@ -147,7 +147,7 @@ describe('createLineSource over TCP', () => {
     await until(() => statuses.at(-1)?.state === 'connected', 'connected to the new server');
     socket.write('XTL,3.0,5989000\n');
     await until(() => readings.length === 4, 'a reading from the new server');
-    expect(readings.map((r) => (r.kind === 'reading' ? `${r.channel}@${r.timeS}` : r.code))).toEqual(['optical@1', 'crystal@1', 'optical@2', 'crystal@3']);
+    expect(readings.map((r) => (r.kind === 'fault' ? r.code : `${r.channel}@${r.timeS}`))).toEqual(['optical@1', 'crystal@1', 'optical@2', 'crystal@3']);
   });
 
   it('shares the socket with the shutter output: commands out, acknowledgements in', async () => {

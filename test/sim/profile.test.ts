@@ -32,6 +32,16 @@ describe('shipped profiles', () => {
     expect(rest).toEqual({ ...defaults, sources: { default: { ...defaults.sources.default, shutterDelayS: 0.2 } }, optical: { ...defaults.optical, sampleRateHz: 10 }, crystal: { ...defaults.crystal, sampleRateHz: 10 } });
   });
 
+  it('spectral is typical with the issue’s spectral monitor: 400–900 nm in 2 nm steps, 5 spectra/s, 0.2 % noise', () => {
+    const spectral = loadSimProfile(join(import.meta.dirname, '../../config/sim/spectral.yaml'));
+    const { spectral: monitor, ...rest } = spectral;
+    expect(rest).toEqual({ ...typical, name: 'spectral', description: expect.stringMatching(/spectrometer/) as unknown });
+    expect(monitor).toMatchObject({ grid: { fromNm: 400, toNm: 900, stepNm: 2 }, rateHz: 5, noisePercent: 0.2, form: 'table' });
+    // The schema's defaults for the monitor are the file's.
+    expect(SimProfileSchema.parse({ formatVersion: 1, name: 's', spectral: {} }).spectral).toEqual(monitor);
+    expect(typical.spectral).toBeUndefined();
+  });
+
   it('uncalibrated is typical with the chip ratio and the tooling factor off', () => {
     expect([typical.sources.default.chipRatioErrorPercent, typical.sources.default.toolingErrorPercent]).toEqual([0, 0]);
     expect(uncalibrated).toEqual({

@@ -6,7 +6,7 @@ import { afterEach, describe, expect, it } from 'vitest';
 import { createLineSource } from '../../drivers/line-source.ts';
 import { createTcpTransport } from '../../drivers/transport.ts';
 import type { Reading, SourceStatus } from '../../src/pipeline/types.ts';
-import { serveOnTcp, type TcpServedChamber } from '../../sim/index.ts';
+import { serveOnTcp, SimProfileSchema, type TcpServedChamber } from '../../sim/index.ts';
 import { startFaultRelay } from '../support/fault-relay.ts';
 import { profiles, recipes } from './support.ts';
 
@@ -183,5 +183,26 @@ describe('serveOnTcp: a second host', () => {
     // Reading again, it finds its connection ended by the chamber.
     silent.socket.resume();
     await until(() => silent.closed, 'the silent host disconnected');
+  });
+});
+
+describe('a chamber with a spectral monitor, over TCP', () => {
+  it('tells each host its grid first and again every 50 spectra, in the profile’s form', async () => {
+    for (const form of ['table', 'json'] as const) {
+      const profile = SimProfileSchema.parse({ ...profiles.ideal, spectral: { form, resolutionNm: 0 } });
+      const served = await serveOnTcp({ recipe: recipes.ar4, profile, seed: 3, speed: 50, port: 0 });
+      cleanups.push(() => served.close());
+      const host = connectHost(served.port);
+      const isHeader = (line: string): boolean => (form === 'table' ? line.startsWith('SPW,') : line.includes('"nm":'));
+      const isSpectrum = (line: string): boolean => (form === 'table' ? line.startsWith('SPC,') : line.includes('"v":'));
+      await until(() => host.lines.filter(isSpectrum).length >= 120, '120 spectra');
+      const spectral = host.lines.filter((l) => isHeader(l) || isSpectrum(l));
+      expect(isHeader(spectral[0] as string)).toBe(true);
+      // The connection’s header, spectra 1–49, the header before the 50th, spectra 50–99, the header before the 100th, …
+      const headersAt = spectral.flatMap((l, i) => (isHeader(l) ? [i] : []));
+      expect(headersAt.slice(0, 3)).toEqual([0, 50, 101]);
+      expect(new Set(spectral.filter(isHeader)).size).toBe(1);
+      host.socket.destroy();
+    }
   });
 });

@@ -264,7 +264,7 @@ function createJournalAlerts(io: CommandIo): {
 /** Resolves when every source has delivered a reading; rejects naming the silent ones after `timeoutMs`. */
 function firstReadings(sources: [string, ReadingSource][], timeoutMs: number): Promise<void> {
   return firstValueFrom(
-    combineLatest(sources.map(([, s]) => s.readings.pipe(filter((r) => r.kind === 'reading'), first()))).pipe(
+    combineLatest(sources.map(([, s]) => s.readings.pipe(filter((r) => r.kind !== 'fault'), first()))).pipe(
       timeout({ first: timeoutMs, with: () => throwError(() => new Error(`no reading from ${sources.map(([id]) => id).join(', ')} within ${timeoutMs / 1000} s; check the cables and the chamber file`)) }),
     ),
   ).then(() => undefined);

@@ -12,7 +12,8 @@ export type RunClock = 'arrival' | 'instrument';
 export function toRunClock(clock: RunClock, startArrivalS: number, startInstrumentS = 0): OperatorFunction<PipelineInput, PipelineInput> {
   return map((input) => {
     switch (input.kind) {
-      case 'reading': {
+      case 'reading':
+      case 'spectrum': {
         const arrivalS = input.arrivalS - startArrivalS;
         return { ...input, arrivalS, timeS: clock === 'arrival' ? arrivalS : input.timeS - startInstrumentS };
       }
