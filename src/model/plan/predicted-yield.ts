@@ -158,7 +158,8 @@ export function judgedBand(recipe: ResolvedRecipe): { fromNm: number; toNm: numb
 
 /** The exact Monte Carlo: every sampled run's stack built and its spectra computed. */
 export function predictYield(recipe: ResolvedRecipe, errors: readonly LayerError[], spread: ProcessSpread, options: { samples?: number; seed?: number } = {}): Prediction {
-  const samples = options.samples ?? 400;
+  // A mean deviation settles with fewer runs than a proportion near 100 %.
+  const samples = options.samples ?? (recipe.design.tolerances.length > 0 ? 600 : 200);
   const { z, width, materials } = drawRuns(recipe, samples, options.seed ?? 1);
   const n = recipe.layers.length;
   const thickness = new Float64Array(n);
@@ -292,23 +293,28 @@ export class LinearYieldModel {
 
   /** The prediction with the current errors, or with layer `i`'s replaced by `trial`. */
   predict(trial?: { layer: number; error: LayerError }): Prediction {
-    const row = new Float64Array(this.points);
+    const tolerances = this.segments[0]?.tolerance !== null;
+    const points = this.points;
+    const zeros = this.dThickness[0] ?? new Float64Array(points);
     let met = 0;
     let sumMaxT = 0;
     for (let s = 0; s < this.samples; s++) {
-      row.set(this.values.subarray(s * this.points, (s + 1) * this.points));
+      const at = s * points;
+      // The trial moves this run's points along one layer's derivative.
+      let shift = 0;
+      let d = zeros;
       if (trial) {
         const i = trial.layer;
         const offset = s * this.width;
         const kappa = this.kappaOf(offset, i);
-        const before = this.thicknessError(this.errors[i] as LayerError, this.z[offset + i] as number, kappa);
-        const after = this.thicknessError(trial.error, this.z[offset + i] as number, kappa);
-        addScaled(row, this.dThickness[i] as Float64Array, after - before);
+        const z = this.z[offset + i] as number;
+        shift = this.thicknessError(trial.error, z, kappa) - this.thicknessError(this.errors[i] as LayerError, z, kappa);
+        d = this.dThickness[i] as Float64Array;
       }
-      if (this.segments[0]?.tolerance) {
+      if (tolerances) {
         let pass = true;
         for (const seg of this.segments) {
-          if (!meets(seg.tolerance as Tolerance, row, seg.from, seg.count)) {
+          if (!meets(seg.tolerance as Tolerance, this.values, at, seg.from, seg.count, d, shift)) {
             pass = false;
             break;
           }
@@ -316,11 +322,13 @@ export class LinearYieldModel {
         if (pass) met++;
       } else {
         let worst = 0;
-        for (let w = 0; w < this.points; w++) worst = Math.max(worst, Math.abs((row[w] as number) - (this.base[w] as number)));
+        for (let w = 0; w < points; w++) {
+          const v = (this.values[at + w] as number) + shift * (d[w] as number);
+          worst = Math.max(worst, Math.abs(v - (this.base[w] as number)));
+        }
         sumMaxT += worst;
       }
     }
-    const tolerances = this.recipe.design.tolerances.length > 0;
     return { samples: this.samples, yieldPercent: tolerances ? (100 * met) / this.samples : null, meanMaxAbsT: tolerances ? null : sumMaxT / this.samples };
   }
 
@@ -357,12 +365,15 @@ export class LinearYieldModel {
   }
 }
 
-/** Whether the points `from … from + count` (fractions) lie within the tolerance's bounds (NaN fails). */
-function meets(t: Tolerance, values: Float64Array, from: number, count: number): boolean {
+/**
+ * Whether a run's points `from … from + count` (fractions, the run's row starting at `at`),
+ * each moved by `shift` × its derivative `d`, lie within the tolerance's bounds (NaN fails).
+ */
+function meets(t: Tolerance, values: Float64Array, at: number, from: number, count: number, d: Float64Array, shift: number): boolean {
   const low = t.atLeastPercent === undefined ? Number.NEGATIVE_INFINITY : t.atLeastPercent / 100;
   const high = t.atMostPercent === undefined ? Number.POSITIVE_INFINITY : t.atMostPercent / 100;
   for (let k = from; k < from + count; k++) {
-    const v = values[k] as number;
+    const v = (values[at + k] as number) + shift * (d[k] as number);
     if (!(v >= low && v <= high)) return false;
   }
   return true;

@@ -108,7 +108,7 @@ describe('fringe plan --propose', () => {
     expect(bad.err.trim()).toMatch(/--propose writes a recipe: name a file ending in \.yaml, got ".*proposed\.txt"$/);
     const fewer = await runCli('plan', edgeFile, '--propose', out, '--max-chips', '1');
     expect(fewer.code).toBe(2);
-    expect(fewer.err.trim()).toBe('--max-chips 1 is fewer than the 2 chips the recipe already uses');
+    expect(fewer.err.trim()).toBe('fringe plan: --max-chips 1 is fewer than the 2 chips the recipe already uses');
     for (const [option, value] of [['--max-chips', '0'], ['--max-chips', 'two'], ['--runs', '0']] as const) {
       const refused = await runCli('plan', ar4File, '--propose', out, option, value);
       expect(refused.code, `${option} ${value}`).toBe(2);
@@ -116,7 +116,7 @@ describe('fringe plan --propose', () => {
     }
     const alone = await runCli('plan', ar4File, '--max-chips', '3');
     expect(alone.code).toBe(2);
-    expect(alone.err.trim()).toBe('--max-chips, --profile and --runs belong to --propose');
+    expect(alone.err.trim()).toBe('fringe plan: --max-chips, --profile and --runs belong to --propose');
     const badProfile = join(dir, 'profile.yaml');
     writeFileSync(badProfile, 'formatVersion: 1\nname: x\nsources: 3\n');
     const refusedProfile = await runCli('plan', ar4File, '--propose', out, '--profile', badProfile);
