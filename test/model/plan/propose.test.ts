@@ -74,6 +74,17 @@ describe.each([
   }, 600_000);
 });
 
+describe('the mirror\'s turning points', () => {
+  it('are not given up for a flag alone: the proposal keeps every one (the study measured them at 0.2 % n·d, figures 0.3–1.6 %)', () => {
+    const mirror = loadRecipe(join(root, 'config/recipes/mirror-1064.yaml'));
+    const proposal = proposeStrategy(mirror, settings);
+    expect(proposal.plan.layers.map((l) => `${l.cut}@${l.wavelengthNm}`)).toEqual(mirror.layers.map(() => 'turning-point@1064'));
+    const flagged = proposal.flagged.map((f) => f.layer);
+    expect(flagged).toContain(19);
+    expect(proposal.flagged.every((f) => f.keptTurn && !f.met)).toBe(true);
+  }, 120_000);
+});
+
 describe('fresh chips', () => {
   it('splits the chip a layer lies on, each layer on the chip that holds it', () => {
     const edge = loadRecipe(edgeFile);
