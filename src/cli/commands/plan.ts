@@ -6,7 +6,10 @@ import { dirname, relative, resolve } from 'node:path';
 import { Document } from 'yaml';
 import { parseCommandArgs } from '../parse-command-args.ts';
 import { readYamlFile } from '../../config/read-config.ts';
-import { proposeStrategy, type Proposal } from '../../model/plan/propose.ts';
+import { fileURLToPath } from 'node:url';
+import { loadSimProfile, materialSettingsFor, type SimProfile } from '../../../sim/index.ts';
+import { FLAG_PERCENT, proposeStrategy, type Proposal } from '../../model/plan/propose.ts';
+import { studyRange, type Prediction, type ProcessSpread } from '../../model/plan/predicted-yield.ts';
 import { loadMaterialLibrary } from '../../config/load-design.ts';
 import { loadRecipe } from '../../config/load-recipe.ts';
 import { planRun, type LayerPlan, type RunPlan } from '../../model/plan/plan.ts';
@@ -14,6 +17,17 @@ import { CUT_MODE_SHORT, CUT_MODE_WORDS } from '../../pipeline/cut-words.ts';
 import { renderLineChart, type ChartBand, type ChartLegendEntry, type ChartMarker, type ChartPoint } from '../../report/index.ts';
 import { CliError, numberOption, outputFileOption, plotFileOption, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
+
+const DEFAULT_PROFILE = fileURLToPath(new URL('../../../config/sim/typical.yaml', import.meta.url));
+
+/**
+ * How a simulator profile puts a run's film indices off the design's: its offset, every
+ * material's, and its scatter, each material's own.
+ */
+function spreadOfProfile(profile: SimProfile): ProcessSpread {
+  const m = materialSettingsFor(profile, 'default');
+  return { indexOffset: m.indexOffsetPercent / 100, indexCommonSigma: 0, indexMaterialSigma: m.indexScatterPercent / 100 };
+}
 
 export const planUsage = `Usage: fringe plan RECIPE [options]
 
@@ -26,9 +40,15 @@ the expected precision of the cut, warnings, a suggested monitor wavelength, and
   --sample-rate HZ      optical readings per second (default: the recipe's, else 10)
   --whole-run           also suggest one wavelength plan for the run with few changes
   --no-suggest          skip the wavelength search
-  --propose FILE.yaml   search, layer by layer, the cut (crystal, level or turn) and the monitor
-                        wavelength that lower the run's expected error (the stack figures, Σ %²),
-                        write the recipe with them to FILE.yaml and print what changed and why
+  --propose FILE.yaml   search, per layer, the cut (crystal, level or turn), the monitor wavelength
+                        and where fresh witness chips start, for the highest predicted yield (the
+                        plan's error model as the model fit cuts, sampled against the design's
+                        tolerances; without them, the smallest expected deviation); write the
+                        recipe with them to FILE.yaml and print what changed and why
+  --max-chips N         with --propose: witness chips allowed in all (default: the recipe's)
+  --profile FILE        with --propose: the simulator profile whose index spread the prediction
+                        assumes (default: config/sim/typical.yaml, as fringe study)
+  --runs N              with --propose: the study size the predicted range is given for (default 50)
   --materials FILE      material library (default: the shipped config/materials.yaml)
 `;
 
@@ -45,6 +65,9 @@ export function runPlan(argv: string[], io: CommandIo): number {
       'whole-run': { type: 'boolean' },
       'no-suggest': { type: 'boolean' },
       propose: { type: 'string' },
+      'max-chips': { type: 'string' },
+      profile: { type: 'string' },
+      runs: { type: 'string' },
       materials: { type: 'string' },
       help: { type: 'boolean', short: 'h' },
     },
@@ -69,12 +92,21 @@ export function runPlan(argv: string[], io: CommandIo): number {
   if (values.propose !== undefined && (values.json || values.plot !== undefined || noisePercent !== undefined || sampleRateHz !== undefined)) {
     throw new CliError('--propose plans with the recipe\'s own monitor and prints its own report: drop --json, --plot, --noise and --sample-rate');
   }
+  if (values.propose === undefined && (values['max-chips'] !== undefined || values.profile !== undefined || values.runs !== undefined)) {
+    throw new CliError('--max-chips, --profile and --runs belong to --propose');
+  }
+  const maxChips = numberOption('max-chips', values['max-chips']);
+  if (maxChips !== undefined && !(Number.isInteger(maxChips) && maxChips >= 1 && maxChips <= 100)) throw new CliError(`--max-chips must be a whole number from 1 to 100, got ${maxChips}`);
+  const runs = numberOption('runs', values.runs) ?? 50;
+  if (!(Number.isInteger(runs) && runs >= 1 && runs <= 100_000)) throw new CliError(`--runs must be a whole number from 1 to 100000, got ${runs}`);
   const proposeFile = values.propose === undefined ? undefined : outputFileOption('propose', values.propose);
   const recipe = loadRecipe(positionals[0] as string, loadMaterialLibrary(values.materials));
   if (proposeFile !== undefined) {
-    const proposal = proposeStrategy(recipe);
+    if (maxChips !== undefined && maxChips < recipe.chips.length) throw new CliError(`--max-chips ${maxChips} is fewer than the ${recipe.chips.length} chips the recipe already uses`);
+    const profile = loadSimProfile(values.profile ?? DEFAULT_PROFILE);
+    const proposal = proposeStrategy(recipe, { spread: spreadOfProfile(profile), ...(maxChips !== undefined ? { maxChips } : {}) });
     writeOutputFile(proposeFile, proposedRecipeText(positionals[0] as string, proposeFile, proposal));
-    io.out(formatProposal(proposal, proposeFile));
+    io.out(formatProposal(proposal, proposeFile, runs));
     return 0;
   }
   const plan = planRun(recipe, {
@@ -250,32 +282,68 @@ function plotRun(plan: RunPlan): string {
   });
 }
 
-/** The recipe file as written, with the proposal's layer settings over it (single-layer keys win over ranges). */
+/** The recipe file as written, with the proposal's chips and layer settings over it (single-layer keys win over ranges). */
 function proposedRecipeText(recipeFile: string, outFile: string, proposal: Proposal): string {
-  const raw = readYamlFile(recipeFile) as { design: unknown; layers?: Record<string, Record<string, unknown>> };
+  const raw = readYamlFile(recipeFile) as { design: unknown; layers?: Record<string, Record<string, unknown>>; chips?: Record<string, unknown>[] };
   const layers: Record<string, Record<string, unknown>> = { ...raw.layers };
   for (const c of proposal.changes) {
-    layers[String(c.layer)] = { ...layers[String(c.layer)], cut: c.to.cut, wavelengthNm: c.to.wavelengthNm };
+    if (c.from.cut === c.to.cut && c.from.wavelengthNm === c.to.wavelengthNm) continue;
+    layers[String(c.layer)] = { ...layers[String(c.layer)], cut: c.to.cut === 'crystal' ? 'crystal' : 'auto', wavelengthNm: c.to.wavelengthNm };
   }
+  // The chips as proposed: the recipe's own entries kept, a new one like the chip it splits.
+  const rawChips = raw.chips ?? [{ fromLayer: 1 }];
+  const chips = proposal.recipe.chips.map((c) => rawChips.find((r) => r.fromLayer === c.fromLayer) ?? { ...(rawChips.findLast((r) => (r.fromLayer as number) < c.fromLayer) ?? {}), fromLayer: c.fromLayer, label: c.label });
   // A design named by path is found from the new file's folder.
   const design = typeof raw.design === 'string' ? relative(dirname(resolve(outFile)), resolve(dirname(recipeFile), raw.design)) : raw.design;
-  const doc = new Document({ ...raw, design, layers });
-  doc.commentBefore = ` Proposed by fringe plan --propose from ${recipeFile}: ${proposal.changes.length} layers changed;\n run cost (Σ stack figure², %²) ${proposal.costBefore.toFixed(3)} → ${proposal.costAfter.toFixed(3)}.`;
+  const doc = new Document({ ...raw, design, chips, layers });
+  doc.commentBefore = ` Proposed by fringe plan --propose from ${recipeFile}: ${proposal.changes.length} layers changed;\n predicted ${predictionWords(proposal.before)} → ${predictionWords(proposal.after)}.`;
   return String(doc);
 }
 
-function formatProposal(p: Proposal, file: string): string {
+function predictionWords(p: Prediction): string {
+  return p.yieldPercent !== null ? `yield ${fixed(p.yieldPercent, 1)} %` : `mean largest |ΔT| ${fixed(100 * (p.meanMaxAbsT ?? Number.NaN), 3)} pp`;
+}
+
+function predictionLine(p: Prediction, runs: number): string {
+  if (p.yieldPercent === null) return predictionWords(p);
+  const range = studyRange(p.yieldPercent, p.samples, runs);
+  return `${predictionWords(p)} (${p.samples} sampled runs; a study of ${runs} runs would measure ${fixed(range.low, 0)}–${fixed(range.high, 0)} %, 95 %)`;
+}
+
+function formatProposal(p: Proposal, file: string, runs: number): string {
+  const what = p.before.yieldPercent !== null ? 'yield' : 'deviation';
   const rows = [
-    `${p.plan.recipe}: ${p.changes.length} of ${p.plan.layers.length} layers changed; wrote ${file}`,
-    `run cost (the layers' stack figures squared and summed, %²): ${p.costBefore.toFixed(3)} → ${p.costAfter.toFixed(3)}`,
+    `${p.plan.recipe}: ${p.changes.length} of ${p.plan.layers.length} layers changed, ${p.recipe.chips.length} chips; wrote ${file}`,
+    `predicted ${what}, the model fit cutting (the plan's error model: optical cuts by their stack figures, crystal cuts by the`,
+    '  tooling, the film indices spread as the profile says):',
+    `  before: ${predictionLine(p.before, runs)}`,
+    `  after:  ${predictionLine(p.after, runs)}`,
   ];
-  if (p.changes.length > 0) rows.push('');
-  for (const c of p.changes) {
+  if (p.plainBefore.yieldPercent !== null) {
     rows.push(
-      `  layer ${c.layer}: ${CUT_MODE_WORDS[c.from.cut]} at ${c.from.wavelengthNm} nm → ${CUT_MODE_WORDS[c.to.cut]}${c.to.cut === 'crystal' ? '' : ` at ${c.to.wavelengthNm} nm`}: ` +
-        `its stack figure ${fixed(c.beforePercent, 3)} % → ${fixed(c.afterPercent, 3)} %, the run's cost ${fixed(c.costBefore, 3)} → ${fixed(c.costAfter, 3)}`,
+      'predicted yield, the plain rules cutting (each sampled run cut as the rules do on its chip as it grew):',
+      `  before: ${predictionLine(p.plainBefore, runs)}`,
+      `  after:  ${predictionLine(p.plainAfter, runs)}`,
     );
   }
-  rows.push('', 'The figures are the plan\'s own error model; check the proposal with fringe study before relying on it.');
+  if (p.keptOriginal) rows.push('  the search\'s best was not better by the exact prediction: the recipe is kept as it is');
+  if (p.changes.length > 0) rows.push('');
+  for (const c of p.changes) {
+    const setting = (s: Proposal['changes'][number]['from']): string => `${CUT_MODE_WORDS[s.cut]}${s.cut === 'crystal' ? '' : ` at ${s.wavelengthNm} nm`} on ${s.chip}`;
+    rows.push(...wrap(`layer ${c.layer}: ${setting(c.from)} → ${setting(c.to)}: ${c.reason}`, 120, '  ', '    '));
+  }
+  if (p.flagged.length > 0) {
+    rows.push('', `Layers whose stack figure is above ${FLAG_PERCENT} % of n·d in the recipe:`);
+    for (const f of p.flagged) {
+      const now = f.afterPercent === null ? 'cut on the crystal in the proposal' : `${fixed(f.afterPercent, 2)} % in the proposal`;
+      const verdict = f.met
+        ? 'met'
+        : f.keptTurn
+          ? 'kept on its turning point, which makes up for the layers below (the figure, a fit\'s, overstates its error on a chain of turns)'
+          : `not met: no optical setting tried does better than ${fixed(f.bestOpticalPercent, 2)} %${f.bestOpticalPercent <= FLAG_PERCENT ? ' (which would meet it, but lowers a predicted yield: the fit\'s or the plain rules\')' : ''}`;
+      rows.push(...wrap(`layer ${f.layer}: ${fixed(f.beforePercent, 2)} % → ${now}; ${verdict}`, 120, '  ', '    '));
+    }
+  }
+  rows.push('', 'Check the proposal with fringe study (strategies fit and plain) before relying on it.');
   return rows.join('\n');
 }

@@ -100,6 +100,8 @@ export interface LayerPlan {
    */
   stackPrecisionNm: number;
   stackPrecisionPercent: number;
+  /** The bound on the material's index factor κ after this layer (the prior of its next optical layer; the prior itself for a layer not cut optically). */
+  indexSigmaAfter: number;
   /** Same for the plain rule of the cut mode (crossing, or turn confirmed by 1σ), nm on the parts. */
   plainRulePrecisionNm: number;
   crystal: {
@@ -282,46 +284,114 @@ function addStackPrecision(
   /** Filled with what the layers below bring to each layer's figure, nm on the parts. */
   belowNmOut: Map<number, number>,
 ): void {
+  // A layer below counts with its own noise bound, not its stack figure: the chip refit fits
+  // each layer below from the readings of the layers above it too, so that their errors do
+  // not compound (compounding them overstated the edge filter's first chip up to tenfold).
   const sigmaChipNm = new Map<number, number>();
   const indexSigma = new Map<string, number>();
   layers.forEach((plan, n) => {
     const i = plan.number - 1;
     const layer = recipe.layers[i] as LayerRecipe;
-    const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
-    let total = plan.precisionNm;
-    if (plan.cut === 'level' || plan.cut === 'turning-point') {
-      const below: BelowLayer[] = [];
-      for (let k = Math.max(chip.fromLayer - 1, i - NEAREST, fromLayer - 1); k < i; k++) {
-        const sigma = sigmaChipNm.get(k) ?? 0;
-        if (!(sigma > 0)) continue;
-        const lower = recipe.layers[k] as LayerRecipe;
-        const deltaChipNm = 0.5;
-        const perturbed = partNm.slice();
-        perturbed[k] = (partNm[k] as number) + deltaChipNm / lower.chipRatio;
-        below.push({ monitor: chipMonitorFor(recipe, i, perturbed, { indexFactors }), deltaNm: deltaChipNm, sigmaNm: sigma });
-      }
-      const known = indexSigma.get(layer.materialName);
-      const delta = 0.01;
-      const index = {
-        plus: chipMonitorFor(recipe, i, partNm, { indexFactors, growingIndexFactor: 1 + delta }),
-        minus: chipMonitorFor(recipe, i, partNm, { indexFactors, growingIndexFactor: 1 - delta }),
-        delta,
-        sigma: known === undefined ? DEFAULT_INDEX_SIGMA : Math.hypot(known, INDEX_RUN_SIGMA),
-      };
-      const p = layerPrecision(monitors[n] as ChipMonitor, index, below, plan.chipTargetNm, layer.rateNmPerS * layer.chipRatio, ctx.sampleRateHz, ctx.noise, ctx.priors);
-      indexSigma.set(layer.materialName, p.indexSigma);
-      if (Number.isFinite(p.cutNm) && Number.isFinite(p.belowNm)) {
-        total = Math.max(plan.precisionNm, Math.hypot(p.cutNm, p.belowNm) / layer.chipRatio);
-        belowNmOut.set(plan.number, p.belowNm / layer.chipRatio);
-      }
-    }
-    plan.stackPrecisionNm = total;
-    plan.stackPrecisionPercent = (100 * total) / layer.targetNm;
-    // A layer below counts with its own noise bound, not its stack figure: the chip refit fits
-    // each layer below from the readings of the layers above it too, so that their errors do
-    // not compound (compounding them overstated the edge filter's first chip up to tenfold).
+    const below = stackFigure(recipe, plan, monitors[n] as ChipMonitor, partNm, indexFactors, fromLayer, ctx, (k) => sigmaChipNm.get(k) ?? 0, indexSigma.get(layer.materialName));
+    if (below !== undefined) belowNmOut.set(plan.number, below);
+    if (plan.cut === 'level' || plan.cut === 'turning-point') indexSigma.set(layer.materialName, plan.indexSigmaAfter);
     sigmaChipNm.set(i, plan.precisionNm * layer.chipRatio);
   });
+}
+
+/**
+ * Fills one layer's stack figure (and the bound on its index after it): the fit's bound with
+ * the layer's index unknown (prior `indexPrior`, the bound the material's earlier layers left;
+ * none yet: the design's) and what the planned layers below it on its chip bring, each with the
+ * chip-nm uncertainty `sigmaChipNmOf(k)` (0-based). Returns what the layers below bring, nm on
+ * the parts (undefined for a layer not cut optically).
+ */
+function stackFigure(
+  recipe: ResolvedRecipe,
+  plan: LayerPlan,
+  monitor: ChipMonitor,
+  partNm: readonly number[],
+  indexFactors: readonly number[],
+  fromLayer: number,
+  ctx: { noise: number; sampleRateHz: number; priors: FitPriors },
+  sigmaChipNmOf: (index: number) => number,
+  indexPrior: number | undefined,
+): number | undefined {
+  const i = plan.number - 1;
+  const layer = recipe.layers[i] as LayerRecipe;
+  const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
+  let total = plan.precisionNm;
+  let belowNm: number | undefined;
+  const prior = indexPrior === undefined ? DEFAULT_INDEX_SIGMA : Math.hypot(indexPrior, INDEX_RUN_SIGMA);
+  plan.indexSigmaAfter = prior;
+  if (plan.cut === 'level' || plan.cut === 'turning-point') {
+    const below: BelowLayer[] = [];
+    for (let k = Math.max(chip.fromLayer - 1, i - NEAREST, fromLayer - 1); k < i; k++) {
+      const sigma = sigmaChipNmOf(k);
+      if (!(sigma > 0)) continue;
+      const lower = recipe.layers[k] as LayerRecipe;
+      const deltaChipNm = 0.5;
+      const perturbed = partNm.slice();
+      perturbed[k] = (partNm[k] as number) + deltaChipNm / lower.chipRatio;
+      below.push({ monitor: chipMonitorFor(recipe, i, perturbed, { indexFactors }), deltaNm: deltaChipNm, sigmaNm: sigma });
+    }
+    const delta = 0.01;
+    const index = {
+      plus: chipMonitorFor(recipe, i, partNm, { indexFactors, growingIndexFactor: 1 + delta }),
+      minus: chipMonitorFor(recipe, i, partNm, { indexFactors, growingIndexFactor: 1 - delta }),
+      delta,
+      sigma: prior,
+    };
+    const p = layerPrecision(monitor, index, below, plan.chipTargetNm, layer.rateNmPerS * layer.chipRatio, ctx.sampleRateHz, ctx.noise, ctx.priors);
+    plan.indexSigmaAfter = p.indexSigma;
+    if (Number.isFinite(p.cutNm) && Number.isFinite(p.belowNm)) {
+      total = Math.max(plan.precisionNm, Math.hypot(p.cutNm, p.belowNm) / layer.chipRatio);
+      belowNm = p.belowNm / layer.chipRatio;
+    }
+  }
+  plan.stackPrecisionNm = total;
+  plan.stackPrecisionPercent = (100 * total) / layer.targetNm;
+  return belowNm;
+}
+
+/**
+ * Layer `number` planned again in `recipe` (whose other layers `plan` holds, as planned from
+ * layer 1 with the stack figure), with its stack figure from the layers below as `plan` has
+ * them: what one layer's cut, wavelength or chip would give, at the cost of one layer. No
+ * wavelength search; the warnings are the layer's own.
+ */
+export function planLayerAgain(recipe: ResolvedRecipe, plan: RunPlan, number: number, options: Pick<PlanOptions, 'priors' | 'curveStepNm'> = {}): LayerPlan {
+  if (plan.fromLayer !== 1) throw new RangeError('planLayerAgain needs a plan from layer 1');
+  const i = number - 1;
+  const layer = recipe.layers[i] as LayerRecipe;
+  const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
+  const old = plan.layers[i] as LayerPlan;
+  const priors = options.priors ?? DEFAULT_PRIORS;
+  const partNm = recipe.layers.map((l) => l.targetNm);
+  const monitor = chipMonitorFor(recipe, i, partNm);
+  const target = old.chipTargetNm;
+  const curveStep = options.curveStepNm ?? 0.1;
+  const intervals = Math.max(2, Math.ceil(target / curveStep));
+  const step = target / intervals;
+  const curve = new Float64Array(Math.round(intervals * 1.2) + 1);
+  for (let k = 0; k < curve.length; k++) curve[k] = monitor.signalAt(k * step);
+  const ctx = { noise: plan.noise, sampleRateHz: plan.sampleRateHz, priors };
+  const again = describeLayer(recipe, layer, chip.label, i - chip.fromLayer + 2, monitor, curve, step, intervals, {
+    ...ctx,
+    chipRate: layer.rateNmPerS * layer.chipRatio,
+    scratch: new Float64Array(16),
+    crystal: old.crystal,
+    search: undefined,
+  });
+  let indexPrior: number | undefined;
+  for (let k = i - 1; k >= 0 && indexPrior === undefined; k--) {
+    const below = plan.layers[k] as LayerPlan;
+    if (below.material === layer.materialName && (below.cut === 'level' || below.cut === 'turning-point')) indexPrior = below.indexSigmaAfter;
+  }
+  const sigmaOf = (k: number): number => ((plan.layers[k] as LayerPlan).precisionNm * (recipe.layers[k] as LayerRecipe).chipRatio);
+  const belowNm = stackFigure(recipe, again, monitor, partNm, [], 1, ctx, sigmaOf, indexPrior);
+  warnIfImprecise(recipe, again, belowNm ?? 0);
+  return again;
 }
 
 function crystalLayer(layer: LayerRecipe, partNm: number): CrystalLayer {
@@ -468,6 +538,7 @@ function describeLayer(
     // Filled in once every layer is planned (addStackPrecision).
     stackPrecisionNm: precisionNm,
     stackPrecisionPercent: (100 * precisionNm) / layer.targetNm,
+    indexSigmaAfter: DEFAULT_INDEX_SIGMA,
     plainRulePrecisionNm: plainChip / ratio,
     crystal: ctx.crystal,
     warnings,

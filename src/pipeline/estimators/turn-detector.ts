@@ -4,6 +4,9 @@
  * (src/pipeline/rules/) cut on what it has seen. Plain data, a new value per reading.
  */
 import type { LayerPlan } from '../../model/plan/plan.ts';
+import { visibleTurns } from '../../model/plan/turn-visibility.ts';
+
+export { confirmStep, visibleTurns, type TurnDetectorOptions } from '../../model/plan/turn-visibility.ts';
 
 export interface TurnDetector {
   /** Time of the last reading taken, s. */
@@ -20,17 +23,6 @@ export interface TurnDetector {
   readonly turnsNeeded: number;
   /** Consecutive readings beyond the trigger level. */
   readonly beyond: number;
-}
-
-export interface TurnDetectorOptions {
-  /** A turn is confirmed by a tenth of the layer's planned swing, kept between confirmMinSigma·σ and confirmSigma·σ. */
-  readonly confirmSigma: number;
-  readonly confirmMinSigma: number;
-}
-
-/** A tenth of the planned swing, kept between confirmMinSigma·σ and confirmSigma·σ (σ the monitor's noise). */
-export function confirmStep(plan: LayerPlan | undefined, noise: number, options: TurnDetectorOptions): number {
-  return Math.min(options.confirmSigma * noise, Math.max(options.confirmMinSigma * noise, 0.1 * (plan?.swing ?? 0)));
 }
 
 /** The detector at a layer's start. The extremum starts at the first reading, not the plan's start: gain and offset drift. */
@@ -54,34 +46,4 @@ export function readTurns(d: TurnDetector, plan: LayerPlan, timeS: number, value
   const isBeyond = rising ? value >= plan.triggerSignal : value <= plan.triggerSignal;
   const beyond = turnsPassed >= d.turnsNeeded && isBeyond ? d.beyond + 1 : 0;
   return { lastS: timeS, smoothed, extreme, trend, turnsPassed, confirm, turnsNeeded: d.turnsNeeded, beyond };
-}
-
-/**
- * The turns a threshold detector can see before the cut: an extremum that moves the signal by
- * less than twice the confirmation step from the previous one is invisible to it (a layer that
- * starts just before a shallow turn, say), so it is not waited for. Also the way the signal
- * first moves visibly.
- */
-export function visibleTurns(plan: LayerPlan | undefined, confirm: number): { trend: 1 | -1; turnsNeeded: number } {
-  if (!plan) return { trend: 1, turnsNeeded: 0 };
-  // Turns before the cut; one at the target itself is the cut of a turning-point layer.
-  const before = plan.turningPoints.filter((tp) => tp.thicknessNm < plan.chipTargetNm * (1 - 1e-3));
-  const points = [...before.map((tp) => tp.signal), plan.cutSignal];
-  let previous = plan.startSignal;
-  let trend: 1 | -1 | 0 = 0;
-  let turnsNeeded = 0;
-  for (const signal of points) {
-    const move = signal - previous;
-    if (Math.abs(move) < 2 * confirm) continue;
-    const direction = move >= 0 ? 1 : -1;
-    if (trend === 0) trend = direction;
-    else if (direction !== trend) {
-      turnsNeeded++;
-      trend = direction;
-    }
-    previous = signal;
-  }
-  // The first visible move sets the initial trend; count turns from it.
-  const first = points.find((p) => Math.abs(p - plan.startSignal) >= 2 * confirm) ?? plan.cutSignal;
-  return { trend: first >= plan.startSignal ? 1 : -1, turnsNeeded };
 }

@@ -11,7 +11,7 @@ import { loadRecipe } from '../../../src/config/load-recipe.ts';
 import { ConfigError } from '../../../src/config/validation.ts';
 import { zMatchFrequencyHz } from '../../../src/model/crystal/index.ts';
 import { buildChipMonitor } from '../../../src/model/plan/chip-monitor.ts';
-import { planRun, type LayerPlan, type PlanWarningCode, type RunPlan } from '../../../src/model/plan/plan.ts';
+import { planLayerAgain, planRun, type LayerPlan, type PlanWarningCode, type RunPlan } from '../../../src/model/plan/plan.ts';
 import { RecipeSchema, resolveRecipe, type ResolvedRecipe } from '../../../src/model/plan/recipe.ts';
 
 const root = fileURLToPath(new URL('../../../', import.meta.url));
@@ -339,9 +339,9 @@ describe('re-planning after a cut', () => {
       expect(again.layers).toHaveLength(recipe.layers.length - k);
       // Everything but the stack figure, which takes the finished layers as estimated and knows
       // nothing of their indices (a re-plan in the run leaves it out altogether), and the
-      // imprecise-cut warning judged on it.
+      // imprecise-cut warning judged on it, and the bound on the index it leaves.
       const withoutStack = (layers: RunPlan['layers']) =>
-        layers.map(({ stackPrecisionNm: _nm, stackPrecisionPercent: _pct, warnings, ...rest }) => ({ ...rest, warnings: warnings.filter((w) => w.code !== 'imprecise-cut') }));
+        layers.map(({ stackPrecisionNm: _nm, stackPrecisionPercent: _pct, indexSigmaAfter: _index, warnings, ...rest }) => ({ ...rest, warnings: warnings.filter((w) => w.code !== 'imprecise-cut') }));
       expectSame(withoutStack(full.layers.slice(k)), withoutStack(again.layers), 'layers');
       again.layers.forEach((l) => expect(l.stackPrecisionNm).toBeGreaterThanOrEqual(l.precisionNm));
     });
@@ -439,5 +439,22 @@ describe('recipe validation', () => {
     expect(at).toContain('process.MgF2');
     // Every layer is outside its material's data at 350 nm.
     for (let n = 1; n <= 27; n++) expect(at).toContain(`layers.${n}.wavelengthNm`);
+  });
+});
+
+describe('one layer planned again', () => {
+  const plan = planRun(edge, { suggest: 'none' });
+  it('is the whole plan\'s layer, for the recipe as planned and with the layer at another wavelength', () => {
+    const again = planLayerAgain(edge, plan, 8);
+    expect(again.stackPrecisionNm).toBe(plan.layers[7]?.stackPrecisionNm);
+    expect(again.indexSigmaAfter).toBe(plan.layers[7]?.indexSigmaAfter);
+    const moved = { ...edge, layers: edge.layers.map((l) => (l.number === 8 ? { ...l, wavelengthNm: 520 } : l)) };
+    const whole = planRun(moved, { suggest: 'none' }).layers[7];
+    const one = planLayerAgain(moved, plan, 8);
+    expect(one.wavelengthNm).toBe(520);
+    expect(one.cutSignal).toBe(whole?.cutSignal);
+    expect(one.stackPrecisionNm).toBeCloseTo(whole?.stackPrecisionNm as number, 12);
+    expect(one.stackPrecisionNm).not.toBeCloseTo(plan.layers[7]?.stackPrecisionNm as number, 3);
+    expect(() => planLayerAgain(edge, planRun(edge, { achievedNm: [80], suggest: 'none' }), 8)).toThrow(/from layer 1/);
   });
 });
