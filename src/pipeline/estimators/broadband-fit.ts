@@ -10,12 +10,11 @@
  */
 import { buildBroadbandChip, createBroadbandFit, type BroadbandFit, type SpectrumMerit } from '../../model/estimate/index.ts';
 import { broadbandChipFor, planBroadbandLayer, type BroadbandLayerPlan } from '../../model/plan/broadband-plan.ts';
-import type { LayerPlan } from '../../model/plan/plan.ts';
 import { DEFAULT_PRIORS } from '../../model/plan/precision.ts';
 import type { ResolvedRecipe } from '../../model/plan/recipe.ts';
 import { INDEX_RUN_SIGMA } from '../../model/plan/stack-precision.ts';
 import { cutAt, type CutRule, type RecipeLayer, type ThicknessEstimate } from '../rules/cut-rule.ts';
-import { CLOCK_START_SIGMA_NM, RATE_RUN_SIGMA, type MaterialEstimate } from './model-fit.ts';
+import { CLOCK_START_SIGMA_NM, RATE_RUN_SIGMA, type FitStart } from './model-fit.ts';
 
 /**
  * The alert the controller raises when a layer's spectra depart from the model beyond the noise
@@ -40,23 +39,14 @@ export interface BroadbandNow {
   readonly clockS: number;
 }
 
-/** What a broadband fit of a layer about to start needs (the model fit's FitStart, with the instrument's grid). */
-export interface BroadbandStart {
-  readonly recipe: ResolvedRecipe;
-  readonly index: number;
-  readonly plan: LayerPlan;
-  /** The finished layers as the chip model takes them: part thickness and index factor (resolvedStack). */
-  readonly stack: { readonly partNm: readonly number[]; readonly indexFactors: readonly number[] };
-  readonly materialIndex: Readonly<Record<string, MaterialEstimate>>;
-  readonly materialRate: Readonly<Record<string, MaterialEstimate>>;
+/** What a broadband fit of a layer about to start needs: the model fit's start, with the instrument's grid. */
+export interface BroadbandStart extends FitStart {
   /** The instrument's wavelengths, nm (its configuration or its first frame). */
   readonly wavelengthsNm: Float64Array;
   /** rms of one value per wavelength (fraction). */
   readonly noise: number;
   /** Spectra per second. */
   readonly sampleRateHz: number;
-  /** Prior rms of a material's first layer's index. */
-  readonly indexSigma: number;
   /** rms of the finished layers' chip thickness (deposition order), for the plan's bound; absent: exact. */
   readonly belowSigmaNm?: readonly number[];
 }
