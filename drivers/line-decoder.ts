@@ -258,8 +258,8 @@ function fault(line: string, code: FaultCode, offset: number, channel: ChannelKi
 /** A plain decimal number, optionally signed, with an optional exponent; no hex, no words. */
 const NUMBER = /^[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?$/;
 
-/** A finite number from a JSON number or a numeric string; undefined otherwise. */
-function toNumber(raw: unknown): number | undefined {
+/** A finite number from a JSON number or a numeric string; undefined otherwise (the spectral forms read theirs so too). */
+export function toNumber(raw: unknown): number | undefined {
   if (typeof raw === 'number') return Number.isFinite(raw) ? raw : undefined;
   if (typeof raw !== 'string') return undefined;
   const text = raw.trim();

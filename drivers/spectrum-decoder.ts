@@ -28,6 +28,7 @@ import { z } from 'zod';
 import { validate } from '../src/config/validation.ts';
 import { wavelengthRange } from '../src/model/plan/chip-spectrum.ts';
 import type { Fault, FaultCode, SpectrumReading } from '../src/pipeline/types.ts';
+import { toNumber } from './line-decoder.ts';
 import { FAULT_LINE_CHARS } from './line-framer.ts';
 
 const finite = z.number().finite();
@@ -225,19 +226,6 @@ export function createSpectrumDecoder(options: SpectrumFormOptions): SpectrumDec
 
 function fault(line: string, code: FaultCode, offset: number, arrivalS: number): Fault {
   return { kind: 'fault', channel: 'spectral', code, line: line.length > FAULT_LINE_CHARS ? line.slice(0, FAULT_LINE_CHARS) : line, offset, arrivalS };
-}
-
-/** A plain decimal number, optionally signed, with an optional exponent; no hex, no words. */
-const NUMBER = /^[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?$/;
-
-/** A finite number from a JSON number or a numeric string; undefined otherwise. */
-function toNumber(raw: unknown): number | undefined {
-  if (typeof raw === 'number') return Number.isFinite(raw) ? raw : undefined;
-  if (typeof raw !== 'string') return undefined;
-  const text = raw.trim();
-  if (!NUMBER.test(text)) return undefined;
-  const value = Number(text);
-  return Number.isFinite(value) ? value : undefined;
 }
 
 /** Fields of a line and their offsets. */
