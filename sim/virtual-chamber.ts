@@ -42,7 +42,7 @@ import { stackFrequencyHz, crystalLifeUsed, type CrystalLayer } from '../src/mod
 import { indexAt, scaledDispersion, type Dispersion } from '../src/model/optics/dispersion.ts';
 import type { ChipMonitor } from '../src/model/plan/chip-monitor.ts';
 import { buildChipSpectrum, wavelengthRange, type ChipSpectrum } from '../src/model/plan/chip-spectrum.ts';
-import { layerMonitor } from '../src/model/plan/plan.ts';
+import { chipFaces, layerMonitor } from '../src/model/plan/plan.ts';
 import type { LayerRecipe, ResolvedRecipe } from '../src/model/plan/recipe.ts';
 import type { StackSpec } from '../src/model/optics/optical-model.ts';
 import type { Reading, ShutterAck, ShutterCommand, SpectrumReading } from '../src/pipeline/types.ts';
@@ -330,12 +330,8 @@ export function createVirtualChamber(recipe: ResolvedRecipe, profile: SimProfile
   let spectralIndex = 0;
   const chipSpectrumOf = (layer: LayerRecipe, below: { dispersion: Dispersion; thicknessNm: number }[], growing: Dispersion): ChipSpectrum | null => {
     if (spectral === undefined || spectralGridNm === undefined) return null;
-    const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
     return buildChipSpectrum({
-      incident: recipe.incident,
-      substrate: chip.substrate,
-      back: chip.back,
-      substrateThicknessNm: chip.thicknessMm * 1e6,
+      ...chipFaces(recipe, layer),
       below,
       growing,
       angleDeg: layer.angleDeg,

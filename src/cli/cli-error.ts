@@ -23,6 +23,17 @@ export function numberOption(name: string, value: string | undefined): number | 
   return n;
 }
 
+/** The options of many seeded simulated runs (study, what-if): how many, the first seed, the worker threads. */
+export function seededRunsOptions(values: { runs?: string | undefined; seed?: string | undefined; workers?: string | undefined }, defaultRuns: number, maxRuns: number): { runs: number; firstSeed: number; workers: number | undefined } {
+  const runs = numberOption('runs', values.runs) ?? defaultRuns;
+  if (!Number.isInteger(runs) || runs < 1 || runs > maxRuns) throw new CliError(`--runs must be a whole number from 1 to ${maxRuns}, got ${runs}`);
+  const firstSeed = numberOption('seed', values.seed) ?? 1;
+  if (!Number.isInteger(firstSeed) || firstSeed < 0) throw new CliError(`--seed must be a whole number, got ${firstSeed}`);
+  const workers = numberOption('workers', values.workers);
+  if (workers !== undefined && (!Number.isInteger(workers) || workers < 1 || workers > 64)) throw new CliError(`--workers must be from 1 to 64, got ${workers}`);
+  return { runs, firstSeed, workers };
+}
+
 /** How optical layers are cut on the command line: the model fit unless --estimator plain asks for the plain rules. */
 export function estimatorOption(value: string | undefined, fallback: 'fit' | 'plain' = 'fit'): 'fit' | 'plain' {
   const estimator = value ?? fallback;

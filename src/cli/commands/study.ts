@@ -12,7 +12,7 @@ import { CUT_MODE_SHORT, CUT_MODE_WORDS, wordFor } from '../../pipeline/cut-word
 import { renderLineChart } from '../../report/index.ts';
 import { STRATEGIES, strategyProblem } from '../../study/study-run.ts';
 import { runStudy, type StudyReport } from '../../study/study.ts';
-import { CliError, numberOption, plotFileOption, writeOutputFile } from '../cli-error.ts';
+import { CliError, plotFileOption, seededRunsOptions, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 import { createProgressBar } from '../progress-bar.ts';
 
@@ -63,12 +63,7 @@ export async function runStudyCommand(argv: string[], io: CommandIo): Promise<nu
     return 0;
   }
   if (positionals.length !== 1) throw new CliError('study needs exactly one RECIPE file (see fringe study --help)');
-  const runs = numberOption('runs', values.runs) ?? 50;
-  if (!Number.isInteger(runs) || runs < 1 || runs > 100_000) throw new CliError(`--runs must be a whole number from 1 to 100000, got ${runs}`);
-  const firstSeed = numberOption('seed', values.seed) ?? 1;
-  if (!Number.isInteger(firstSeed) || firstSeed < 0) throw new CliError(`--seed must be a whole number, got ${firstSeed}`);
-  const workers = numberOption('workers', values.workers);
-  if (workers !== undefined && (!Number.isInteger(workers) || workers < 1 || workers > 64)) throw new CliError(`--workers must be from 1 to 64, got ${workers}`);
+  const { runs, firstSeed, workers } = seededRunsOptions(values, 50, 100_000);
   const strategies = (values.strategies ?? 'plain,fit').split(',').map((s) => s.trim()).filter((s) => s !== '');
   const unknown = strategies.filter((s) => !STRATEGIES[s]);
   if (unknown.length > 0 || strategies.length === 0) {

@@ -13,7 +13,7 @@ import { loadRecipe } from '../../config/load-recipe.ts';
 import { journalEstimator } from '../../journal/journal-format.ts';
 import { renderLineChart } from '../../report/index.ts';
 import { designMismatch, runWhatIf, type RecordedDeposit, type WhatIfReport } from '../../study/whatif.ts';
-import { CliError, estimatorOption, numberOption, plotFileOption, writeOutputFile } from '../cli-error.ts';
+import { CliError, estimatorOption, plotFileOption, seededRunsOptions, writeOutputFile } from '../cli-error.ts';
 import type { CommandIo } from '../command-io.ts';
 import { parseCommandArgs } from '../parse-command-args.ts';
 import { createProgressBar } from '../progress-bar.ts';
@@ -74,12 +74,7 @@ export async function runWhatIfCommand(argv: string[], io: CommandIo): Promise<n
   }
   if (positionals.length !== 1) throw new CliError('whatif needs exactly one RUN folder (see fringe whatif --help)');
   if (values.recipe === undefined) throw new CliError('whatif needs --recipe FILE, the changed recipe to try on the calibrated chamber');
-  const runs = numberOption('runs', values.runs) ?? 20;
-  if (!Number.isInteger(runs) || runs < 1 || runs > MAX_WHATIF_RUNS) throw new CliError(`--runs must be a whole number from 1 to ${MAX_WHATIF_RUNS}, got ${runs}`);
-  const firstSeed = numberOption('seed', values.seed) ?? 1;
-  if (!Number.isInteger(firstSeed) || firstSeed < 0) throw new CliError(`--seed must be a whole number, got ${firstSeed}`);
-  const workers = numberOption('workers', values.workers);
-  if (workers !== undefined && (!Number.isInteger(workers) || workers < 1 || workers > 64)) throw new CliError(`--workers must be from 1 to 64, got ${workers}`);
+  const { runs, firstSeed, workers } = seededRunsOptions(values, 20, MAX_WHATIF_RUNS);
   if (values.plot !== undefined) plotFileOption(values.plot);
 
   const target = positionals[0] as string;

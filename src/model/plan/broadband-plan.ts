@@ -27,7 +27,7 @@ import { buildBroadbandChip, type BroadbandChip, type BroadbandChipSpec } from '
 import { addSpectrumInformation, carryForward, DEFAULT_WANDER, STATE, type Wander } from '../estimate/broadband-fit.ts';
 import { choleskyInto, choleskyInverseInto } from '../numeric/dense.ts';
 import { scaledDispersion } from '../optics/dispersion.ts';
-import type { ChipViewOptions } from './plan.ts';
+import { chipFaces, type ChipViewOptions } from './plan.ts';
 import type { LayerRecipe, ResolvedRecipe } from './recipe.ts';
 import { NEAREST } from './stack-precision.ts';
 
@@ -251,10 +251,7 @@ export function broadbandChipFor(recipe: ResolvedRecipe, index: number, partNm: 
     hi = Math.min(hi, l.validRangeNm[1]);
   }
   return {
-    incident: recipe.incident,
-    substrate: chip.substrate,
-    back: chip.back,
-    substrateThicknessNm: chip.thicknessMm * 1e6,
+    ...chipFaces(recipe, layer),
     below,
     growing: scaledDispersion(layer.dispersion, view.growingIndexFactor ?? 1, 0),
     angleDeg: layer.angleDeg,

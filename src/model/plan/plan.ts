@@ -247,18 +247,20 @@ export function chipMonitorFor(recipe: ResolvedRecipe, index: number, partNm: re
   return layerMonitor(recipe, layer, below, scaledDispersion(layer.dispersion, view.growingIndexFactor ?? 1, 0));
 }
 
+/** The witness chip `layer` lies on, as every chip model takes it: the medium in front, the substrate and its back. */
+export function chipFaces(recipe: ResolvedRecipe, layer: LayerRecipe): Pick<ChipMonitorSpec, 'incident' | 'substrate' | 'back' | 'substrateThicknessNm'> {
+  const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
+  return { incident: recipe.incident, substrate: chip.substrate, back: chip.back, substrateThicknessNm: chip.thicknessMm * 1e6 };
+}
+
 /**
  * The optical monitor of `layer` as its settings give it (wavelength, band, angle, signal), on its
  * chip over the layers `below` (chip thicknesses), the layer growing in `growing`: the one place
  * a layer's settings become a chip monitor, for the plan and for the virtual chamber's truth.
  */
 export function layerMonitor(recipe: ResolvedRecipe, layer: LayerRecipe, below: ChipMonitorSpec['below'], growing: Dispersion): ChipMonitor {
-  const chip = recipe.chips[layer.chip] as ResolvedRecipe['chips'][number];
   return buildChipMonitor({
-    incident: recipe.incident,
-    substrate: chip.substrate,
-    back: chip.back,
-    substrateThicknessNm: chip.thicknessMm * 1e6,
+    ...chipFaces(recipe, layer),
     below,
     growing,
     wavelengthNm: layer.wavelengthNm,
